@@ -1,0 +1,28 @@
+"""Tabular agent kinds and their registry."""
+
+from runner.agents.base import COUNTER_NAMES, TabularAgent
+from runner.registry import Registry
+
+__all__ = ["AGENTS", "COUNTER_NAMES", "TabularAgent", "agent_class", "make_agent"]
+
+AGENTS = Registry(
+    "agent kind",
+    {
+        "q_learning": "runner.agents.q_learning:QLearning",
+        "dyna_q": "runner.agents.dyna_q:DynaQ",
+        "certainty_equivalence": "runner.agents.certainty_equivalence:CertaintyEquivalence",
+    },
+)
+
+
+def agent_class(kind: str) -> type[TabularAgent]:
+    """The class of a registered kind (or of a 'package.module:Class' entry point)."""
+    cls = AGENTS.load(kind)
+    if not (isinstance(cls, type) and issubclass(cls, TabularAgent)):
+        raise TypeError(f"{kind!r} is not a TabularAgent subclass")
+    return cls
+
+
+def make_agent(kind: str, params: dict) -> TabularAgent:
+    """Build an agent from its kind and (already validated) parameters."""
+    return agent_class(kind)(**params)

@@ -1,0 +1,81 @@
+"""The contract every tabular agent kind follows.
+
+The constructor only stores parameters. `setup` creates the learned state: a tuple of numpy arrays
+(`arrays_`, whose first entry is always the Q-table the greedy evaluation policy reads), a float vector of
+hyperparameters (`hyper_`) and the counters. Acting and learning are two compiled kernels over those arrays,
+so the same kernels can later run inside a fully compiled trial loop.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+
+from runner.agents.kernels import greedy_action
+from runner.params import Param, resolve_params
+
+__all__ = ["COUNTER_NAMES", "TabularAgent"]
+
+COUNTER_NAMES = ("real_updates", "planning_updates", "model_updates")
+"""Order of `counters_`: value updates from real transitions, from the model, and model updates."""
+
+
+class TabularAgent:
+    """Base class: parameters in, arrays and compiled kernels out."""
+
+    kind: ClassVar[str] = ""
+    summary: ClassVar[str] = ""
+    source: ClassVar[str] = ""
+    schema: ClassVar[tuple[Param, ...]] = ()
+
+    def __init__(self, **params: Any) -> None:
+        self._params = resolve_params(self.schema, params)
+
+    def get_params(self) -> dict[str, Any]:
+        """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
+        return dict(self._params)
+
+    def setup(self, n_states: int, n_actions: int, rng: np.random.Generator) -> None:
+        """Create the learned state for an environment of that size; the generator is the agent's stream."""
+        self.n_states_ = int(n_states)
+        self.n_actions_ = int(n_actions)
+        self.rng_ = rng
+        self.counters_ = np.zeros(len(COUNTER_NAMES), dtype=np.int64)
+        self.arrays_ = self.make_arrays(self.n_states_, self.n_actions_)
+        self.hyper_ = np.asarray(self.make_hyper(), dtype=np.float64)
+
+    def make_arrays(self, n_states: int, n_actions: int) -> tuple[np.ndarray, ...]:
+        """The learned state; entry 0 is the Q-table of shape (n_states, n_actions)."""
+        raise NotImplementedError
+
+    def make_hyper(self) -> list[float]:
+        """Numeric hyperparameters in the order the kernels read them."""
+        raise NotImplementedError
+
+    def act(self, state: int) -> int:
+        """Behaviour action for a real step (draws from the agent's own stream)."""
+        return int(self.act_kernel(self.arrays_, self.hyper_, state, self.rng_))
+
+    def observe(self, state: int, action: int, reward: float, next_state: int, terminated: bool) -> None:
+        """Learn from one real transition (and plan, for agents that plan)."""
+        self.observe_kernel(
+            self.arrays_, self.hyper_, self.counters_, state, action, float(reward), next_state,
+            bool(terminated), self.rng_,
+        )
+
+    def greedy(self, state: int, rng: np.random.Generator) -> int:
+        """Greedy action for evaluation; ties are broken with the evaluation stream, not the agent's."""
+        return int(greedy_action(self.arrays_[0], state, rng))
+
+    def counters(self) -> dict[str, int]:
+        """Counters by name."""
+        return {name: int(v) for name, v in zip(COUNTER_NAMES, self.counters_, strict=True)}
+
+    @staticmethod
+    def act_kernel(arrays, hyper, state, rng):  # pragma: no cover - replaced by every kind
+        raise NotImplementedError
+
+    @staticmethod
+    def observe_kernel(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
+        raise NotImplementedError  # pragma: no cover - replaced by every kind

@@ -1,0 +1,117 @@
+"""Certainty-equivalence: learn count-based transition and mean-reward models, plan by value iteration."""
+
+import numpy as np
+from numba import njit
+
+from runner.agents.base import TabularAgent
+from runner.agents.common import EPSILON, GAMMA
+from runner.agents.kernels import epsilon_greedy
+from runner.params import Param
+from runner.planning.value_iteration import sweep_until_converged
+
+__all__ = ["CertaintyEquivalence"]
+
+_GAMMA, _EPSILON, _TOL, _MAX_SWEEPS, _REPLAN, _UNVISITED, _OPTIMISTIC = range(7)
+_Q, _V, _SUCC, _WEIGHT, _N_SUCC, _VISITS, _REWARD_SUM, _SINCE = range(8)
+_UNVISITED_CODES = {"optimistic": 0, "self_loop": 1}
+
+
+@njit(cache=True)
+def certainty_equivalence_act(arrays, hyper, state, rng):
+    """Epsilon-greedy on the Q-table of the last plan."""
+    return epsilon_greedy(arrays[_Q], state, hyper[_EPSILON], rng)
+
+
+@njit(cache=True)
+def certainty_equivalence_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
+    """Count the transition into the model; every k real steps re-plan by value iteration."""
+    n_states = arrays[_Q].shape[0]
+    target = n_states if terminated else next_state
+    succ = arrays[_SUCC]
+    n = arrays[_N_SUCC][state, action]
+    slot = -1
+    for j in range(n):
+        if succ[state, action, j] == target:
+            slot = j
+            break
+    if slot < 0:
+        if n == succ.shape[2]:
+            raise ValueError("more distinct next states for one (state, action) than max_successors")
+        slot = n
+        succ[state, action, slot] = target
+        arrays[_N_SUCC][state, action] = n + 1
+    arrays[_WEIGHT][state, action, slot] += 1.0
+    arrays[_VISITS][state, action] += 1.0
+    arrays[_REWARD_SUM][state, action] += reward
+    counters[2] += 1
+    since = arrays[_SINCE]
+    since[0] += 1
+    if since[0] >= hyper[_REPLAN]:
+        since[0] = 0
+        _, backups = sweep_until_converged(
+            arrays[_Q], arrays[_V], succ, arrays[_WEIGHT], arrays[_N_SUCC], arrays[_VISITS], arrays[_REWARD_SUM],
+            hyper[_GAMMA], hyper[_TOL], np.int64(hyper[_MAX_SWEEPS]), np.int64(hyper[_UNVISITED]),
+            hyper[_OPTIMISTIC],
+        )
+        counters[1] += backups
+
+
+class CertaintyEquivalence(TabularAgent):
+    """Model-based agent that trusts its maximum-likelihood model and solves it by value iteration."""
+
+    kind = "certainty_equivalence"
+    summary = "count-based transition and mean-reward model, value iteration re-planned every k real steps"
+    source = "Kumar & Varaiya (1986); Sutton & Barto (2018), section 8.1"
+    schema = (
+        GAMMA,
+        EPSILON,
+        Param("replan_every", "int", 1, "real steps between value-iteration runs (k)", low=1),
+        Param("tolerance", "float", 1e-4, "stop sweeping when no state value moves more than this",
+              low=0.0, low_open=True),
+        Param("max_sweeps", "int", 50, "cap on value-iteration sweeps per re-plan", low=1),
+        Param("unvisited", "choice", "optimistic", "value of never-tried (state, action) pairs",
+              choices=("optimistic", "self_loop")),
+        Param("optimistic_value", "float", 1.0, "Q-value given to never-tried pairs when unvisited is optimistic"),
+        Param("max_successors", "int", 32, "distinct next states remembered per (state, action)", low=1),
+    )
+
+    def make_arrays(self, n_states, n_actions):
+        p = self._params
+        width = min(p["max_successors"], n_states + 1)
+        start = p["optimistic_value"] if p["unvisited"] == "optimistic" else 0.0
+        return (
+            np.full((n_states, n_actions), start, dtype=np.float64),
+            np.zeros(n_states + 1, dtype=np.float64),
+            np.zeros((n_states, n_actions, width), dtype=np.int64),
+            np.zeros((n_states, n_actions, width), dtype=np.float64),
+            np.zeros((n_states, n_actions), dtype=np.int64),
+            np.zeros((n_states, n_actions), dtype=np.float64),
+            np.zeros((n_states, n_actions), dtype=np.float64),
+            np.zeros(1, dtype=np.int64),
+        )
+
+    def make_hyper(self):
+        p = self._params
+        return [
+            p["gamma"], p["epsilon"], p["tolerance"], float(p["max_sweeps"]), float(p["replan_every"]),
+            float(_UNVISITED_CODES[p["unvisited"]]), p["optimistic_value"],
+        ]
+
+    def transition_estimate(self) -> np.ndarray:
+        """Learned P(next | state, action) as an array of shape (n_states, n_actions, n_states + 1).
+
+        The last column is the probability that the episode ends; rows of unvisited pairs are zero.
+        """
+        _, _, succ, weight, n_succ, visits, _, _ = self.arrays_
+        n_states, n_actions = visits.shape
+        out = np.zeros((n_states, n_actions, n_states + 1))
+        for s in range(n_states):
+            for a in range(n_actions):
+                for j in range(n_succ[s, a]):
+                    out[s, a, succ[s, a, j]] += weight[s, a, j]
+                if visits[s, a] > 0:
+                    out[s, a] /= visits[s, a]
+        return out
+
+    act_kernel = staticmethod(certainty_equivalence_act)
+    observe_kernel = staticmethod(certainty_equivalence_observe)

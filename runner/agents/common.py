@@ -1,0 +1,10 @@
+"""Parameters shared by several agent kinds, declared once."""
+
+from runner.params import Param
+
+__all__ = ["ALPHA", "EPSILON", "GAMMA", "INITIAL_Q"]
+
+ALPHA = Param("alpha", "float", 0.1, "step size of each value update", low=0.0, high=1.0, low_open=True)
+GAMMA = Param("gamma", "float", 0.95, "discount factor", low=0.0, high=1.0)
+EPSILON = Param("epsilon", "float", 0.1, "probability of a uniform random action when acting", low=0.0, high=1.0)
+INITIAL_Q = Param("initial_q", "float", 0.0, "starting value of every Q-table entry")

@@ -1,0 +1,86 @@
+"""Dyna-Q: Q-learning plus n planning updates per real step, replayed from a learned last-outcome model."""
+
+import numpy as np
+from numba import njit
+
+from runner.agents.base import TabularAgent
+from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
+from runner.agents.kernels import epsilon_greedy, q_learning_update
+from runner.params import Param
+
+__all__ = ["DynaQ"]
+
+_ALPHA, _GAMMA, _EPSILON, _PLANNING = 0, 1, 2, 3
+_Q, _NEXT, _REWARD, _TERMINAL, _SEEN, _SEEN_LIST, _N_SEEN = range(7)
+
+
+@njit(cache=True)
+def dyna_q_act(arrays, hyper, state, rng):
+    """Epsilon-greedy on the Q-table."""
+    return epsilon_greedy(arrays[_Q], state, hyper[_EPSILON], rng)
+
+
+@njit(cache=True)
+def dyna_q_plan(arrays, hyper, counters, n_updates, rng):
+    """Replay n uniformly chosen previously seen (state, action) pairs through the model."""
+    q = arrays[_Q]
+    n_actions = q.shape[1]
+    n_seen = arrays[_N_SEEN][0]
+    for _ in range(n_updates):
+        pair = arrays[_SEEN_LIST][rng.integers(0, n_seen)]
+        s = pair // n_actions
+        a = pair % n_actions
+        q_learning_update(
+            q, s, a, arrays[_REWARD][s, a], arrays[_NEXT][s, a], arrays[_TERMINAL][s, a] != 0,
+            hyper[_ALPHA], hyper[_GAMMA],
+        )
+    counters[1] += n_updates
+
+
+@njit(cache=True)
+def dyna_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
+    """Direct update, model update (last outcome seen), then the planning budget."""
+    q_learning_update(arrays[_Q], state, action, reward, next_state, terminated, hyper[_ALPHA], hyper[_GAMMA])
+    counters[0] += 1
+    arrays[_NEXT][state, action] = next_state
+    arrays[_REWARD][state, action] = reward
+    arrays[_TERMINAL][state, action] = 1 if terminated else 0
+    if arrays[_SEEN][state, action] == 0:
+        arrays[_SEEN][state, action] = 1
+        arrays[_SEEN_LIST][arrays[_N_SEEN][0]] = state * arrays[_Q].shape[1] + action
+        arrays[_N_SEEN][0] += 1
+    counters[2] += 1
+    dyna_q_plan(arrays, hyper, counters, np.int64(hyper[_PLANNING]), rng)
+
+
+class DynaQ(TabularAgent):
+    """Tabular Dyna-Q with a deterministic last-outcome model and a planning budget per real step."""
+
+    kind = "dyna_q"
+    summary = "Q-learning plus n simulated updates per real step from a learned last-outcome model"
+    source = "Sutton (1990); Sutton & Barto (2018), section 8.2"
+    schema = (
+        ALPHA,
+        GAMMA,
+        EPSILON,
+        INITIAL_Q,
+        Param("planning_steps", "int", 5, "simulated updates per real step (n; 0 gives Q-learning)", low=0),
+    )
+
+    def make_arrays(self, n_states, n_actions):
+        return (
+            np.full((n_states, n_actions), self._params["initial_q"], dtype=np.float64),
+            np.zeros((n_states, n_actions), dtype=np.int64),
+            np.zeros((n_states, n_actions), dtype=np.float64),
+            np.zeros((n_states, n_actions), dtype=np.uint8),
+            np.zeros((n_states, n_actions), dtype=np.uint8),
+            np.zeros(n_states * n_actions, dtype=np.int64),
+            np.zeros(1, dtype=np.int64),
+        )
+
+    def make_hyper(self):
+        p = self._params
+        return [p["alpha"], p["gamma"], p["epsilon"], float(p["planning_steps"])]
+
+    act_kernel = staticmethod(dyna_q_act)
+    observe_kernel = staticmethod(dyna_q_observe)

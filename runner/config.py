@@ -1,0 +1,384 @@
+"""Study files: validate a YAML study into frozen objects before any work is scheduled.
+
+Every error names the file, the line and the key path and says what was expected and what came.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import itertools
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from runner.agents import agent_class
+from runner.envs.grid import GridMapError, parse_grid_map
+from runner.envs.sources import GRID_PARAMS, SOURCES, build_env, env_sizes, gym_reward_threshold, gym_spec
+from runner.errors import ConfigError, EnvironmentSourceError, UnknownKindError
+from runner.params import Param, check_value
+from runner.yaml_source import KeyPath, SourceText, format_path, read_yaml
+
+__all__ = ["AgentVariant", "EnvironmentDecl", "Evaluation", "Study", "load_study"]
+
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
+_TOP_KEYS = ("study", "description", "seeds", "real_steps", "evaluation", "environments", "agents", "baseline")
+_EVAL_KEYS = ("every", "episodes", "step_cap", "training_window")
+_ENV_KEYS = ("label", "gym", "grid", "entry", "options", "step_limit", "threshold")
+_GRID_KEYS = ("map", *GRID_PARAMS)
+_AGENT_KEYS = ("label", "kind", "params")
+_DEFAULT_STEP_CAP = 1000
+
+_GRID_SCHEMA = (
+    Param("slip", "float", 0.0, "chance a move from a slippery cell goes sideways", low=0.0, high=1.0),
+    Param("step_reward", "float", 0.0, "reward of an ordinary move"),
+    Param("goal_reward", "float", 1.0, "reward for entering the goal"),
+    Param("hazard_penalty", "float", -1.0, "reward for entering a hazard"),
+    Param("hazard_ends", "bool", True, "whether entering a hazard ends the episode"),
+)
+
+
+@dataclass(frozen=True)
+class Evaluation:
+    """The evaluation protocol: every N real steps, K greedy episodes on a separate environment instance."""
+
+    every: int
+    episodes: int
+    step_cap: int | None
+    training_window: int
+
+
+@dataclass(frozen=True)
+class EnvironmentDecl:
+    """One environment of the study: its label, resolved spec and performance threshold."""
+
+    label: str
+    spec: dict[str, Any]
+    threshold: float | None
+    step_cap: int
+
+
+@dataclass(frozen=True)
+class AgentVariant:
+    """One agent variant after grid expansion: label, kind and fully resolved parameters."""
+
+    label: str
+    entry_label: str
+    kind: str
+    params: dict[str, Any]
+    varied: dict[str, Any]
+
+
+@dataclass(frozen=True)
+class Study:
+    """A validated study."""
+
+    name: str
+    description: str
+    file: str
+    text: str
+    text_hash: str
+    seeds: tuple[int, ...]
+    real_steps: int
+    evaluation: Evaluation
+    environments: tuple[EnvironmentDecl, ...]
+    agents: tuple[AgentVariant, ...]
+    baseline: str | None
+
+
+def load_study(path: str | Path) -> Study:
+    """Read and validate a study file; raise ConfigError with file, line and key path on any problem."""
+    src = read_yaml(path)
+    data = src.data
+    if not isinstance(data, dict):
+        raise src.error((), f"expected a mapping of study keys ({', '.join(_TOP_KEYS)}), got {_kind(data)}")
+    _no_unknown_keys(src, data, (), _TOP_KEYS)
+    name = _require(src, data, ("study",))
+    if not isinstance(name, str) or not _NAME.match(name):
+        raise src.error(
+            ("study",), f"expected a name of letters, digits, '-', '_' or '.' (at most 64, no '/'), got {name!r}"
+        )
+    description = data.get("description", "")
+    if not isinstance(description, str):
+        raise src.error(("description",), f"expected text, got {_kind(description)}")
+    seeds = _seeds(src, _require(src, data, ("seeds",)))
+    real_steps = _positive_int(src, ("real_steps",), _require(src, data, ("real_steps",)))
+    evaluation = _evaluation(src, data.get("evaluation"), real_steps)
+    environments = _environments(src, _require(src, data, ("environments",)), evaluation)
+    agents = _agents(src, _require(src, data, ("agents",)))
+    baseline = _baseline(src, data.get("baseline"), agents)
+    return Study(
+        name=name,
+        description=description,
+        file=src.file,
+        text=src.text,
+        text_hash=hashlib.sha256(src.text.encode()).hexdigest(),
+        seeds=seeds,
+        real_steps=real_steps,
+        evaluation=evaluation,
+        environments=environments,
+        agents=agents,
+        baseline=baseline,
+    )
+
+
+def _kind(value: Any) -> str:
+    if value is None:
+        return "nothing"
+    if isinstance(value, bool):
+        return f"{value!r}".lower()
+    if isinstance(value, dict):
+        return "a mapping"
+    if isinstance(value, list):
+        return "a list"
+    return repr(value)
+
+
+def _require(src: SourceText, data: dict, path: KeyPath) -> Any:
+    key = path[-1]
+    if key not in data or data[key] is None:
+        raise src.error(path, "missing; this key is required")
+    return data[key]
+
+
+def _no_unknown_keys(src: SourceText, data: dict, path: KeyPath, known: tuple[str, ...]) -> None:
+    for key in data:
+        if key not in known:
+            close = difflib.get_close_matches(str(key), known, n=1, cutoff=0.6)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            raise src.error((*path, key), f"unknown key; {hint}expected one of {', '.join(known)}")
+
+
+def _positive_int(src: SourceText, path: KeyPath, value: Any) -> int:
+    if isinstance(value, bool) or not isinstance(value, int) or value < 1:
+        raise src.error(path, f"expected a whole number >= 1, got {_kind(value)}")
+    return value
+
+
+def _mapping(src: SourceText, path: KeyPath, value: Any) -> dict:
+    if not isinstance(value, dict):
+        raise src.error(path, f"expected a mapping, got {_kind(value)}")
+    return value
+
+
+def _seeds(src: SourceText, value: Any) -> tuple[int, ...]:
+    if isinstance(value, int) and not isinstance(value, bool):
+        if value < 1:
+            raise src.error(("seeds",), f"expected a count >= 1 or a list of seeds, got {value}")
+        return tuple(range(value))
+    if isinstance(value, list) and value:
+        for i, seed in enumerate(value):
+            if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+                raise src.error(("seeds", i), f"expected a whole number >= 0, got {_kind(seed)}")
+        if len(set(value)) != len(value):
+            dup = next(s for s in value if value.count(s) > 1)
+            raise src.error(("seeds",), f"expected distinct seeds, got {dup} more than once")
+        return tuple(value)
+    raise src.error(("seeds",), f"expected a count >= 1 or a non-empty list of seeds, got {_kind(value)}")
+
+
+def _evaluation(src: SourceText, value: Any, real_steps: int) -> Evaluation:
+    path: KeyPath = ("evaluation",)
+    data = _mapping(src, path, value if value is not None else {})
+    _no_unknown_keys(src, data, path, _EVAL_KEYS)
+    every = _positive_int(src, (*path, "every"), data.get("every", max(1, real_steps // 20)))
+    if every > real_steps:
+        raise src.error((*path, "every"), f"expected at most real_steps ({real_steps}), got {every}")
+    episodes = _positive_int(src, (*path, "episodes"), data.get("episodes", 10))
+    cap = data.get("step_cap")
+    step_cap = None if cap is None else _positive_int(src, (*path, "step_cap"), cap)
+    window = _positive_int(src, (*path, "training_window"), data.get("training_window", 10))
+    return Evaluation(every, episodes, step_cap, window)
+
+
+def _environments(src: SourceText, value: Any, evaluation: Evaluation) -> tuple[EnvironmentDecl, ...]:
+    if not isinstance(value, list) or not value:
+        raise src.error(("environments",), f"expected a non-empty list of environments, got {_kind(value)}")
+    out: list[EnvironmentDecl] = []
+    for i, item in enumerate(value):
+        decl = _environment(src, ("environments", i), item, evaluation)
+        if any(e.label == decl.label for e in out):
+            raise src.error(("environments", i, "label"), f"expected a unique label, {decl.label!r} is used twice")
+        out.append(decl)
+    return tuple(out)
+
+
+def _environment(src: SourceText, path: KeyPath, value: Any, evaluation: Evaluation) -> EnvironmentDecl:
+    data = _mapping(src, path, value)
+    _no_unknown_keys(src, data, path, _ENV_KEYS)
+    given = [s for s in SOURCES if s in data]
+    if len(given) != 1:
+        what = "none" if not given else " and ".join(given)
+        raise src.error(path, f"expected exactly one of {', '.join(SOURCES)}, got {what}")
+    source = given[0]
+    step_limit = data.get("step_limit")
+    if step_limit is not None:
+        step_limit = _positive_int(src, (*path, "step_limit"), step_limit)
+    options = data.get("options")
+    if options is not None:
+        _mapping(src, (*path, "options"), options)
+        if source == "grid":
+            raise src.error((*path, "options"), "expected no options beside a grid; put settings under grid")
+    threshold: float | None = None
+    if source == "gym":
+        env_id = data["gym"]
+        if not isinstance(env_id, str):
+            raise src.error((*path, "gym"), f"expected a gymnasium id such as 'FrozenLake-v1', got {_kind(env_id)}")
+        try:
+            registered = gym_spec(env_id)
+        except UnknownKindError as err:
+            raise src.error((*path, "gym"), str(err)) from None
+        threshold = gym_reward_threshold(env_id)
+        spec: dict[str, Any] = {"source": "gym", "id": env_id, "options": dict(options or {})}
+        default_label = env_id
+        time_limit = step_limit or registered.max_episode_steps
+    elif source == "grid":
+        spec = {"source": "grid", **_grid(src, (*path, "grid"), data["grid"])}
+        default_label = f"grid-{path[-1]}"
+        time_limit = step_limit
+    else:
+        entry = data["entry"]
+        if not isinstance(entry, str) or ":" not in entry:
+            raise src.error((*path, "entry"), f"expected 'package.module:Class', got {_kind(entry)}")
+        spec = {"source": "entry", "entry": entry, "options": dict(options or {})}
+        default_label = entry.rpartition(":")[2]
+        time_limit = step_limit
+    spec["step_limit"] = step_limit
+    label = data.get("label", default_label)
+    if not isinstance(label, str) or not label.strip():
+        raise src.error((*path, "label"), f"expected a non-empty text label, got {_kind(label)}")
+    if "threshold" in data:
+        raw = data["threshold"]
+        if raw is not None and (isinstance(raw, bool) or not isinstance(raw, (int, float))):
+            raise src.error((*path, "threshold"), f"expected a number (a return to reach), got {_kind(raw)}")
+        threshold = None if raw is None else float(raw)
+    _check_buildable(src, path, source, spec)
+    step_cap = evaluation.step_cap or time_limit or _DEFAULT_STEP_CAP
+    return EnvironmentDecl(label=label, spec=spec, threshold=threshold, step_cap=int(step_cap))
+
+
+def _grid(src: SourceText, path: KeyPath, value: Any) -> dict[str, Any]:
+    data = _mapping(src, path, value)
+    _no_unknown_keys(src, data, path, _GRID_KEYS)
+    text = _require(src, data, (*path, "map"))
+    if not isinstance(text, str):
+        raise src.error((*path, "map"), f"expected the map as text (use '|' for a block), got {_kind(text)}")
+    try:
+        parse_grid_map(text)
+    except GridMapError as err:
+        line = src.line((*path, "map"))
+        offset = 1 + err.row if err.row is not None else 0
+        raise ConfigError(f"{src.file}:{line + offset}: {format_path((*path, 'map'))}: {err}") from None
+    resolved: dict[str, Any] = {"map": "\n".join(r.strip() for r in text.strip("\n").splitlines() if r.strip())}
+    for param in _GRID_SCHEMA:
+        raw = data.get(param.name, param.default)
+        try:
+            resolved[param.name] = check_value(param, raw)
+        except ValueError as err:
+            raise src.error((*path, param.name), str(err)) from None
+    return resolved
+
+
+def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str, Any]) -> None:
+    try:
+        env = build_env(spec)
+    except (EnvironmentSourceError, UnknownKindError) as err:
+        raise src.error((*path, source), str(err)) from None
+    except Exception as err:  # user code or gymnasium may raise anything on bad options
+        raise src.error((*path, source), f"could not build the environment: {type(err).__name__}: {err}") from None
+    try:
+        env_sizes(env)
+    except EnvironmentSourceError as err:
+        raise src.error((*path, source), str(err)) from None
+    finally:
+        env.close()
+
+
+def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
+    if not isinstance(value, list) or not value:
+        raise src.error(("agents",), f"expected a non-empty list of agents, got {_kind(value)}")
+    out: list[AgentVariant] = []
+    entry_labels: set[str] = set()
+    for i, item in enumerate(value):
+        path: KeyPath = ("agents", i)
+        variants = _agent(src, path, item)
+        if variants[0].entry_label in entry_labels:
+            raise src.error((*path, "label"), f"expected a unique label, {variants[0].entry_label!r} is used twice")
+        entry_labels.add(variants[0].entry_label)
+        for variant in variants:
+            twin = next((v for v in out if v.kind == variant.kind and v.params == variant.params), None)
+            if twin is not None:
+                raise src.error(path, f"expected distinct agents, this one repeats {twin.label!r} exactly")
+            out.append(variant)
+    return tuple(out)
+
+
+def _agent(src: SourceText, path: KeyPath, value: Any) -> list[AgentVariant]:
+    data = _mapping(src, path, value)
+    _no_unknown_keys(src, data, path, _AGENT_KEYS)
+    kind = _require(src, data, (*path, "kind"))
+    if not isinstance(kind, str):
+        raise src.error((*path, "kind"), f"expected an agent kind such as 'dyna_q', got {_kind(kind)}")
+    try:
+        cls = agent_class(kind)
+    except (UnknownKindError, TypeError) as err:
+        raise src.error((*path, "kind"), str(err)) from None
+    params = data.get("params") or {}
+    _mapping(src, (*path, "params"), params)
+    schema = {p.name: p for p in cls.schema}
+    fixed: dict[str, Any] = {}
+    grids: dict[str, list[Any]] = {}
+    for name, raw in params.items():
+        ppath = (*path, "params", name)
+        if name not in schema:
+            close = difflib.get_close_matches(str(name), list(schema), n=1, cutoff=0.6)
+            hint = f"did you mean {close[0]!r}? " if close else ""
+            known = ", ".join(schema) or "none"
+            raise src.error(ppath, f"unknown parameter of {kind!r}; {hint}expected one of {known}")
+        if isinstance(raw, list):
+            if not raw:
+                raise src.error(ppath, "expected a value or a non-empty list of values to try, got an empty list")
+            checked = []
+            for j, item in enumerate(raw):
+                try:
+                    checked.append(check_value(schema[name], item))
+                except ValueError as err:
+                    raise src.error((*ppath, j), str(err)) from None
+            if len(set(map(repr, checked))) != len(checked):
+                raise src.error(ppath, "expected distinct values to try, got a repeated value")
+            grids[name] = checked
+        else:
+            try:
+                fixed[name] = check_value(schema[name], raw)
+            except ValueError as err:
+                raise src.error(ppath, str(err)) from None
+    label = data.get("label", kind)
+    if not isinstance(label, str) or not label.strip():
+        raise src.error((*path, "label"), f"expected a non-empty text label, got {_kind(label)}")
+    variants = []
+    for combo in itertools.product(*grids.values()) if grids else [()]:
+        varied = dict(zip(grids, combo, strict=True))
+        resolved = cls(**fixed, **varied).get_params()
+        suffix = ", ".join(f"{k}={v}" for k, v in varied.items())
+        variant_label = f"{label} ({suffix})" if suffix else label
+        variants.append(AgentVariant(variant_label, label, kind, resolved, varied))
+    return variants
+
+
+def _baseline(src: SourceText, value: Any, agents: tuple[AgentVariant, ...]) -> str | None:
+    if value is None:
+        return None
+    labels = [a.label for a in agents]
+    if isinstance(value, str):
+        if value in labels:
+            return value
+        matches = [a.label for a in agents if a.entry_label == value]
+        if len(matches) == 1:
+            return matches[0]
+        if len(matches) > 1:
+            raise src.error(("baseline",), f"expected one agent variant, {value!r} has {len(matches)}: "
+                            + ", ".join(repr(m) for m in matches))
+    close = difflib.get_close_matches(str(value), labels, n=1, cutoff=0.5)
+    hint = f"did you mean {close[0]!r}? " if close else ""
+    raise src.error(("baseline",), f"{hint}expected the label of an agent variant, got {_kind(value)}")

@@ -1,0 +1,23 @@
+"""Exceptions raised by stepmeter; the command line turns each into one clear line."""
+
+__all__ = ["ConfigError", "EnvironmentSourceError", "StoreError", "StudyInterrupted", "UnknownKindError"]
+
+
+class ConfigError(ValueError):
+    """A study file is malformed; the message names file, line, key path and what was expected."""
+
+
+class UnknownKindError(LookupError):
+    """A registry has no entry of that name; the message suggests the closest names."""
+
+
+class EnvironmentSourceError(ValueError):
+    """An environment cannot be built or is not usable by the tabular agents."""
+
+
+class StoreError(RuntimeError):
+    """A results folder is missing, unreadable or not a stepmeter store."""
+
+
+class StudyInterrupted(KeyboardInterrupt):
+    """The user stopped a run; finished trials are kept."""

@@ -1,0 +1,118 @@
+"""One trial: one environment, one agent, one seed, run for a budget of real environment steps.
+
+Evaluation runs greedy episodes on a separate environment instance with its own stream; those steps never
+count as samples. A metric row is written at step 0 and then every `every` real steps.
+"""
+
+from __future__ import annotations
+
+import time
+from collections import deque
+from dataclasses import dataclass
+from typing import Any
+
+import gymnasium as gym
+import numpy as np
+
+from runner.agents import COUNTER_NAMES, TabularAgent, make_agent
+from runner.envs.sources import build_env, env_sizes
+from runner.seeding import trial_streams
+
+__all__ = ["METRIC_COLUMNS", "TrialResult", "evaluate_greedy", "run_trial"]
+
+METRIC_COLUMNS = (
+    "real_steps",
+    "episodes",
+    "eval_return",
+    "train_return",
+    *COUNTER_NAMES,
+    "wall_seconds",
+)
+"""Columns of a metric row, in order; `wall_seconds` is the only timing column."""
+
+
+@dataclass
+class TrialResult:
+    """Metric rows (one array per column, one entry per evaluation point) and the training episodes."""
+
+    rows: dict[str, np.ndarray]
+    episode_returns: np.ndarray
+    episode_lengths: np.ndarray
+    trial_path: str
+
+
+def evaluate_greedy(
+    agent: TabularAgent, env: gym.Env, episodes: int, step_cap: int, rng: np.random.Generator
+) -> float:
+    """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps."""
+    total = 0.0
+    for _ in range(episodes):
+        state, _ = env.reset()
+        for _ in range(step_cap):
+            state, reward, terminated, truncated, _ = env.step(agent.greedy(int(state), rng))
+            total += float(reward)
+            if terminated or truncated:
+                break
+    return total / episodes
+
+
+def run_trial(spec: dict[str, Any]) -> TrialResult:
+    """Run one trial spec (see `runner.plan`) through gymnasium, step by step."""
+    streams = trial_streams(spec["seed"])
+    ev = spec["evaluation"]
+    budget = int(spec["real_steps"])
+    env = build_env(spec["env"])
+    eval_env = build_env(spec["env"])
+    try:
+        n_states, n_actions = env_sizes(env)
+        agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
+        agent.setup(n_states, n_actions, streams.agent)
+        eval_env.reset(seed=streams.eval_env_seed)
+        n_points = budget // ev["every"] + 1
+        rows = {name: np.zeros(n_points, dtype=np.float64) for name in METRIC_COLUMNS}
+        returns: list[float] = []
+        lengths: list[int] = []
+        recent: deque[float] = deque(maxlen=ev["training_window"])
+        start = time.perf_counter()
+
+        def record(point: int, steps: int) -> None:
+            rows["real_steps"][point] = steps
+            rows["episodes"][point] = len(returns)
+            rows["eval_return"][point] = evaluate_greedy(
+                agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation
+            )
+            rows["train_return"][point] = np.mean(recent) if recent else np.nan
+            for name, value in zip(COUNTER_NAMES, agent.counters_, strict=True):
+                rows[name][point] = value
+            rows["wall_seconds"][point] = time.perf_counter() - start
+
+        record(0, 0)
+        state, _ = env.reset(seed=streams.env_seed)
+        state = int(state)
+        episode_return, episode_length, point = 0.0, 0, 1
+        for step in range(1, budget + 1):
+            action = agent.act(state)
+            next_state, reward, terminated, truncated, _ = env.step(action)
+            next_state = int(next_state)
+            agent.observe(state, action, float(reward), next_state, bool(terminated))
+            episode_return += float(reward)
+            episode_length += 1
+            state = next_state
+            if terminated or truncated:
+                returns.append(episode_return)
+                lengths.append(episode_length)
+                recent.append(episode_return)
+                episode_return, episode_length = 0.0, 0
+                state = int(env.reset()[0])
+            if step % ev["every"] == 0:
+                record(point, step)
+                point += 1
+    finally:
+        env.close()
+        eval_env.close()
+    return TrialResult(
+        rows=rows,
+        episode_returns=np.asarray(returns, dtype=np.float64),
+        episode_lengths=np.asarray(lengths, dtype=np.int64),
+        trial_path="gymnasium",
+    )
