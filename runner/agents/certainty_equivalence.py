@@ -61,7 +61,7 @@ class CertaintyEquivalence(TabularAgent):
 
     kind = "certainty_equivalence"
     summary = "count-based transition and mean-reward model, value iteration re-planned every k real steps"
-    source = "Kumar & Varaiya (1986); Sutton & Barto (2018), section 8.1"
+    source = "Sutton & Barto (2018), sections 6.3 (certainty-equivalence estimate) and 8.1"
     schema = (
         GAMMA,
         EPSILON,

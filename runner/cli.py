@@ -1,0 +1,139 @@
+"""The `stepmeter` command: run, check, report and list."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections import Counter
+from pathlib import Path
+
+from runner import __version__
+from runner.errors import ConfigError, EnvironmentSourceError, StoreError, UnknownKindError
+
+__all__ = ["main"]
+
+_USER_ERRORS = (ConfigError, EnvironmentSourceError, StoreError, UnknownKindError)
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="stepmeter",
+        description="How many real environment steps does learning a model and planning with it save?",
+    )
+    parser.add_argument("--version", action="version", version=f"stepmeter {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    run = sub.add_parser("run", help="run a study's trials (skipping stored ones), then write its report")
+    run.add_argument("study", help="the study YAML file")
+    run.add_argument("--jobs", type=int, default=None, help="worker processes (default: all cores)")
+    run.add_argument("--results", default="results", help="folder that holds study results (default: results)")
+    run.add_argument("--no-report", action="store_true", help="do not write the report at the end")
+
+    check = sub.add_parser("check", help="validate a study and print how many trials it declares")
+    check.add_argument("study", help="the study YAML file")
+
+    report = sub.add_parser("report", help="write figures and tables of a stored study")
+    report.add_argument("folder", help="the study's results folder, e.g. results/warehouse-spills")
+    report.add_argument("--out", default=None, help="where to write (default: FOLDER/report)")
+
+    listing = sub.add_parser("list", help="list agent kinds with their parameters, and environment sources")
+    listing.add_argument("what", nargs="?", choices=("agents", "environments"), default=None)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point; user errors print one line and exit 2, never a traceback."""
+    args = _parser().parse_args(argv)
+    try:
+        if args.command == "run":
+            return _run(args)
+        if args.command == "check":
+            return _check(args)
+        if args.command == "report":
+            return _report(Path(args.folder), args.out)
+        return _list(args.what)
+    except _USER_ERRORS as err:
+        print(f"stepmeter: error: {err}", file=sys.stderr)
+        return 2
+    except BrokenPipeError:
+        return 1
+
+
+def _run(args: argparse.Namespace) -> int:
+    from runner.run import run_study
+
+    if args.jobs is not None and args.jobs < 1:
+        print(f"stepmeter: error: --jobs: expected a whole number >= 1, got {args.jobs}", file=sys.stderr)
+        return 2
+    summary = run_study(args.study, results_root=args.results, jobs=args.jobs, command=" ".join(sys.argv))
+    if summary.interrupted:
+        print(
+            f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "
+            "run the same command again to finish the rest",
+            file=sys.stderr,
+        )
+        return 130
+    for line in summary.failed:
+        print(f"failed: {line}", file=sys.stderr)
+    if not args.no_report and summary.planned > len(summary.failed):
+        _report(summary.folder, None)
+    if summary.failed:
+        print(f"{len(summary.failed)} trials failed; their errors are stored in {summary.folder}", file=sys.stderr)
+        return 1
+    return 0
+
+
+def _check(args: argparse.Namespace) -> int:
+    from runner.config import load_study
+    from runner.plan import plan_trials
+
+    study = load_study(args.study)
+    trials = plan_trials(study)
+    counts = Counter((t.env_label, t.agent_label) for t in trials)
+    print(
+        f"{study.file}: study {study.name!r} is valid: {len(study.environments)} environments x "
+        f"{len(study.agents)} agent variants x {len(study.seeds)} seeds = {len(trials)} trials of "
+        f"{study.real_steps} real steps"
+    )
+    width = max(len(a.label) for a in study.agents)
+    for env in study.environments:
+        threshold = "none" if env.threshold is None else f"{env.threshold:g}"
+        print(f"  {env.label}  (threshold {threshold}; evaluation episodes cut at {env.step_cap} steps)")
+        for agent in study.agents:
+            print(f"    {agent.label:<{width}}  {counts[(env.label, agent.label)]} trials")
+    print(f"baseline: {study.baseline or 'none'}")
+    return 0
+
+
+def _report(folder: Path, out: str | None) -> int:
+    from runner.study_report import report_study
+
+    output, note = report_study(folder, out)
+    print(output.terminal_text)
+    print(note)
+    where = output.files[0].parent if output.files else folder
+    print(f"report written to {where}")
+    return 0
+
+
+def _list(what: str | None) -> int:
+    from runner.agents import AGENTS, agent_class
+    from runner.envs.grid import CELL_MEANINGS
+    from runner.envs.sources import SOURCES
+
+    if what in (None, "agents"):
+        print("agent kinds (use as `kind:`; parameters go under `params:`; a list of values tries each):")
+        for kind in AGENTS.names():
+            cls = agent_class(kind)
+            print(f"\n  {kind}: {cls.summary}")
+            print(f"    source: {cls.source}")
+            for p in cls.schema:
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+    if what in (None, "environments"):
+        print("\nenvironment sources (one per environment entry):")
+        for name, meaning in SOURCES.items():
+            print(f"  {name:<6} {meaning}")
+        print("\ngrid map cells:")
+        for cell, meaning in CELL_MEANINGS.items():
+            print(f"  {cell}  {meaning}")
+    return 0

@@ -1,0 +1,101 @@
+"""`stepmeter run`: validate, plan, skip what is stored, run the rest in parallel, store, report."""
+
+from __future__ import annotations
+
+import os
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TextIO
+
+from runner.config import Study, load_study
+from runner.plan import PlannedTrial, plan_trials
+from runner.progress import Progress
+from runner.provenance import platform_text, versions
+from runner.schedule import TrialOutcome, run_parallel, warm_up
+from runner.store import Store, study_dir
+
+__all__ = ["RunSummary", "run_study", "study_facts"]
+
+
+@dataclass
+class RunSummary:
+    """What one invocation did."""
+
+    folder: Path
+    planned: int
+    already_stored: int
+    ran: int = 0
+    failed: list[str] = field(default_factory=list)
+    interrupted: bool = False
+
+
+def study_facts(study: Study) -> dict:
+    """The facts the report needs, stored with the study so a report never re-reads the YAML."""
+    return {
+        "name": study.name,
+        "description": study.description,
+        "real_steps": study.real_steps,
+        "baseline": study.baseline,
+        "thresholds": {e.label: e.threshold for e in study.environments},
+        "env_order": [e.label for e in study.environments],
+        "agent_order": [a.label for a in study.agents],
+    }
+
+
+def default_jobs() -> int:
+    """All cores this process may use."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:
+        return os.cpu_count() or 1
+
+
+def run_study(
+    path: str | Path, *, results_root: str | Path = "results", jobs: int | None = None,
+    command: str = "", stream: TextIO | None = None,
+) -> RunSummary:
+    """Run every declared trial that is not stored yet; finished trials are committed one by one."""
+    out = stream or sys.stdout
+    study = load_study(path)
+    trials = plan_trials(study)
+    folder = study_dir(results_root, study.name)
+    with Store(folder, create=True) as store:
+        store.declare(study_facts(study), trials)
+        stored = store.stored_ids()
+        todo = [t for t in trials if t.trial_id not in stored]
+        summary = RunSummary(folder, len(trials), len(trials) - len(todo))
+        n_jobs = max(1, min(jobs or default_jobs(), len(todo) or 1))
+        print(
+            f"study {study.name}: {len(trials)} trials declared, {summary.already_stored} already stored, "
+            f"{len(todo)} to run on {n_jobs} process{'es' if n_jobs > 1 else ''}",
+            file=out,
+        )
+        if not todo:
+            return summary
+        run_id = store.begin_run(
+            command=command or " ".join(sys.argv), study_file=str(Path(path).resolve()), study_text=study.text,
+            study_hash=study.text_hash, versions=versions(), platform=platform_text(), jobs=n_jobs,
+        )
+        warm_up({t.spec["agent"]["kind"] for t in todo})
+        progress = Progress(len(todo))
+
+        def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
+            if outcome.rows is None:
+                store.write_failure(trial.trial_id, run_id, outcome.error_type, outcome.message, outcome.traceback)
+                summary.failed.append(f"{trial.env_label} / {trial.agent_label} / seed {trial.seed}: "
+                                      f"{outcome.error_type}: {outcome.message}")
+            else:
+                store.write_trial(trial, run_id, outcome.rows, outcome.trial_path)
+                summary.ran += 1
+            progress.advance(failed=outcome.rows is None)
+
+        try:
+            run_parallel(todo, n_jobs, keep)
+        except KeyboardInterrupt:
+            summary.interrupted = True
+        finally:
+            progress.close()
+            outcome = "interrupted" if summary.interrupted else ("failures" if summary.failed else "complete")
+            store.end_run(run_id, outcome)
+    return summary
