@@ -377,8 +377,10 @@ def _baseline(src: SourceText, value: Any, agents: tuple[AgentVariant, ...]) -> 
         if len(matches) == 1:
             return matches[0]
         if len(matches) > 1:
-            raise src.error(("baseline",), f"expected one agent variant, {value!r} has {len(matches)}: "
-                            + ", ".join(repr(m) for m in matches))
+            raise src.error(
+                ("baseline",),
+                f"expected one agent variant, {value!r} has {len(matches)}: " + ", ".join(repr(m) for m in matches),
+            )
     close = difflib.get_close_matches(str(value), labels, n=1, cutoff=0.5)
     hint = f"did you mean {close[0]!r}? " if close else ""
     raise src.error(("baseline",), f"{hint}expected the label of an agent variant, got {_kind(value)}")

@@ -10,7 +10,7 @@ __all__ = ["Progress"]
 
 
 def _clock(seconds: float) -> str:
-    seconds = int(round(seconds))
+    seconds = round(seconds)
     hours, rest = divmod(seconds, 3600)
     minutes, secs = divmod(rest, 60)
     return f"{hours}:{minutes:02d}:{secs:02d}" if hours else f"{minutes}:{secs:02d}"
@@ -44,7 +44,7 @@ class Progress:
     def line(self) -> str:
         """The progress text, e.g. '[#####.....]  12/40 trials  elapsed 0:05  left ~0:12'."""
         share = self.done / self.total if self.total else 1.0
-        filled = int(round(share * self.width))
+        filled = round(share * self.width)
         elapsed = time.perf_counter() - self.start
         left = elapsed / self.done * (self.total - self.done) if self.done else 0.0
         failed = f"  {self.failed} failed" if self.failed else ""

@@ -52,8 +52,12 @@ def default_jobs() -> int:
 
 
 def run_study(
-    path: str | Path, *, results_root: str | Path = "results", jobs: int | None = None,
-    command: str = "", stream: TextIO | None = None,
+    path: str | Path,
+    *,
+    results_root: str | Path = "results",
+    jobs: int | None = None,
+    command: str = "",
+    stream: TextIO | None = None,
 ) -> RunSummary:
     """Run every declared trial that is not stored yet; finished trials are committed one by one."""
     out = stream or sys.stdout
@@ -74,8 +78,13 @@ def run_study(
         if not todo:
             return summary
         run_id = store.begin_run(
-            command=command or " ".join(sys.argv), study_file=str(Path(path).resolve()), study_text=study.text,
-            study_hash=study.text_hash, versions=versions(), platform=platform_text(), jobs=n_jobs,
+            command=command or " ".join(sys.argv),
+            study_file=str(Path(path).resolve()),
+            study_text=study.text,
+            study_hash=study.text_hash,
+            versions=versions(),
+            platform=platform_text(),
+            jobs=n_jobs,
         )
         warm_up({t.spec["agent"]["kind"] for t in todo})
         progress = Progress(len(todo))
@@ -83,8 +92,10 @@ def run_study(
         def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
             if outcome.rows is None:
                 store.write_failure(trial.trial_id, run_id, outcome.error_type, outcome.message, outcome.traceback)
-                summary.failed.append(f"{trial.env_label} / {trial.agent_label} / seed {trial.seed}: "
-                                      f"{outcome.error_type}: {outcome.message}")
+                summary.failed.append(
+                    f"{trial.env_label} / {trial.agent_label} / seed {trial.seed}: "
+                    f"{outcome.error_type}: {outcome.message}"
+                )
             else:
                 store.write_trial(trial, run_id, outcome.rows, outcome.trial_path)
                 summary.ran += 1

@@ -86,9 +86,7 @@ class Store:
             if create:
                 with self.conn:
                     self.conn.executescript(_SCHEMA)
-                    self.conn.execute(
-                        "INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),)
-                    )
+                    self.conn.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
             version = self.conn.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
         except sqlite3.DatabaseError as err:
             raise StoreError(f"{self.path}: not a readable stepmeter database ({err})") from None
@@ -105,15 +103,32 @@ class Store:
     def __exit__(self, *exc: object) -> None:
         self.close()
 
-    def begin_run(self, *, command: str, study_file: str, study_text: str, study_hash: str,
-                  versions: dict[str, str], platform: str, jobs: int) -> int:
+    def begin_run(
+        self,
+        *,
+        command: str,
+        study_file: str,
+        study_text: str,
+        study_hash: str,
+        versions: dict[str, str],
+        platform: str,
+        jobs: int,
+    ) -> int:
         """Record the provenance of this invocation and return its run id."""
         with self.conn:
             cur = self.conn.execute(
                 "INSERT INTO runs (started, command, study_file, study_text, study_hash, versions, platform, jobs)"
                 " VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
-                (_now(), command, study_file, study_text, study_hash, json.dumps(versions, sort_keys=True),
-                 platform, jobs),
+                (
+                    _now(),
+                    command,
+                    study_file,
+                    study_text,
+                    study_hash,
+                    json.dumps(versions, sort_keys=True),
+                    platform,
+                    jobs,
+                ),
             )
         return int(cur.lastrowid)
 
@@ -129,8 +144,18 @@ class Store:
             self.conn.execute("DELETE FROM declared")
             self.conn.executemany(
                 "INSERT INTO declared VALUES (?, ?, ?, ?, ?, ?, ?)",
-                [(i, t.trial_id, t.env_label, t.agent_label, t.spec["agent"]["kind"], t.seed,
-                  json.dumps(t.spec, sort_keys=True)) for i, t in enumerate(trials)],
+                [
+                    (
+                        i,
+                        t.trial_id,
+                        t.env_label,
+                        t.agent_label,
+                        t.spec["agent"]["kind"],
+                        t.seed,
+                        json.dumps(t.spec, sort_keys=True),
+                    )
+                    for i, t in enumerate(trials)
+                ],
             )
 
     def facts(self) -> dict[str, Any]:
@@ -158,9 +183,18 @@ class Store:
         with self.conn:
             self.conn.execute(
                 "INSERT INTO trials VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (trial.trial_id, json.dumps(trial.spec, sort_keys=True), trial.env_label, trial.agent_label,
-                 trial.spec["agent"]["kind"], trial.seed, run_id, trial_path, _now(),
-                 float(rows["wall_seconds"][-1])),
+                (
+                    trial.trial_id,
+                    json.dumps(trial.spec, sort_keys=True),
+                    trial.env_label,
+                    trial.agent_label,
+                    trial.spec["agent"]["kind"],
+                    trial.seed,
+                    run_id,
+                    trial_path,
+                    _now(),
+                    float(rows["wall_seconds"][-1]),
+                ),
             )
             self.conn.executemany(f"INSERT INTO metrics VALUES ({placeholders})", values)
 
@@ -168,8 +202,7 @@ class Store:
         """Record a failed trial; the study goes on."""
         with self.conn:
             self.conn.execute(
-                "INSERT INTO failures (trial_id, run_id, error_type, message, traceback, at)"
-                " VALUES (?, ?, ?, ?, ?, ?)",
+                "INSERT INTO failures (trial_id, run_id, error_type, message, traceback, at) VALUES (?, ?, ?, ?, ?, ?)",
                 (trial_id, run_id, error_type, message, traceback, _now()),
             )
 

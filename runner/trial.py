@@ -41,9 +41,7 @@ class TrialResult:
     trial_path: str
 
 
-def evaluate_greedy(
-    agent: TabularAgent, env: gym.Env, episodes: int, step_cap: int, rng: np.random.Generator
-) -> float:
+def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: int, rng: np.random.Generator) -> float:
     """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps."""
     total = 0.0
     for _ in range(episodes):

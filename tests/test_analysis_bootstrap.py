@@ -66,7 +66,9 @@ def test_two_dimensional_input_is_bootstrapped_column_by_column_with_shared_indi
     assert low.shape == (5,)
     assert high.shape == (5,)
     for column in range(data.shape[1]):
-        col_low, col_high = percentile_interval(data[:, column], n_resamples=3000, rng=np.random.default_rng(9))
+        col_low, col_high = percentile_interval(
+            data[:, column], n_resamples=3000, rng=np.random.default_rng(9)
+        )
         np.testing.assert_allclose(low[column], col_low, rtol=1e-12)
         np.testing.assert_allclose(high[column], col_high, rtol=1e-12)
 

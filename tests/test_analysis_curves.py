@@ -83,10 +83,12 @@ def test_trial_scores_one_row_per_trial_with_expected_values():
         assert row["planning_per_real"] == (5.0 if row["kind"] == "dyna_q" else 0.0)
 
 
-def test_trial_scores_planning_ratio_is_zero_without_real_updates():
+def test_trial_scores_planning_ratio_counts_per_real_step_not_per_update():
     frame = _frame()
     frame["real_updates"] = 0
-    assert (trial_scores(frame)["planning_per_real"] == 0.0).all()
+    scores = trial_scores(frame)
+    assert (scores.loc[scores["kind"] == "dyna_q", "planning_per_real"] == 5.0).all()
+    assert (scores.loc[scores["kind"] != "dyna_q", "planning_per_real"] == 0.0).all()
 
 
 def test_trial_scores_rank_the_faster_learner_higher():
@@ -139,9 +141,11 @@ def test_curve_bands_handle_a_trial_that_stopped_early():
     assert (chain_q.loc[:7, "n_seeds"] == 4).all()
     assert (chain_q.loc[8:, "n_seeds"] == 3).all()
     # reference: pandas groupby mean of eval_return per point over the trials present there
-    expected = unfinished[(unfinished["env"] == "chain") & (unfinished["agent"] == "q")].groupby("point")[
-        "eval_return"
-    ].mean()
+    expected = (
+        unfinished[(unfinished["env"] == "chain") & (unfinished["agent"] == "q")]
+        .groupby("point")["eval_return"]
+        .mean()
+    )
     np.testing.assert_allclose(chain_q["mean"].to_numpy(), expected.to_numpy(), rtol=1e-12)
     assert not chain_q[["mean", "low", "high"]].isna().any().any()
 

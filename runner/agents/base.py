@@ -60,8 +60,15 @@ class TabularAgent:
     def observe(self, state: int, action: int, reward: float, next_state: int, terminated: bool) -> None:
         """Learn from one real transition (and plan, for agents that plan)."""
         self.observe_kernel(
-            self.arrays_, self.hyper_, self.counters_, state, action, float(reward), next_state,
-            bool(terminated), self.rng_,
+            self.arrays_,
+            self.hyper_,
+            self.counters_,
+            state,
+            action,
+            float(reward),
+            next_state,
+            bool(terminated),
+            self.rng_,
         )
 
     def greedy(self, state: int, rng: np.random.Generator) -> int:

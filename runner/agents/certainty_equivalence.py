@@ -49,8 +49,17 @@ def certainty_equivalence_observe(arrays, hyper, counters, state, action, reward
     if since[0] >= hyper[_REPLAN]:
         since[0] = 0
         _, backups = sweep_until_converged(
-            arrays[_Q], arrays[_V], succ, arrays[_WEIGHT], arrays[_N_SUCC], arrays[_VISITS], arrays[_REWARD_SUM],
-            hyper[_GAMMA], hyper[_TOL], np.int64(hyper[_MAX_SWEEPS]), np.int64(hyper[_UNVISITED]),
+            arrays[_Q],
+            arrays[_V],
+            succ,
+            arrays[_WEIGHT],
+            arrays[_N_SUCC],
+            arrays[_VISITS],
+            arrays[_REWARD_SUM],
+            hyper[_GAMMA],
+            hyper[_TOL],
+            np.int64(hyper[_MAX_SWEEPS]),
+            np.int64(hyper[_UNVISITED]),
             hyper[_OPTIMISTIC],
         )
         counters[1] += backups
@@ -66,11 +75,17 @@ class CertaintyEquivalence(TabularAgent):
         GAMMA,
         EPSILON,
         Param("replan_every", "int", 1, "real steps between value-iteration runs (k)", low=1),
-        Param("tolerance", "float", 1e-4, "stop sweeping when no state value moves more than this",
-              low=0.0, low_open=True),
+        Param(
+            "tolerance", "float", 1e-4, "stop sweeping when no state value moves more than this", low=0.0, low_open=True
+        ),
         Param("max_sweeps", "int", 50, "cap on value-iteration sweeps per re-plan", low=1),
-        Param("unvisited", "choice", "optimistic", "value of never-tried (state, action) pairs",
-              choices=("optimistic", "self_loop")),
+        Param(
+            "unvisited",
+            "choice",
+            "optimistic",
+            "value of never-tried (state, action) pairs",
+            choices=("optimistic", "self_loop"),
+        ),
         Param("optimistic_value", "float", 1.0, "Q-value given to never-tried pairs when unvisited is optimistic"),
         Param("max_successors", "int", 32, "distinct next states remembered per (state, action)", low=1),
     )
@@ -93,8 +108,13 @@ class CertaintyEquivalence(TabularAgent):
     def make_hyper(self):
         p = self._params
         return [
-            p["gamma"], p["epsilon"], p["tolerance"], float(p["max_sweeps"]), float(p["replan_every"]),
-            float(_UNVISITED_CODES[p["unvisited"]]), p["optimistic_value"],
+            p["gamma"],
+            p["epsilon"],
+            p["tolerance"],
+            float(p["max_sweeps"]),
+            float(p["replan_every"]),
+            float(_UNVISITED_CODES[p["unvisited"]]),
+            p["optimistic_value"],
         ]
 
     def transition_estimate(self) -> np.ndarray:

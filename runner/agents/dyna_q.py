@@ -31,8 +31,14 @@ def dyna_q_plan(arrays, hyper, counters, n_updates, rng):
         s = pair // n_actions
         a = pair % n_actions
         q_learning_update(
-            q, s, a, arrays[_REWARD][s, a], arrays[_NEXT][s, a], arrays[_TERMINAL][s, a] != 0,
-            hyper[_ALPHA], hyper[_GAMMA],
+            q,
+            s,
+            a,
+            arrays[_REWARD][s, a],
+            arrays[_NEXT][s, a],
+            arrays[_TERMINAL][s, a] != 0,
+            hyper[_ALPHA],
+            hyper[_GAMMA],
         )
     counters[1] += n_updates
 

@@ -76,9 +76,10 @@ def mean_and_interval(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Sample mean along axis 0 with its percentile bootstrap interval, as (mean, low, high).
 
-    The bounds are widened by at most rounding error so that low <= mean <= high always holds.
+    Identical samples give exactly their common value for all three; otherwise the bounds are widened by
+    at most rounding error so that low <= mean <= high always holds.
     """
     data = _check_samples(samples)
-    mean = data.mean(axis=0)
+    mean = np.where(np.ptp(data, axis=0) == 0.0, data[0], data.mean(axis=0))
     low, high = percentile_interval(data, confidence=confidence, n_resamples=n_resamples, rng=rng)
     return np.asarray(mean), np.asarray(np.minimum(low, mean)), np.asarray(np.maximum(high, mean))

@@ -106,20 +106,20 @@ def trial_scores(frame: pd.DataFrame) -> pd.DataFrame:
     """One row per trial with its normalised AUC, final return, reached steps, planning ratio and wall time.
 
     `auc` is the time-averaged greedy evaluation return over the real steps taken (see `normalized_auc`);
-    `planning_per_real` is planning updates per real update at the last point, 0 when there were none.
+    `planning_per_real` is planning updates per real environment step at the last point (0 before any step).
     """
     records = []
     for keys, trial in frame.groupby(_TRIAL_KEYS, sort=True):
         ordered = trial.sort_values("point")
         last = ordered.iloc[-1]
-        real_updates = float(last["real_updates"])
+        steps = float(last["real_steps"])
         records.append(
             {
                 **dict(zip(_TRIAL_KEYS, keys, strict=True)),
                 "auc": normalized_auc(ordered["real_steps"].to_numpy(), ordered["eval_return"].to_numpy()),
                 "final_return": float(last["eval_return"]),
                 "real_steps": int(last["real_steps"]),
-                "planning_per_real": float(last["planning_updates"]) / real_updates if real_updates else 0.0,
+                "planning_per_real": float(last["planning_updates"]) / steps if steps else 0.0,
                 "wall_seconds": float(last["wall_seconds"]),
             }
         )

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import os
 import re
-import tempfile
+import threading
 from collections.abc import Sequence
 from pathlib import Path
 
@@ -38,14 +38,14 @@ def safe_name(label: str) -> str:
 
 def _save_atomic(figure: Figure, path: Path, file_format: str) -> None:
     """Save a figure under a temporary name in the target folder, then rename it into place."""
-    handle, temp_name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
     try:
-        with os.fdopen(handle, "wb") as stream:
+        with temp_path.open("wb") as stream:
             metadata = {"Date": None} if file_format == "svg" else None
             figure.savefig(stream, format=file_format, dpi=_DPI, metadata=metadata)
-        os.replace(temp_name, path)
+        os.replace(temp_path, path)
     except BaseException:
-        Path(temp_name).unlink(missing_ok=True)
+        temp_path.unlink(missing_ok=True)
         raise
 
 
@@ -56,9 +56,7 @@ def _draw(bands: pd.DataFrame, agents: list[str], threshold: float | None, title
     for index, agent in enumerate(agents):
         rows = bands[bands["agent"] == agent].sort_values("real_steps")
         colour = PALETTE[index % len(PALETTE)]
-        axes.fill_between(
-            rows["real_steps"], rows["low"], rows["high"], color=colour, alpha=0.18, linewidth=0
-        )
+        axes.fill_between(rows["real_steps"], rows["low"], rows["high"], color=colour, alpha=0.18, linewidth=0)
         axes.plot(
             rows["real_steps"],
             rows["mean"],

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import os
-import tempfile
+import threading
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -55,13 +55,13 @@ class ReportOutput:
 
 def _write_text_atomic(path: Path, text: str) -> Path:
     """Write text under a temporary name in the same folder, then rename, so readers never see half a file."""
-    handle, temp_name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
+    temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
     try:
-        with os.fdopen(handle, "w", encoding="utf-8", newline="") as stream:
+        with temp_path.open("w", encoding="utf-8", newline="") as stream:
             stream.write(text)
-        os.replace(temp_name, path)
+        os.replace(temp_path, path)
     except BaseException:
-        Path(temp_name).unlink(missing_ok=True)
+        temp_path.unlink(missing_ok=True)
         raise
     return path
 

@@ -99,22 +99,46 @@ def summary_table(
     return pd.DataFrame.from_records(rows, columns=SUMMARY_COLUMNS)
 
 
+def _decimals(value: float, significant: int) -> int:
+    """Decimal places that show `significant` digits of a value in fixed notation (0 for large values)."""
+    if not math.isfinite(value) or value == 0.0:
+        return significant - 1
+    return max(0, significant - 1 - math.floor(math.log10(abs(value))))
+
+
+def _fixed(value: float, decimals: int) -> str:
+    """Fixed-notation text for a value, "n/a" for a missing one."""
+    if pd.isna(value):
+        return "n/a"
+    return f"{float(value):.{decimals}f}"
+
+
 def format_number(value: float, significant: int = 3) -> str:
     """Format a number to about `significant` digits in fixed notation, never dropping integer digits."""
     if pd.isna(value):
         return "n/a"
-    number = float(value)
-    if not math.isfinite(number):
-        return str(number)
-    if number == 0.0:
-        return f"{0.0:.{significant - 1}f}"
-    magnitude = math.floor(math.log10(abs(number)))
-    return f"{number:.{max(0, significant - 1 - magnitude)}f}"
+    return _fixed(value, _decimals(float(value), significant))
 
 
 def format_interval(mean: float, low: float, high: float) -> str:
-    """Render a mean and its interval as "0.512 [0.47, 0.55]"."""
-    return f"{format_number(mean, 3)} [{format_number(low, 2)}, {format_number(high, 2)}]"
+    """Render a mean and its interval as "0.512 [0.47, 0.55]": 3 digits for the mean, 2 for both bounds.
+
+    Both bounds share one number of decimals so that, for example, 0.996 and 1.03 read "1.00, 1.03".
+    """
+    bounds = [float(bound) for bound in (low, high) if not pd.isna(bound)]
+    decimals = max((_decimals(bound, 2) for bound in bounds), default=1)
+    return f"{format_number(mean, 3)} [{_fixed(low, decimals)}, {_fixed(high, decimals)}]"
+
+
+def _format_column(values: pd.Series) -> list[str]:
+    """Text for one plain column: integers as is, floats with decimals shared across the column."""
+    if pd.api.types.is_integer_dtype(values):
+        return [str(int(value)) for value in values]
+    if not pd.api.types.is_numeric_dtype(values):
+        return [str(value) for value in values]
+    finite = [abs(float(value)) for value in values if not pd.isna(value) and math.isfinite(float(value))]
+    decimals = _decimals(max(finite, default=0.0), 3)
+    return [_fixed(value, decimals) for value in values]
 
 
 def _display_frame(table: pd.DataFrame) -> tuple[list[str], list[list[str]], list[bool]]:
@@ -131,23 +155,14 @@ def _display_frame(table: pd.DataFrame) -> tuple[list[str], list[list[str]], lis
             columns.append(
                 [
                     format_interval(m, lo, hi)
-                    for m, lo, hi in zip(
-                        table[name], table[f"{prefix}_low"], table[f"{prefix}_high"], strict=True
-                    )
+                    for m, lo, hi in zip(table[name], table[f"{prefix}_low"], table[f"{prefix}_high"], strict=True)
                 ]
             )
             numeric.append(True)
             continue
-        values = table[name]
-        is_number = pd.api.types.is_numeric_dtype(values)
         headers.append(_PLAIN_HEADERS.get(str(name), str(name)))
-        if pd.api.types.is_integer_dtype(values):
-            columns.append([str(int(v)) for v in values])
-        elif is_number:
-            columns.append([format_number(v) for v in values])
-        else:
-            columns.append([str(v) for v in values])
-        numeric.append(is_number)
+        columns.append(_format_column(table[name]))
+        numeric.append(pd.api.types.is_numeric_dtype(table[name]))
     rows = [list(row) for row in zip(*columns, strict=True)] if columns else []
     return headers, rows, numeric
 

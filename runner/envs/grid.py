@@ -8,6 +8,7 @@ when `hazard_ends`). Actions: 0 north, 1 east, 2 south, 3 west. Bumping into a w
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import ClassVar
 
 import gymnasium as gym
 import numpy as np
@@ -111,7 +112,7 @@ def transition_table(spec: GridSpec) -> dict[int, dict[int, list[tuple[float, in
 class GridWorld(gym.Env):
     """A grid map as a gymnasium environment; `P` and `initial_state_distrib` expose its table."""
 
-    metadata = {"render_modes": ["ansi"]}
+    metadata: ClassVar[dict] = {"render_modes": ["ansi"]}
 
     def __init__(
         self,
@@ -152,7 +153,7 @@ class GridWorld(gym.Env):
         return nxt, reward, terminated, False, {"prob": prob}
 
     def render(self) -> str:
-        n_rows, n_cols = self.spec_.shape
+        _n_rows, n_cols = self.spec_.shape
         cells = ["".join(row) for row in self.spec_.rows]
         r, c = divmod(self.s, n_cols)
         line = cells[r]

@@ -73,9 +73,7 @@ def env_sizes(env: gym.Env) -> tuple[int, int]:
     obs, act = env.observation_space, env.action_space
     for name, space in (("observation", obs), ("action", act)):
         if not isinstance(space, gym.spaces.Discrete):
-            raise EnvironmentSourceError(
-                f"the tabular agents need a Discrete {name} space, got {type(space).__name__}"
-            )
+            raise EnvironmentSourceError(f"the tabular agents need a Discrete {name} space, got {type(space).__name__}")
         if int(space.start) != 0:
             raise EnvironmentSourceError(f"the {name} space must start at 0, got start={int(space.start)}")
     return int(obs.n), int(act.n)

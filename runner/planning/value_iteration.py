@@ -33,10 +33,7 @@ def sweep_until_converged(
             for a in range(n_actions):
                 total = visits[s, a]
                 if total == 0.0:
-                    if unvisited == UNVISITED_OPTIMISTIC:
-                        value = optimistic
-                    else:
-                        value = gamma * v[s]
+                    value = optimistic if unvisited == UNVISITED_OPTIMISTIC else gamma * v[s]
                 else:
                     acc = 0.0
                     for j in range(n_succ[s, a]):
@@ -91,7 +88,17 @@ def solve_dense_mdp(
     q = np.zeros((n_states, n_actions))
     v = np.zeros(n_states + 1)
     sweeps, _ = sweep_until_converged(
-        q, v, succ_states, succ_weights, n_succ, visits, np.asarray(rewards, dtype=np.float64),
-        float(gamma), float(tol), int(max_sweeps), UNVISITED_OPTIMISTIC, 0.0,
+        q,
+        v,
+        succ_states,
+        succ_weights,
+        n_succ,
+        visits,
+        np.asarray(rewards, dtype=np.float64),
+        float(gamma),
+        float(tol),
+        int(max_sweeps),
+        UNVISITED_OPTIMISTIC,
+        0.0,
     )
     return v[:n_states].copy(), q, int(sweeps)
