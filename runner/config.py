@@ -126,6 +126,8 @@ def load_study(path: str | Path) -> Study:
 def _kind(value: Any) -> str:
     if value is None:
         return "nothing"
+    if value == []:
+        return "an empty list"
     if isinstance(value, bool):
         return f"{value!r}".lower()
     if isinstance(value, dict):
@@ -265,12 +267,11 @@ def _grid(src: SourceText, path: KeyPath, value: Any) -> dict[str, Any]:
     if not isinstance(text, str):
         raise src.error((*path, "map"), f"expected the map as text (use '|' for a block), got {_kind(text)}")
     try:
-        parse_grid_map(text)
+        rows = parse_grid_map(text)
     except GridMapError as err:
-        line = src.line((*path, "map"))
-        offset = 1 + err.row if err.row is not None else 0
-        raise ConfigError(f"{src.file}:{line + offset}: {format_path((*path, 'map'))}: {err}") from None
-    resolved: dict[str, Any] = {"map": "\n".join(r.strip() for r in text.strip("\n").splitlines() if r.strip())}
+        line = src.line((*path, "map")) if err.row is None else src.content_line((*path, "map"), err.row)
+        raise ConfigError(f"{src.file}:{line}: {format_path((*path, 'map'))}: {err}") from None
+    resolved: dict[str, Any] = {"map": "\n".join(rows)}
     for param in _GRID_SCHEMA:
         raw = data.get(param.name, param.default)
         try:
@@ -281,16 +282,18 @@ def _grid(src: SourceText, path: KeyPath, value: Any) -> dict[str, Any]:
 
 
 def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str, Any]) -> None:
+    """Build the environment once; a failure points at its options when it has any."""
+    at = (*path, "options") if spec.get("options") else (*path, source)
     try:
         env = build_env(spec)
     except (EnvironmentSourceError, UnknownKindError) as err:
-        raise src.error((*path, source), str(err)) from None
+        raise src.error(at, str(err)) from None
     except Exception as err:  # user code or gymnasium may raise anything on bad options
-        raise src.error((*path, source), f"could not build the environment: {type(err).__name__}: {err}") from None
+        raise src.error(at, f"could not build the environment: {type(err).__name__}: {err}") from None
     try:
         env_sizes(env)
     except EnvironmentSourceError as err:
-        raise src.error((*path, source), str(err)) from None
+        raise src.error(at, str(err)) from None
     finally:
         env.close()
 
@@ -324,8 +327,8 @@ def _agent(src: SourceText, path: KeyPath, value: Any) -> list[AgentVariant]:
         cls = agent_class(kind)
     except (UnknownKindError, TypeError) as err:
         raise src.error((*path, "kind"), str(err)) from None
-    params = data.get("params") or {}
-    _mapping(src, (*path, "params"), params)
+    params = data.get("params")
+    params = {} if params is None else _mapping(src, (*path, "params"), params)
     schema = {p.name: p for p in cls.schema}
     fixed: dict[str, Any] = {}
     grids: dict[str, list[Any]] = {}

@@ -51,25 +51,28 @@ class GridSpec:
 
 
 def parse_grid_map(text: str) -> tuple[str, ...]:
-    """Split and check a map: rectangular, known cells, at least one start and one goal."""
-    rows = [line.strip() for line in text.strip("\n").splitlines()]
-    rows = [r for r in rows if r]
-    if not rows:
+    """Split and check a map: rectangular, known cells, at least one start and one goal.
+
+    Blank lines are ignored; a GridMapError's `row` is the index of the offending line in `text.splitlines()`.
+    """
+    numbered = [(i, line.strip()) for i, line in enumerate(text.splitlines()) if line.strip()]
+    if not numbered:
         raise GridMapError("the map is empty; expected rows of cells such as 'S..#G'")
-    width = len(rows[0])
-    for i, row in enumerate(rows):
+    width = len(numbered[0][1])
+    for k, (i, row) in enumerate(numbered):
         if len(row) != width:
-            raise GridMapError(f"map row {i + 1} has {len(row)} cells, expected {width} like row 1", row=i)
+            raise GridMapError(f"map row {k + 1} has {len(row)} cells, expected {width} like row 1", row=i)
         for ch in row:
             if ch not in CELL_MEANINGS:
                 known = " ".join(repr(c) for c in CELL_MEANINGS)
-                raise GridMapError(f"map row {i + 1} has unknown cell {ch!r}; expected one of {known}", row=i)
+                raise GridMapError(f"map row {k + 1} has unknown cell {ch!r}; expected one of {known}", row=i)
+    rows = tuple(row for _, row in numbered)
     joined = "".join(rows)
     if "S" not in joined:
         raise GridMapError("the map has no start cell 'S'")
     if "G" not in joined:
         raise GridMapError("the map has no goal cell 'G'")
-    return tuple(rows)
+    return rows
 
 
 def transition_table(spec: GridSpec) -> dict[int, dict[int, list[tuple[float, int, float, bool]]]]:
@@ -153,7 +156,7 @@ class GridWorld(gym.Env):
         return nxt, reward, terminated, False, {"prob": prob}
 
     def render(self) -> str:
-        _n_rows, n_cols = self.spec_.shape
+        n_cols = self.spec_.shape[1]
         cells = ["".join(row) for row in self.spec_.rows]
         r, c = divmod(self.s, n_cols)
         line = cells[r]

@@ -1,0 +1,243 @@
+"""Malformed studies are rejected with one line: `<file>:<line>: <key path>: <expected / got>`."""
+
+from dataclasses import dataclass
+from pathlib import Path
+
+import gymnasium
+import pytest
+
+from runner.config import load_study
+from runner.errors import ConfigError
+
+# A valid start of a study; cases about agents append an `agents:` section, which begins on line 6.
+_HEAD = """\
+study: broken
+seeds: 2
+real_steps: 1000
+environments:
+  - grid: {map: "S.G"}
+"""
+# The same start without environments, for cases about environments (`environments:` is line 4).
+_TOP = "study: broken\nseeds: 2\nreal_steps: 100\n"
+
+_EXAMPLE = """\
+study: smoke
+seeds: 2
+real_steps: 3000
+evaluation: {every: 500, episodes: 5}
+environments:
+  - label: maze
+    grid:
+      map: |
+        .......XG
+        ..#....#.
+        S.#..~.#.
+      slip: 0.2
+    step_limit: 200
+  - gym: FrozenLake-v1
+agents:
+  - {label: q, kind: q_learning}
+  - {label: dyna, kind: dyna_q, params: {planning_steps: [0, 5, 50]}}
+  - {label: ce, kind: certainty_equivalence}
+baseline: q
+"""
+
+
+@dataclass(frozen=True)
+class Case:
+    """A malformed study and where and how its error must point."""
+
+    id: str
+    text: str
+    line: int
+    path: str
+    fragment: str
+
+
+_CASES = [
+    # top level
+    Case("top-level-is-a-list", "- study: x\n", 1, "(top level)", "expected a mapping of study keys"),
+    Case("missing-study", "seeds: 2\nreal_steps: 100\n", 1, "study", "missing; this key is required"),
+    Case("study-name-with-slash", "study: team/maze\n", 1, "study", "got 'team/maze'"),
+    Case("unknown-top-key", "study: x\nseed: 3\n", 2, "seed", "did you mean 'seeds'?"),
+    Case("duplicate-key", "study: x\nseeds: 2\nreal_steps: 100\nseeds: 3\n", 4, "seeds", "key given twice"),
+    Case("non-text-key", "study: x\nseeds: 2\n1000: 3\n", 3, "1000", "unknown key"),
+    # seeds, budget and evaluation
+    Case("seeds-zero", "study: x\nseeds: 0\n", 2, "seeds", "expected a count >= 1"),
+    Case("seeds-duplicated", "study: x\nseeds: [1, 2, 1]\n", 2, "seeds", "got 1 more than once"),
+    Case("seeds-negative", "study: x\nseeds:\n  - 1\n  - -4\n", 4, "seeds[1]", "expected a whole number >= 0, got -4"),
+    Case("real-steps-text", "study: x\nseeds: 2\nreal_steps: lots\n", 3, "real_steps", "got 'lots'"),
+    Case(
+        "every-beyond-budget", _TOP + "evaluation:\n  every: 500\n",
+        5, "evaluation.every", "expected at most real_steps (100), got 500",
+    ),
+    Case(
+        "unknown-evaluation-key", _TOP + "evaluation:\n  every: 50\n  episode: 3\n",
+        6, "evaluation.episode", "did you mean 'episodes'?",
+    ),
+    # environments
+    Case("no-environments", _TOP + "environments: []\n", 4, "environments", "got an empty list"),
+    Case(
+        "gym-and-grid", _TOP + "environments:\n  - gym: FrozenLake-v1\n    grid: {map: S.G}\n",
+        5, "environments[0]", "got gym and grid",
+    ),
+    Case(
+        "gym-id-wrong-version", _TOP + "environments:\n  - gym: FrozenLake-v9\n",
+        5, "environments[0].gym", "did you mean 'FrozenLake-v1'",
+    ),
+    Case(
+        "gym-id-typo", _TOP + "environments:\n  - gym: FrozenLak-v1\n",
+        5, "environments[0].gym", "did you mean 'FrozenLake-v1'",
+    ),
+    Case(
+        "gym-options-rejected", _TOP + "environments:\n  - gym: FrozenLake-v1\n    options: {map_nam: 4x4}\n",
+        6, "environments[0].options", "map_nam",
+    ),
+    Case(
+        "gym-not-discrete", _TOP + "environments:\n  - gym: CartPole-v1\n",
+        5, "environments[0].gym", "Discrete observation space",
+    ),
+    Case(
+        "map-ragged-row",
+        _TOP + "environments:\n  - grid:\n      map: |\n        S...\n        .#.\n        ...G\n",
+        8, "environments[0].grid.map", "map row 2 has 3 cells, expected 4",
+    ),
+    Case(
+        "map-ragged-row-after-blank-line",
+        _TOP + "environments:\n  - grid:\n      map: |\n        S...\n\n        ....\n        ..G\n",
+        10, "environments[0].grid.map", "has 3 cells, expected 4",
+    ),
+    Case(
+        "map-ragged-inline",
+        _TOP + 'environments:\n  - grid: {map: "S..\\n.G"}\n',
+        5, "environments[0].grid.map", "map row 2 has 2 cells, expected 3",
+    ),
+    Case(
+        "map-unknown-cell",
+        _TOP + "environments:\n  - grid:\n      map: |\n        S..\n        .#.\n        .?G\n",
+        9, "environments[0].grid.map", "unknown cell '?'",
+    ),
+    Case(
+        "map-without-goal",
+        _TOP + "environments:\n  - grid:\n      map: |\n        S..\n        ...\n",
+        6, "environments[0].grid.map", "no goal cell 'G'",
+    ),
+    Case(
+        "slip-above-one", _TOP + "environments:\n  - grid:\n      map: S.G\n      slip: 1.5\n",
+        7, "environments[0].grid.slip", "expected a number in [0, 1], got 1.5",
+    ),
+    # agents
+    Case("agent-kind-typo", _HEAD + "agents:\n  - kind: dyna\n", 7, "agents[0].kind", "did you mean 'dyna_q'?"),
+    Case(
+        "alpha-out-of-range", _HEAD + "agents:\n  - kind: q_learning\n    params:\n      alpha: 1.5\n",
+        9, "agents[0].params.alpha", "expected a number in (0, 1], got 1.5",
+    ),
+    Case(
+        "unknown-parameter", _HEAD + "agents:\n  - kind: dyna_q\n    params: {planing_steps: 5}\n",
+        8, "agents[0].params.planing_steps", "did you mean 'planning_steps'?",
+    ),
+    Case(
+        "params-not-a-mapping", _HEAD + "agents:\n  - kind: q_learning\n    params: []\n",
+        8, "agents[0].params", "expected a mapping",
+    ),
+    Case(
+        "grid-value-invalid", _HEAD + "agents:\n  - kind: dyna_q\n    params:\n      planning_steps: [5, -1]\n",
+        9, "agents[0].params.planning_steps[1]", "got -1",
+    ),
+    Case(
+        "grid-empty", _HEAD + "agents:\n  - kind: dyna_q\n    params:\n      planning_steps: []\n",
+        9, "agents[0].params.planning_steps", "got an empty list",
+    ),
+    Case(
+        "duplicate-agent-label", _HEAD + "agents:\n  - {label: a, kind: q_learning}\n  - {label: a, kind: dyna_q}\n",
+        8, "agents[1].label", "'a' is used twice",
+    ),
+    Case(
+        "duplicate-param-key",
+        _HEAD + "agents:\n  - kind: q_learning\n    params:\n      alpha: 0.1\n      alpha: 0.2\n",
+        10, "agents[0].params.alpha", "key given twice",
+    ),
+    # baseline
+    Case(
+        "baseline-names-no-agent", _HEAD + "agents:\n  - {label: q, kind: q_learning}\nbaseline: qq\n",
+        8, "baseline", "did you mean 'q'?",
+    ),
+    Case(
+        "baseline-has-several-variants",
+        _HEAD + "agents:\n  - {label: d, kind: dyna_q, params: {planning_steps: [1, 2]}}\nbaseline: d\n",
+        8, "baseline", "'d' has 2",
+    ),
+]
+
+
+def _write(tmp_path: Path, text: str) -> Path:
+    path = tmp_path / "study.yaml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def _error(path: Path) -> str:
+    with pytest.raises(ConfigError) as info:
+        load_study(path)
+    return str(info.value)
+
+
+@pytest.mark.parametrize("case", _CASES, ids=lambda c: c.id)
+def test_malformed_study_points_at_file_line_and_key(tmp_path, case):
+    path = _write(tmp_path, case.text)
+    message = _error(path)
+    assert "\n" not in message
+    prefix = f"{path}:{case.line}: {case.path}: "
+    assert message.startswith(prefix), message
+    assert case.fragment in message[len(prefix):]
+
+
+def test_yaml_syntax_error_points_at_the_problem_line(tmp_path):
+    path = _write(tmp_path, "study: x\nseeds: [1, 2\nreal_steps: 3\n")
+    message = _error(path)
+    assert "\n" not in message
+    assert message.startswith(f"{path}:3: not valid YAML: ")
+
+
+def test_missing_study_file_is_named(tmp_path):
+    path = tmp_path / "nowhere.yaml"
+    message = _error(path)
+    assert message == f"{path}: no such study file"
+
+
+def test_valid_example_expands_the_agent_grid(tmp_path):
+    study = load_study(_write(tmp_path, _EXAMPLE))
+    assert [a.label for a in study.agents] == [
+        "q",
+        "dyna (planning_steps=0)",
+        "dyna (planning_steps=5)",
+        "dyna (planning_steps=50)",
+        "ce",
+    ]
+    dyna5 = study.agents[2]
+    assert (dyna5.kind, dyna5.entry_label, dyna5.varied) == ("dyna_q", "dyna", {"planning_steps": 5})
+    assert dyna5.params["planning_steps"] == 5
+    assert dyna5.params["alpha"] == 0.1  # defaults are filled in
+    assert study.baseline == "q"
+    assert (study.real_steps, study.evaluation.every, study.evaluation.episodes) == (3000, 500, 5)
+
+
+def test_valid_example_thresholds_and_step_caps(tmp_path):
+    study = load_study(_write(tmp_path, _EXAMPLE))
+    maze, lake = study.environments
+    assert (maze.label, lake.label) == ("maze", "FrozenLake-v1")
+    assert maze.threshold is None
+    assert lake.threshold == gymnasium.spec("FrozenLake-v1").reward_threshold
+    assert maze.step_cap == 200
+    assert lake.step_cap == gymnasium.spec("FrozenLake-v1").max_episode_steps
+    assert maze.spec["slip"] == 0.2
+
+
+@pytest.mark.parametrize(
+    ("seeds", "expected"),
+    [("2", (0, 1)), ("5", (0, 1, 2, 3, 4)), ("[7, 3]", (7, 3))],
+    ids=["count-2", "count-5", "explicit-list"],
+)
+def test_seeds_count_expands_to_range(tmp_path, seeds, expected):
+    text = _EXAMPLE.replace("seeds: 2\n", f"seeds: {seeds}\n")
+    assert load_study(_write(tmp_path, text)).seeds == expected
