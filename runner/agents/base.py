@@ -79,6 +79,13 @@ class TabularAgent:
         """Counters by name."""
         return {name: int(v) for name, v in zip(COUNTER_NAMES, self.counters_, strict=True)}
 
+    def counter_problems(self, real_steps: int) -> list[str]:
+        """How the counters break this kind's accounting after `real_steps` observed steps (empty: none).
+
+        Subclasses extend it with their own rules, e.g. planning updates = n x real updates for Dyna-Q.
+        """
+        return [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
+
     @staticmethod
     def act_kernel(arrays, hyper, state, rng):  # pragma: no cover - replaced by every kind
         raise NotImplementedError

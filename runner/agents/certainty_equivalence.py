@@ -133,5 +133,20 @@ class CertaintyEquivalence(TabularAgent):
                     out[s, a] /= visits[s, a]
         return out
 
+    def counter_problems(self, real_steps):
+        c = self.counters()
+        problems = super().counter_problems(real_steps)
+        if c["real_updates"] != 0:
+            problems.append(f"values are only planned, yet real_updates is {c['real_updates']}")
+        if c["model_updates"] != real_steps:
+            problems.append(f"model_updates {c['model_updates']} != real steps {real_steps}")
+        per_sweep = self.n_states_ * self.n_actions_
+        if c["planning_updates"] % per_sweep:
+            problems.append(f"planning_updates {c['planning_updates']} is not whole sweeps of {per_sweep} backups")
+        replans = real_steps // self._params["replan_every"]
+        if not replans <= c["planning_updates"] // per_sweep <= replans * self._params["max_sweeps"]:
+            problems.append(f"{c['planning_updates'] // per_sweep} sweeps for {replans} re-plans is outside the cap")
+        return problems
+
     act_kernel = staticmethod(certainty_equivalence_act)
     observe_kernel = staticmethod(certainty_equivalence_observe)

@@ -88,5 +88,15 @@ class DynaQ(TabularAgent):
         p = self._params
         return [p["alpha"], p["gamma"], p["epsilon"], float(p["planning_steps"])]
 
+    def counter_problems(self, real_steps):
+        c = self.counters()
+        n = self._params["planning_steps"]
+        problems = super().counter_problems(real_steps)
+        if c["real_updates"] != real_steps or c["model_updates"] != real_steps:
+            problems.append(f"real and model updates should both equal real steps {real_steps}: {c}")
+        if c["planning_updates"] != n * c["real_updates"]:
+            problems.append(f"planning_updates {c['planning_updates']} != n x real_updates = {n * c['real_updates']}")
+        return problems
+
     act_kernel = staticmethod(dyna_q_act)
     observe_kernel = staticmethod(dyna_q_observe)

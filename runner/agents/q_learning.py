@@ -40,5 +40,14 @@ class QLearning(TabularAgent):
         p = self._params
         return [p["alpha"], p["gamma"], p["epsilon"]]
 
+    def counter_problems(self, real_steps):
+        c = self.counters()
+        problems = super().counter_problems(real_steps)
+        if c["real_updates"] != real_steps:
+            problems.append(f"real_updates {c['real_updates']} != real steps {real_steps}")
+        if c["planning_updates"] or c["model_updates"]:
+            problems.append(f"a model-free agent counted planning or model updates: {c}")
+        return problems
+
     act_kernel = staticmethod(q_learning_act)
     observe_kernel = staticmethod(q_learning_observe)

@@ -1,0 +1,270 @@
+"""Contract checks that any agent kind or environment must pass; users can run them on their own additions.
+
+`agent_checks(kind)` and `environment_checks(spec)` list small named checks; `check_agent` and
+`check_environment` run them all and raise `ContractError` on the first breach.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Callable, Iterator
+from typing import Any
+
+import numpy as np
+
+from runner.agents import TabularAgent, agent_class
+from runner.envs.sources import build_env, env_sizes
+from runner.trial import METRIC_COLUMNS, run_trial
+
+__all__ = ["ContractError", "agent_checks", "check_agent", "check_environment", "environment_checks"]
+
+CORRIDOR = {
+    "source": "grid",
+    "map": "S...G",
+    "slip": 0.0,
+    "step_reward": 0.0,
+    "goal_reward": 1.0,
+    "hazard_penalty": -1.0,
+    "hazard_ends": True,
+    "step_limit": 50,
+}
+"""A trivial task: walk east to the goal. Any learner must end up preferring east everywhere."""
+
+SLIPPERY = {
+    "source": "grid",
+    "map": "S.~.\n.#~X\n...G",
+    "slip": 0.3,
+    "step_reward": -0.01,
+    "goal_reward": 1.0,
+    "hazard_penalty": -1.0,
+    "hazard_ends": True,
+    "step_limit": 30,
+}
+"""A small stochastic task with a hazard, for determinism and accounting checks."""
+
+_EAST = 1
+
+
+class ContractError(AssertionError):
+    """An agent kind or environment breaks the contract; the message says which rule and what was seen."""
+
+
+def _drive(agent: TabularAgent, env_spec: dict, steps: int, seed: int) -> list[int]:
+    """Set the agent up on the environment and learn for `steps` real steps; return the actions taken."""
+    env = build_env(env_spec)
+    n_states, n_actions = env_sizes(env)
+    agent.setup(n_states, n_actions, np.random.default_rng(seed))
+    state, _ = env.reset(seed=seed)
+    actions = []
+    for _ in range(steps):
+        action = agent.act(int(state))
+        actions.append(action)
+        nxt, reward, terminated, truncated, _ = env.step(action)
+        agent.observe(int(state), action, float(reward), int(nxt), bool(terminated))
+        state = env.reset()[0] if terminated or truncated else nxt
+    env.close()
+    return actions
+
+
+def _trial_spec(kind: str, params: dict, env_spec: dict, seed: int) -> dict[str, Any]:
+    return {
+        "format": 1,
+        "env": env_spec,
+        "agent": {"kind": kind, "params": params},
+        "seed": seed,
+        "real_steps": 600,
+        "evaluation": {"every": 200, "episodes": 3, "step_cap": 30, "training_window": 5},
+    }
+
+
+def _check_params_round_trip(cls: type[TabularAgent], params: dict) -> None:
+    agent = cls(**params)
+    got = agent.get_params()
+    if set(got) != {p.name for p in cls.schema}:
+        raise ContractError(f"get_params() keys {sorted(got)} differ from the schema's {[p.name for p in cls.schema]}")
+    if cls(**got).get_params() != got:
+        raise ContractError("an agent rebuilt from get_params() has different parameters")
+    try:
+        json.dumps(got)
+    except TypeError as err:
+        raise ContractError(f"parameters must be JSON values so trial specs can store them: {err}") from None
+
+
+def _check_same_seed_same_run(cls: type[TabularAgent], params: dict) -> None:
+    a, b = cls(**params), cls(**params)
+    if _drive(a, SLIPPERY, 400, seed=7) != _drive(b, SLIPPERY, 400, seed=7):
+        raise ContractError("two runs with the same seed chose different actions")
+    for x, y in zip(a.arrays_, b.arrays_, strict=True):
+        if not np.array_equal(x, y):
+            raise ContractError("two runs with the same seed learned different arrays")
+
+
+def _check_different_seeds_differ(cls: type[TabularAgent], params: dict) -> None:
+    if _drive(cls(**params), SLIPPERY, 400, seed=1) == _drive(cls(**params), SLIPPERY, 400, seed=2):
+        raise ContractError("runs with seeds 1 and 2 chose exactly the same 400 actions; is the stream used?")
+
+
+def _check_actions_valid(cls: type[TabularAgent], params: dict) -> None:
+    agent = cls(**params)
+    actions = _drive(agent, SLIPPERY, 300, seed=3)
+    rng = np.random.default_rng(0)
+    greedy = [agent.greedy(s, rng) for s in range(agent.n_states_)]
+    bad = [a for a in actions + greedy if not 0 <= a < agent.n_actions_]
+    if bad:
+        raise ContractError(f"actions outside 0..{agent.n_actions_ - 1}: {bad[:5]}")
+
+
+def _check_learning_changes_behaviour(cls: type[TabularAgent], params: dict) -> None:
+    agent = cls(**params)
+    _drive(agent, CORRIDOR, 3000, seed=5)
+    rng = np.random.default_rng(11)
+    for state in range(4):
+        chosen = {agent.greedy(state, rng) for _ in range(20)}
+        if chosen != {_EAST}:
+            raise ContractError(f"after 3000 steps in a corridor the greedy actions in cell {state} are {chosen}")
+
+
+def _check_params_unchanged(cls: type[TabularAgent], params: dict) -> None:
+    agent = cls(**params)
+    before = agent.get_params()
+    _drive(agent, SLIPPERY, 300, seed=4)
+    if agent.get_params() != before:
+        raise ContractError("learning changed the agent's parameters")
+
+
+def _check_counters_add_up(cls: type[TabularAgent], params: dict) -> None:
+    agent = cls(**params)
+    _drive(agent, SLIPPERY, 500, seed=6)
+    problems = agent.counter_problems(500)
+    if problems:
+        raise ContractError("counters do not add up: " + "; ".join(problems))
+
+
+def _check_trial_rows_reproducible(cls: type[TabularAgent], params: dict) -> None:
+    kind = cls.kind
+    first = run_trial(_trial_spec(kind, params, SLIPPERY, seed=9)).rows
+    again = run_trial(_trial_spec(kind, params, SLIPPERY, seed=9)).rows
+    other = run_trial(_trial_spec(kind, params, SLIPPERY, seed=10)).rows
+    columns = [c for c in METRIC_COLUMNS if c != "wall_seconds"]
+    for c in columns:
+        if not np.array_equal(first[c], again[c], equal_nan=True):
+            raise ContractError(f"the same trial spec gave different {c!r} rows")
+    if all(np.array_equal(first[c], other[c], equal_nan=True) for c in columns):
+        raise ContractError("trials with seeds 9 and 10 gave identical metric rows")
+
+
+_AGENT_CHECKS: tuple[Callable[[type[TabularAgent], dict], None], ...] = (
+    _check_params_round_trip,
+    _check_same_seed_same_run,
+    _check_different_seeds_differ,
+    _check_actions_valid,
+    _check_learning_changes_behaviour,
+    _check_params_unchanged,
+    _check_counters_add_up,
+    _check_trial_rows_reproducible,
+)
+
+
+def agent_checks(kind: str, params: dict | None = None) -> Iterator[tuple[str, Callable[[], None]]]:
+    """(check name, zero-argument callable) for every contract check of an agent kind."""
+    cls = agent_class(kind)
+    full = cls(**(params or {})).get_params()
+    for check in _AGENT_CHECKS:
+        yield check.__name__.removeprefix("_check_"), lambda check=check: check(cls, full)
+
+
+def check_agent(kind: str, params: dict | None = None) -> None:
+    """Run every agent contract check; raise ContractError naming the first one that fails."""
+    for name, run in agent_checks(kind, params):
+        try:
+            run()
+        except ContractError as err:
+            raise ContractError(f"{kind}: {name}: {err}") from None
+
+
+def _check_discrete_spaces(spec: dict) -> None:
+    env = build_env(spec)
+    try:
+        env_sizes(env)
+    except ValueError as err:
+        raise ContractError(str(err)) from None
+    finally:
+        env.close()
+
+
+def _check_reset_and_step_types(spec: dict) -> None:
+    env = build_env(spec)
+    n_states, n_actions = env_sizes(env)
+    state, info = env.reset(seed=0)
+    if not (0 <= int(state) < n_states) or not isinstance(info, dict):
+        raise ContractError(f"reset() must give a state in 0..{n_states - 1} and an info dict, got {state!r}")
+    rng = np.random.default_rng(0)
+    for _ in range(200):
+        out = env.step(int(rng.integers(n_actions)))
+        if len(out) != 5:
+            raise ContractError(
+                f"step() must return 5 values (state, reward, terminated, truncated, info), got {len(out)}"
+            )
+        state, reward, terminated, truncated, _ = out
+        if not 0 <= int(state) < n_states or not np.isfinite(float(reward)):
+            raise ContractError(f"step() gave state {state!r} and reward {reward!r}")
+        if terminated or truncated:
+            env.reset()
+    env.close()
+
+
+def _trajectory(spec: dict, seed: int) -> list[tuple[int, float, bool]]:
+    env = build_env(spec)
+    _, n_actions = env_sizes(env)
+    env.reset(seed=seed)
+    out = []
+    for i in range(100):
+        state, reward, terminated, truncated, _ = env.step(i % n_actions)
+        out.append((int(state), float(reward), bool(terminated)))
+        if terminated or truncated:
+            env.reset()
+    env.close()
+    return out
+
+
+def _check_seeded_reset_repeats(spec: dict) -> None:
+    if _trajectory(spec, 3) != _trajectory(spec, 3):
+        raise ContractError("the same reset seed and actions gave different trajectories")
+
+
+def _check_table_is_a_distribution(spec: dict) -> None:
+    env = build_env(spec)
+    table = getattr(env.unwrapped, "P", None)
+    n_states, n_actions = env_sizes(env)
+    env.close()
+    if table is None:
+        return
+    for s in range(n_states):
+        for a in range(n_actions):
+            outcomes = table[s][a]
+            total = sum(o[0] for o in outcomes)
+            if abs(total - 1.0) > 1e-9 or any(not 0 <= o[1] < n_states for o in outcomes):
+                raise ContractError(f"P[{s}][{a}] is not a distribution over valid states: {outcomes}")
+
+
+_ENV_CHECKS: tuple[Callable[[dict], None], ...] = (
+    _check_discrete_spaces,
+    _check_reset_and_step_types,
+    _check_seeded_reset_repeats,
+    _check_table_is_a_distribution,
+)
+
+
+def environment_checks(spec: dict) -> Iterator[tuple[str, Callable[[], None]]]:
+    """(check name, zero-argument callable) for every contract check of a resolved environment spec."""
+    for check in _ENV_CHECKS:
+        yield check.__name__.removeprefix("_check_"), lambda check=check: check(spec)
+
+
+def check_environment(spec: dict) -> None:
+    """Run every environment contract check; raise ContractError naming the first one that fails."""
+    for name, run in environment_checks(spec):
+        try:
+            run()
+        except ContractError as err:
+            raise ContractError(f"{name}: {err}") from None
