@@ -174,7 +174,10 @@ def measure_kernel(sizes: Sizes, seed: int) -> tuple[Figure, str]:
     figure = best_of("1a tool kernel dyna_q_plan alone (numba)", run)
     n_pairs = int(arrays[6][0])
     path = greedy_path_length(arrays[0], env.P, int(np.flatnonzero(env.initial_state_distrib)[0]))
-    note = f"model holds {n_pairs} (state, action) pairs after {sizes.fill_steps} real steps; greedy path from S {describe_path(path)}"
+    note = (
+        f"model holds {n_pairs} (state, action) pairs after {sizes.fill_steps} real steps; "
+        f"greedy path from S {describe_path(path)}"
+    )
     return figure, note
 
 
@@ -203,6 +206,36 @@ def trial_spec(real_steps: int, seed: int) -> dict[str, Any]:
         "real_steps": real_steps,
         "evaluation": {"every": real_steps, "episodes": 1, "step_cap": 100, "training_window": 10},
     }
+
+
+def per_call_seconds(call: Any, calls: int) -> float:
+    """Best-of-REPEATS mean seconds of one `call()`, over `calls` calls."""
+    best = float("inf")
+    for _ in range(REPEATS):
+        start = time.perf_counter()
+        for _ in range(calls):
+            call()
+        best = min(best, (time.perf_counter() - start) / calls)
+    return best
+
+
+def measure_step_parts(sizes: Sizes, seed: int) -> str:
+    """Where a real step's time goes: one `agent.act`, one `env.step`, one `agent.observe` (n=50), each alone.
+
+    The same transition is repeated, so the figures are per-call costs, not a learning run.
+    """
+    agent, env = filled_tool_agent(sizes, seed)
+    state = int(np.flatnonzero(env.initial_state_distrib)[0])
+    calls = sizes.trial_steps // 2
+
+    def step_env() -> None:
+        env.s = state
+        env.step(1)
+
+    act = per_call_seconds(lambda: agent.act(state), calls)
+    step = per_call_seconds(step_env, calls)
+    observe = per_call_seconds(lambda: agent.observe(state, 1, 0.0, state + 1, False), calls)
+    return f"agent.act {act * 1e6:.1f} us, env.step {step * 1e6:.1f} us, agent.observe (n=50) {observe * 1e6:.1f} us"
 
 
 def measure_trial(sizes: Sizes, seed: int) -> tuple[Figure, str]:
@@ -302,7 +335,10 @@ def measure_plain(sizes: Sizes, seed: int) -> tuple[Figure, Figure, str]:
 
     plan = best_of("2b plain Python planning loop alone", run_plan)
     path = greedy_path_length(q, env.P, start)
-    note = f"model holds {len(seen)} (state, action) pairs after {sizes.fill_steps} real steps; greedy path from S {describe_path(path)}"
+    note = (
+        f"model holds {len(seen)} (state, action) pairs after {sizes.fill_steps} real steps; "
+        f"greedy path from S {describe_path(path)}"
+    )
     return loop, plan, note
 
 
@@ -338,6 +374,7 @@ def main(argv: list[str] | None = None) -> int:
 
     kernel, kernel_note = measure_kernel(sizes, args.seed)
     trial, trial_note = measure_trial(sizes, args.seed)
+    parts = measure_step_parts(sizes, args.seed)
     plain_loop, plain_plan_fig, plain_note = measure_plain(sizes, args.seed)
     figures = [kernel, trial, plain_loop, plain_plan_fig]
 
@@ -353,8 +390,9 @@ def main(argv: list[str] | None = None) -> int:
     planning_share = PLANNING_STEPS / kernel.rate
     print(
         f"    {per_step * 1e6:.1f} us per real step end to end, of which {planning_share * 1e6:.1f} us is planning "
-        f"at the kernel's speed; the rest is Python-side acting, stepping and learning"
+        "at the kernel's speed;"
     )
+    print(f"    one call each, alone: {parts}")
     print(f"2 : {plain_note}")
     print(
         f"    (plain Python steps the maze through its transition table, not gymnasium; shortest path is "

@@ -6,6 +6,7 @@ load them instead of compiling them again.
 
 from __future__ import annotations
 
+import signal
 import traceback
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -33,8 +34,16 @@ class TrialOutcome:
     traceback: str = ""
 
 
-def execute_trial(trial_id: str, spec: dict[str, Any]) -> TrialOutcome:
-    """Run one trial in a worker; any exception or non-finite metric becomes a failed outcome."""
+def _ignore_interrupts() -> None:
+    """In a worker process, leave Ctrl-C to the parent, which stops the pool and keeps finished trials."""
+    if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:
+        signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+def execute_trial(trial_id: str, spec: dict[str, Any], in_worker: bool = False) -> TrialOutcome:
+    """Run one trial; any exception or non-finite metric becomes a failed outcome."""
+    if in_worker:
+        _ignore_interrupts()
     try:
         result = run_trial(spec)
         for name, column in result.rows.items():
@@ -66,7 +75,7 @@ def run_parallel(
         outcomes = (execute_trial(t.trial_id, t.spec) for t in trials)
     else:
         outcomes = Parallel(n_jobs=jobs, return_as="generator_unordered")(
-            delayed(execute_trial)(t.trial_id, t.spec) for t in trials
+            delayed(execute_trial)(t.trial_id, t.spec, in_worker=True) for t in trials
         )
     for outcome in outcomes:
         on_outcome(by_id[outcome.trial_id], outcome)

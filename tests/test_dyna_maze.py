@@ -5,7 +5,6 @@ column 7 rows 0-2 (0-based rows from the top); reward 1 on reaching the goal, 0 
 gamma 0.95, epsilon 0.1, Q initialised to 0 (all from the book's Example 8.1).
 """
 
-import time
 from collections import deque
 
 import numpy as np
@@ -106,7 +105,6 @@ def test_episodes_to_settle_helper():
 def test_more_planning_settles_in_fewer_episodes():
     # Qualitative claim of Sutton & Barto (2018), Figure 8.2: with n = 50 planning steps the agent reaches
     # near-optimal episodes within a few episodes, n = 5 takes somewhat longer, n = 0 (Q-learning) far longer.
-    started = time.perf_counter()
     settle = {}
     for n in (0, 5, 50):
         params = DynaQ(planning_steps=n, **HYPER).get_params()
@@ -123,11 +121,8 @@ def test_more_planning_settles_in_fewer_episodes():
             f"n={n:>2}: episodes until the 10-seed mean length stays <= {NEAR_SHORTEST:g}: {settle[n]}; "
             f"mean length of episode 1 = {mean[0]:.1f}, of episodes 41-50 = {mean[40:].mean():.1f}"
         )
-    elapsed = time.perf_counter() - started
-    print(f"maze runs took {elapsed:.1f} s")
     assert settle[50] < settle[5] < settle[0]
     assert settle[0] < EPISODES  # even Q-learning settles within the 50 episodes plotted in the book
-    assert elapsed < 60.0
 
 
 def test_dyna_q_with_zero_planning_is_q_learning_bit_for_bit():
