@@ -149,7 +149,7 @@ def filled_tool_agent(sizes: Sizes, seed: int) -> tuple[DynaQ, GridWorld]:
     """A DynaQ agent whose model was filled by `fill_steps` real steps on the maze (planning n=50 meanwhile)."""
     env = GridWorld(DYNA_MAZE)
     agent = DynaQ(alpha=ALPHA, gamma=GAMMA, epsilon=EPSILON, planning_steps=PLANNING_STEPS)
-    agent.setup(env.observation_space.n, env.action_space.n, np.random.default_rng(seed))
+    agent.setup(env.observation_space.n, env.action_space.n, seed)
     state, _ = env.reset(seed=seed)
     for _ in range(sizes.fill_steps):
         action = agent.act(state)
@@ -162,7 +162,7 @@ def filled_tool_agent(sizes: Sizes, seed: int) -> tuple[DynaQ, GridWorld]:
 def measure_kernel(sizes: Sizes, seed: int) -> tuple[Figure, str]:
     """Time `dyna_q_plan` called directly with a large n on a filled model."""
     agent, env = filled_tool_agent(sizes, seed)
-    arrays, hyper, counters, rng = agent.arrays_, agent.hyper_, agent.counters_, agent.rng_
+    arrays, hyper, counters, rng = agent.arrays_, agent.hyper_, agent.counters_, agent.stream_
     dyna_q_plan(arrays, hyper, counters, np.int64(1_000), rng)  # compile or load from cache; not timed
     n = np.int64(sizes.kernel_updates)
 

@@ -14,6 +14,7 @@ import numpy as np
 
 from runner.agents import TabularAgent, agent_class
 from runner.envs.sources import build_env, env_sizes
+from runner.streams import new_stream
 from runner.trial import METRIC_COLUMNS, run_trial
 
 __all__ = ["ContractError", "agent_checks", "check_agent", "check_environment", "environment_checks"]
@@ -53,7 +54,7 @@ def _drive(agent: TabularAgent, env_spec: dict, steps: int, seed: int) -> list[i
     """Set the agent up on the environment and learn for `steps` real steps; return the actions taken."""
     env = build_env(env_spec)
     n_states, n_actions = env_sizes(env)
-    agent.setup(n_states, n_actions, np.random.default_rng(seed))
+    agent.setup(n_states, n_actions, seed)
     state, _ = env.reset(seed=seed)
     actions = []
     for _ in range(steps):
@@ -107,8 +108,8 @@ def _check_different_seeds_differ(cls: type[TabularAgent], params: dict) -> None
 def _check_actions_valid(cls: type[TabularAgent], params: dict) -> None:
     agent = cls(**params)
     actions = _drive(agent, SLIPPERY, 300, seed=3)
-    rng = np.random.default_rng(0)
-    greedy = [agent.greedy(s, rng) for s in range(agent.n_states_)]
+    stream = new_stream(0)
+    greedy = [agent.greedy(s, stream) for s in range(agent.n_states_)]
     bad = [a for a in actions + greedy if not 0 <= a < agent.n_actions_]
     if bad:
         raise ContractError(f"actions outside 0..{agent.n_actions_ - 1}: {bad[:5]}")
@@ -117,9 +118,9 @@ def _check_actions_valid(cls: type[TabularAgent], params: dict) -> None:
 def _check_learning_changes_behaviour(cls: type[TabularAgent], params: dict) -> None:
     agent = cls(**params)
     _drive(agent, CORRIDOR, 3000, seed=5)
-    rng = np.random.default_rng(11)
+    stream = new_stream(11)
     for state in range(4):
-        chosen = {agent.greedy(state, rng) for _ in range(20)}
+        chosen = {agent.greedy(state, stream) for _ in range(20)}
         if chosen != {_EAST}:
             raise ContractError(f"after 3000 steps in a corridor the greedy actions in cell {state} are {chosen}")
 

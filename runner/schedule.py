@@ -17,6 +17,7 @@ from joblib import Parallel, delayed
 
 from runner.agents import make_agent
 from runner.plan import PlannedTrial
+from runner.streams import new_stream
 from runner.trial import run_trial
 
 __all__ = ["TrialOutcome", "execute_trial", "run_parallel", "warm_up"]
@@ -58,11 +59,11 @@ def warm_up(kinds: set[str]) -> None:
     """Compile (or load from cache) every kernel the study's agent kinds use, in this process."""
     for kind in sorted(kinds):
         agent = make_agent(kind, {})
-        agent.setup(3, 2, np.random.default_rng(0))
+        agent.setup(3, 2, 0)
         for terminated in (False, True):
             action = agent.act(0)
             agent.observe(0, action, 0.0, 1, terminated)
-        agent.greedy(0, np.random.default_rng(1))
+        agent.greedy(0, new_stream(1))
 
 
 def run_parallel(

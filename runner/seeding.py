@@ -9,17 +9,20 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from runner.streams import new_stream
+
 __all__ = ["TrialStreams", "trial_streams"]
 
 
 @dataclass(frozen=True)
 class TrialStreams:
-    """The random streams of one trial."""
+    """The random streams of one trial: gymnasium seeds for the two environment copies, compiled streams
+    (`runner.streams`) for the agent and for tie-breaking in greedy evaluation."""
 
     env_seed: int
     eval_env_seed: int
-    agent: np.random.Generator
-    evaluation: np.random.Generator
+    agent: np.ndarray
+    evaluation: np.ndarray
 
 
 def trial_streams(seed: int) -> TrialStreams:
@@ -29,6 +32,6 @@ def trial_streams(seed: int) -> TrialStreams:
     return TrialStreams(
         env_seed=int(env_ss.generate_state(1, dtype=np.uint32)[0]),
         eval_env_seed=int(eval_env_ss.generate_state(1, dtype=np.uint32)[0]),
-        agent=np.random.default_rng(agent_ss),
-        evaluation=np.random.default_rng(eval_policy_ss),
+        agent=new_stream(agent_ss),
+        evaluation=new_stream(eval_policy_ss),
     )

@@ -41,13 +41,13 @@ class TrialResult:
     trial_path: str
 
 
-def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: int, rng: np.random.Generator) -> float:
+def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: int, stream: np.ndarray) -> float:
     """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps."""
     total = 0.0
     for _ in range(episodes):
         state, _ = env.reset()
         for _ in range(step_cap):
-            state, reward, terminated, truncated, _ = env.step(agent.greedy(int(state), rng))
+            state, reward, terminated, truncated, _ = env.step(agent.greedy(int(state), stream))
             total += float(reward)
             if terminated or truncated:
                 break

@@ -35,9 +35,7 @@ def test_matches_scipy_percentile_bootstrap(name):
 def test_matches_scipy_at_other_confidence_levels():
     data = np.random.default_rng(2).gamma(shape=2.0, scale=1.5, size=20)
     for confidence in (0.5, 0.9):
-        low, high = percentile_interval(
-            data, confidence=confidence, n_resamples=20000, rng=np.random.default_rng(3)
-        )
+        low, high = percentile_interval(data, confidence=confidence, n_resamples=20000, rng=np.random.default_rng(3))
         # reference: scipy.stats.bootstrap(method='percentile') on the sample mean
         reference = stats.bootstrap(
             (data,),
@@ -66,9 +64,7 @@ def test_two_dimensional_input_is_bootstrapped_column_by_column_with_shared_indi
     assert low.shape == (5,)
     assert high.shape == (5,)
     for column in range(data.shape[1]):
-        col_low, col_high = percentile_interval(
-            data[:, column], n_resamples=3000, rng=np.random.default_rng(9)
-        )
+        col_low, col_high = percentile_interval(data[:, column], n_resamples=3000, rng=np.random.default_rng(9))
         np.testing.assert_allclose(low[column], col_low, rtol=1e-12)
         np.testing.assert_allclose(high[column], col_high, rtol=1e-12)
 

@@ -142,9 +142,7 @@ def test_curve_bands_handle_a_trial_that_stopped_early():
     assert (chain_q.loc[8:, "n_seeds"] == 3).all()
     # reference: pandas groupby mean of eval_return per point over the trials present there
     expected = (
-        unfinished[(unfinished["env"] == "chain") & (unfinished["agent"] == "q")]
-        .groupby("point")["eval_return"]
-        .mean()
+        unfinished[(unfinished["env"] == "chain") & (unfinished["agent"] == "q")].groupby("point")["eval_return"].mean()
     )
     np.testing.assert_allclose(chain_q["mean"].to_numpy(), expected.to_numpy(), rtol=1e-12)
     assert not chain_q[["mean", "low", "high"]].isna().any().any()

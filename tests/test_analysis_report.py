@@ -89,12 +89,7 @@ def test_write_report_writes_every_file(tmp_path):
     assert sorted(p.name for p in out_dir.iterdir()) == sorted(expected)
     for env in _ENVS:
         assert (out_dir / f"curves_{safe_name(env)}.png").read_bytes().startswith(_PNG_SIGNATURE)
-        assert (
-            (out_dir / f"curves_{safe_name(env)}.svg")
-            .read_text(encoding="utf-8")
-            .lstrip()
-            .startswith("<?xml")
-        )
+        assert (out_dir / f"curves_{safe_name(env)}.svg").read_text(encoding="utf-8").lstrip().startswith("<?xml")
 
     summary = pd.read_csv(out_dir / "summary.csv")
     assert list(summary.columns) == SUMMARY_COLUMNS

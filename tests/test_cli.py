@@ -68,7 +68,12 @@ def _stepmeter(*args: str, cwd: Path) -> subprocess.CompletedProcess:
     env["MPLBACKEND"] = "Agg"
     return subprocess.run(
         [sys.executable, "-m", "runner", *args],
-        cwd=cwd, env=env, capture_output=True, text=True, timeout=120, check=False,
+        cwd=cwd,
+        env=env,
+        capture_output=True,
+        text=True,
+        timeout=120,
+        check=False,
     )
 
 

@@ -40,7 +40,7 @@ def learned():
     env = gym.make("FrozenLake-v1")  # is_slippery=True by default, 100-step time limit
     n_states, n_actions = int(env.observation_space.n), int(env.action_space.n)
     agent = CertaintyEquivalence(epsilon=1.0, replan_every=REPLAN_EVERY)
-    agent.setup(n_states, n_actions, np.random.default_rng(20240611))
+    agent.setup(n_states, n_actions, 20240611)
     state, _ = env.reset(seed=12345)
     state = int(state)
     episodes = 0

@@ -14,6 +14,7 @@ import numpy as np
 
 from runner.agents.kernels import greedy_action
 from runner.params import Param, resolve_params
+from runner.streams import as_stream
 
 __all__ = ["COUNTER_NAMES", "TabularAgent"]
 
@@ -36,11 +37,14 @@ class TabularAgent:
         """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
         return dict(self._params)
 
-    def setup(self, n_states: int, n_actions: int, rng: np.random.Generator) -> None:
-        """Create the learned state for an environment of that size; the generator is the agent's stream."""
+    def setup(self, n_states: int, n_actions: int, stream: int | np.random.SeedSequence | np.ndarray) -> None:
+        """Create the learned state for an environment of that size.
+
+        `stream` is the agent's random stream (see `runner.streams`), or a seed to build one from.
+        """
         self.n_states_ = int(n_states)
         self.n_actions_ = int(n_actions)
-        self.rng_ = rng
+        self.stream_ = as_stream(stream)
         self.counters_ = np.zeros(len(COUNTER_NAMES), dtype=np.int64)
         self.arrays_ = self.make_arrays(self.n_states_, self.n_actions_)
         self.hyper_ = np.asarray(self.make_hyper(), dtype=np.float64)
@@ -55,7 +59,7 @@ class TabularAgent:
 
     def act(self, state: int) -> int:
         """Behaviour action for a real step (draws from the agent's own stream)."""
-        return int(self.act_kernel(self.arrays_, self.hyper_, state, self.rng_))
+        return int(self.act_kernel(self.arrays_, self.hyper_, state, self.stream_))
 
     def observe(self, state: int, action: int, reward: float, next_state: int, terminated: bool) -> None:
         """Learn from one real transition (and plan, for agents that plan)."""
@@ -68,12 +72,12 @@ class TabularAgent:
             float(reward),
             next_state,
             bool(terminated),
-            self.rng_,
+            self.stream_,
         )
 
-    def greedy(self, state: int, rng: np.random.Generator) -> int:
+    def greedy(self, state: int, stream: np.ndarray) -> int:
         """Greedy action for evaluation; ties are broken with the evaluation stream, not the agent's."""
-        return int(greedy_action(self.arrays_[0], state, rng))
+        return int(greedy_action(self.arrays_[0], state, stream))
 
     def counters(self) -> dict[str, int]:
         """Counters by name."""

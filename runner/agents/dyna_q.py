@@ -7,6 +7,7 @@ from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import Param
+from runner.streams import below
 
 __all__ = ["DynaQ"]
 
@@ -27,7 +28,7 @@ def dyna_q_plan(arrays, hyper, counters, n_updates, rng):
     n_actions = q.shape[1]
     n_seen = arrays[_N_SEEN][0]
     for _ in range(n_updates):
-        pair = arrays[_SEEN_LIST][rng.integers(0, n_seen)]
+        pair = arrays[_SEEN_LIST][below(rng, n_seen)]
         s = pair // n_actions
         a = pair % n_actions
         q_learning_update(

@@ -1,10 +1,12 @@
 """Compiled building blocks shared by the tabular agents: action choice and one-step value updates.
 
-Every random draw comes from a `numpy.random.Generator` passed in, so a trial is fixed by its seed.
+Every random draw comes from a stream passed in (see `runner.streams`), so a trial is fixed by its seed.
 """
 
 import numpy as np
 from numba import njit
+
+from runner.streams import below, uniform
 
 __all__ = ["argmax_random_tie", "epsilon_greedy", "greedy_action", "q_learning_update"]
 
@@ -23,7 +25,7 @@ def argmax_random_tie(values, rng):
             choice = i
         elif v == best:
             count += 1
-            if rng.integers(0, count) == 0:
+            if below(rng, count) == 0:
                 choice = i
     return choice
 
@@ -31,8 +33,8 @@ def argmax_random_tie(values, rng):
 @njit(cache=True)
 def epsilon_greedy(q, state, epsilon, rng):
     """With probability epsilon a uniform action, else a greedy one with random tie-breaking."""
-    if rng.random() < epsilon:
-        return rng.integers(0, q.shape[1])
+    if uniform(rng) < epsilon:
+        return below(rng, q.shape[1])
     return argmax_random_tie(q[state], rng)
 
 
