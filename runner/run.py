@@ -98,7 +98,6 @@ def run_study(
                 )
             else:
                 store.write_trial(trial, run_id, outcome.rows, outcome.trial_path)
-                summary.ran += 1
             progress.advance(failed=outcome.rows is None)
 
         try:
@@ -107,6 +106,7 @@ def run_study(
             summary.interrupted = True
         finally:
             progress.close()
+            summary.ran = store.count_trials(run_id)
             outcome = "interrupted" if summary.interrupted else ("failures" if summary.failed else "complete")
             store.end_run(run_id, outcome)
     return summary

@@ -169,6 +169,10 @@ class Store:
         """Ids of the trials already finished and stored."""
         return {r[0] for r in self.conn.execute("SELECT trial_id FROM trials")}
 
+    def count_trials(self, run_id: int) -> int:
+        """How many trials a run stored."""
+        return int(self.conn.execute("SELECT count(*) FROM trials WHERE run_id=?", (run_id,)).fetchone()[0])
+
     def write_trial(self, trial: PlannedTrial, run_id: int, rows: dict[str, np.ndarray], trial_path: str) -> None:
         """Store a finished trial and all its metric rows in one transaction."""
         n = len(rows["real_steps"])
