@@ -6,6 +6,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+from study_texts import EXAMPLE_STUDY
+
 from runner.agents import AGENTS
 
 _REPO = Path(__file__).resolve().parents[1]
@@ -22,27 +24,7 @@ agents:
       alpha: 1.5
 """
 
-_VALID = """\
-study: smoke
-seeds: 2
-real_steps: 3000
-evaluation: {every: 500, episodes: 5}
-environments:
-  - label: maze
-    grid:
-      map: |
-        .......XG
-        ..#....#.
-        S.#..~.#.
-      slip: 0.2
-    step_limit: 200
-  - gym: FrozenLake-v1
-agents:
-  - {label: q, kind: q_learning}
-  - {label: dyna, kind: dyna_q, params: {planning_steps: [0, 5, 50]}}
-  - {label: ce, kind: certainty_equivalence}
-baseline: q
-"""
+_VALID = EXAMPLE_STUDY
 
 _TINY = """\
 study: tiny

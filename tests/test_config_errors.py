@@ -5,6 +5,7 @@ from pathlib import Path
 
 import gymnasium
 import pytest
+from study_texts import EXAMPLE_STUDY
 
 from runner.config import load_study
 from runner.errors import ConfigError
@@ -20,27 +21,7 @@ environments:
 # The same start without environments, for cases about environments (`environments:` is line 4).
 _TOP = "study: broken\nseeds: 2\nreal_steps: 100\n"
 
-_EXAMPLE = """\
-study: smoke
-seeds: 2
-real_steps: 3000
-evaluation: {every: 500, episodes: 5}
-environments:
-  - label: maze
-    grid:
-      map: |
-        .......XG
-        ..#....#.
-        S.#..~.#.
-      slip: 0.2
-    step_limit: 200
-  - gym: FrozenLake-v1
-agents:
-  - {label: q, kind: q_learning}
-  - {label: dyna, kind: dyna_q, params: {planning_steps: [0, 5, 50]}}
-  - {label: ce, kind: certainty_equivalence}
-baseline: q
-"""
+_EXAMPLE = EXAMPLE_STUDY
 
 
 @dataclass(frozen=True)

@@ -199,17 +199,7 @@ def _aligned(headers: list[str], rows: list[list[str]], numeric: list[bool]) -> 
 
 def to_terminal(table: pd.DataFrame) -> str:
     """Plain-text summary: one aligned block per environment with seeds, AUC, final return and planning."""
-    shown = [
-        "agent",
-        "seeds",
-        "auc_mean",
-        "auc_low",
-        "auc_high",
-        "final_mean",
-        "final_low",
-        "final_high",
-        "planning_per_real",
-    ]
+    shown = [c for c in SUMMARY_COLUMNS if c not in ("env", "kind", "wall_seconds")]
     blocks = []
     for env in pd.unique(table["env"]):
         headers, rows, numeric = _display_frame(table.loc[table["env"] == env, shown])
