@@ -68,6 +68,7 @@ def _drive(agent: TabularAgent, env_spec: dict, steps: int, seed: int) -> list[i
 
 
 def _trial_spec(kind: str, params: dict, env_spec: dict, seed: int) -> dict[str, Any]:
+    """A short trial of the kind on an environment, as `runner.plan` would make it."""
     return {
         "format": 1,
         "env": env_spec,
@@ -142,16 +143,16 @@ def _check_counters_add_up(cls: type[TabularAgent], params: dict) -> None:
 
 
 def _check_trial_rows_reproducible(cls: type[TabularAgent], params: dict) -> None:
-    kind = cls.kind
-    first = run_trial(_trial_spec(kind, params, SLIPPERY, seed=9)).rows
-    again = run_trial(_trial_spec(kind, params, SLIPPERY, seed=9)).rows
-    other = run_trial(_trial_spec(kind, params, SLIPPERY, seed=10)).rows
     columns = [c for c in METRIC_COLUMNS if c != "wall_seconds"]
-    for c in columns:
-        if not np.array_equal(first[c], again[c], equal_nan=True):
-            raise ContractError(f"the same trial spec gave different {c!r} rows")
-    if all(np.array_equal(first[c], other[c], equal_nan=True) for c in columns):
-        raise ContractError("trials with seeds 9 and 10 gave identical metric rows")
+    for path in ("compiled", "gymnasium"):
+        first = run_trial(_trial_spec(cls.kind, params, SLIPPERY, seed=9), path).rows
+        again = run_trial(_trial_spec(cls.kind, params, SLIPPERY, seed=9), path).rows
+        other = run_trial(_trial_spec(cls.kind, params, SLIPPERY, seed=10), path).rows
+        for c in columns:
+            if not np.array_equal(first[c], again[c], equal_nan=True):
+                raise ContractError(f"on the {path} path the same trial spec gave different {c!r} rows")
+        if all(np.array_equal(first[c], other[c], equal_nan=True) for c in columns):
+            raise ContractError(f"on the {path} path trials with seeds 9 and 10 gave identical metric rows")
 
 
 _AGENT_CHECKS: tuple[Callable[[type[TabularAgent], dict], None], ...] = (

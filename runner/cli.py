@@ -28,6 +28,13 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument("--jobs", type=int, default=None, help="worker processes (default: all cores)")
     run.add_argument("--results", default="results", help="folder that holds study results (default: results)")
     run.add_argument("--no-report", action="store_true", help="do not write the report at the end")
+    run.add_argument(
+        "--path",
+        choices=("auto", "compiled", "gymnasium"),
+        default="auto",
+        help="auto (default): whole trials in compiled code for table-backed environments, else step by step "
+        "through gymnasium; gymnasium forces the step-by-step path",
+    )
 
     check = sub.add_parser("check", help="validate a study and print how many trials it declares")
     check.add_argument("study", help="the study YAML file")
@@ -65,7 +72,9 @@ def _run(args: argparse.Namespace) -> int:
     if args.jobs is not None and args.jobs < 1:
         print(f"stepmeter: error: --jobs: expected a whole number >= 1, got {args.jobs}", file=sys.stderr)
         return 2
-    summary = run_study(args.study, results_root=args.results, jobs=args.jobs, command=" ".join(sys.argv))
+    summary = run_study(
+        args.study, results_root=args.results, jobs=args.jobs, command=" ".join(sys.argv), trial_path=args.path
+    )
     if summary.interrupted:
         print(
             f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "

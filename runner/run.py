@@ -58,6 +58,7 @@ def run_study(
     jobs: int | None = None,
     command: str = "",
     stream: TextIO | None = None,
+    trial_path: str = "auto",
 ) -> RunSummary:
     """Run every declared trial that is not stored yet; finished trials are committed one by one."""
     out = stream or sys.stdout
@@ -101,7 +102,7 @@ def run_study(
             progress.advance(failed=outcome.rows is None)
 
         try:
-            run_parallel(todo, n_jobs, keep)
+            run_parallel(todo, n_jobs, keep, trial_path)
         except KeyboardInterrupt:
             summary.interrupted = True
         finally:

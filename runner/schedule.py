@@ -16,11 +16,21 @@ import numpy as np
 from joblib import Parallel, delayed
 
 from runner.agents import make_agent
-from runner.plan import PlannedTrial
-from runner.streams import new_stream
+from runner.plan import SPEC_FORMAT, PlannedTrial
 from runner.trial import run_trial
 
 __all__ = ["TrialOutcome", "execute_trial", "run_parallel", "warm_up"]
+
+_WARM_UP_GRID = {
+    "source": "grid",
+    "map": "S~G",
+    "slip": 0.5,
+    "step_reward": 0.0,
+    "goal_reward": 1.0,
+    "hazard_penalty": -1.0,
+    "hazard_ends": True,
+    "step_limit": 3,
+}
 
 
 @dataclass
@@ -41,12 +51,12 @@ def _ignore_interrupts() -> None:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
-def execute_trial(trial_id: str, spec: dict[str, Any], in_worker: bool = False) -> TrialOutcome:
+def execute_trial(trial_id: str, spec: dict[str, Any], path: str = "auto", in_worker: bool = False) -> TrialOutcome:
     """Run one trial; any exception or non-finite metric becomes a failed outcome."""
     if in_worker:
         _ignore_interrupts()
     try:
-        result = run_trial(spec)
+        result = run_trial(spec, path)
         for name, column in result.rows.items():
             if name != "train_return" and not np.all(np.isfinite(column)):
                 raise FloatingPointError(f"metric {name!r} has a non-finite value")
@@ -56,27 +66,38 @@ def execute_trial(trial_id: str, spec: dict[str, Any], in_worker: bool = False) 
 
 
 def warm_up(kinds: set[str]) -> None:
-    """Compile (or load from cache) every kernel the study's agent kinds use, in this process."""
+    """Compile (or load from numba's disk cache) every kernel the agent kinds use, on both trial paths.
+
+    Done once in the parent before dispatch, so worker processes load the cached machine code instead of
+    compiling it again.
+    """
     for kind in sorted(kinds):
-        agent = make_agent(kind, {})
-        agent.setup(3, 2, 0)
-        for terminated in (False, True):
-            action = agent.act(0)
-            agent.observe(0, action, 0.0, 1, terminated)
-        agent.greedy(0, new_stream(1))
+        spec = {
+            "format": SPEC_FORMAT,
+            "env": _WARM_UP_GRID,
+            "agent": {"kind": kind, "params": make_agent(kind, {}).get_params()},
+            "seed": 0,
+            "real_steps": 4,
+            "evaluation": {"every": 2, "episodes": 1, "step_cap": 3, "training_window": 2},
+        }
+        for path in ("compiled", "gymnasium"):
+            run_trial(spec, path)
 
 
 def run_parallel(
-    trials: list[PlannedTrial], jobs: int, on_outcome: Callable[[PlannedTrial, TrialOutcome], None]
+    trials: list[PlannedTrial],
+    jobs: int,
+    on_outcome: Callable[[PlannedTrial, TrialOutcome], None],
+    path: str = "auto",
 ) -> None:
     """Run every trial on `jobs` processes (1: in this process), calling on_outcome as each finishes."""
     by_id = {t.trial_id: t for t in trials}
     outcomes: Iterator[TrialOutcome]
     if jobs == 1:
-        outcomes = (execute_trial(t.trial_id, t.spec) for t in trials)
+        outcomes = (execute_trial(t.trial_id, t.spec, path) for t in trials)
     else:
         outcomes = Parallel(n_jobs=jobs, return_as="generator_unordered")(
-            delayed(execute_trial)(t.trial_id, t.spec, in_worker=True) for t in trials
+            delayed(execute_trial)(t.trial_id, t.spec, path, in_worker=True) for t in trials
         )
     for outcome in outcomes:
         on_outcome(by_id[outcome.trial_id], outcome)

@@ -16,13 +16,22 @@ __all__ = ["TrialStreams", "trial_streams"]
 
 @dataclass(frozen=True)
 class TrialStreams:
-    """The random streams of one trial: gymnasium seeds for the two environment copies, compiled streams
-    (`runner.streams`) for the agent and for tie-breaking in greedy evaluation."""
+    """The random streams of one trial.
 
-    env_seed: int
-    eval_env_seed: int
+    `env` and `eval_env` seed the training and evaluation copies of the environment (a gymnasium reset seed,
+    or a compiled stream on the compiled path); `agent` and `evaluation` are compiled streams
+    (`runner.streams`) for the agent and for tie-breaking in greedy evaluation.
+    """
+
+    env: np.random.SeedSequence
+    eval_env: np.random.SeedSequence
     agent: np.ndarray
     evaluation: np.ndarray
+
+    @staticmethod
+    def reset_seed(sequence: np.random.SeedSequence) -> int:
+        """An integer seed for gymnasium's `reset(seed=...)` drawn from a sequence."""
+        return int(sequence.generate_state(1, dtype=np.uint32)[0])
 
 
 def trial_streams(seed: int) -> TrialStreams:
@@ -30,8 +39,5 @@ def trial_streams(seed: int) -> TrialStreams:
     env_ss, agent_ss, eval_ss = np.random.SeedSequence(seed).spawn(3)
     eval_env_ss, eval_policy_ss = eval_ss.spawn(2)
     return TrialStreams(
-        env_seed=int(env_ss.generate_state(1, dtype=np.uint32)[0]),
-        eval_env_seed=int(eval_env_ss.generate_state(1, dtype=np.uint32)[0]),
-        agent=new_stream(agent_ss),
-        evaluation=new_stream(eval_policy_ss),
+        env=env_ss, eval_env=eval_env_ss, agent=new_stream(agent_ss), evaluation=new_stream(eval_policy_ss)
     )

@@ -1,7 +1,9 @@
 """One trial: one environment, one agent, one seed, run for a budget of real environment steps.
 
 Evaluation runs greedy episodes on a separate environment instance with its own stream; those steps never
-count as samples. A metric row is written at step 0 and then every `every` real steps.
+count as samples. A metric row is written at step 0 and then every `every` real steps. A trial runs on one of
+two paths: whole in compiled code when the environment is a known transition table (`runner.compiled_trial`),
+else step by step through gymnasium. Both call the same agent kernels.
 """
 
 from __future__ import annotations
@@ -15,10 +17,14 @@ import gymnasium as gym
 import numpy as np
 
 from runner.agents import COUNTER_NAMES, TabularAgent, make_agent
+from runner.compiled_trial import run_table_trial
 from runner.envs.sources import build_env, env_sizes
-from runner.seeding import trial_streams
+from runner.envs.table import table_from_env, why_not_table_backed
+from runner.errors import EnvironmentSourceError
+from runner.seeding import TrialStreams, trial_streams
+from runner.streams import new_stream
 
-__all__ = ["METRIC_COLUMNS", "TrialResult", "evaluate_greedy", "run_trial"]
+__all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "run_trial"]
 
 METRIC_COLUMNS = (
     "real_steps",
@@ -29,6 +35,9 @@ METRIC_COLUMNS = (
     "wall_seconds",
 )
 """Columns of a metric row, in order; `wall_seconds` is the only timing column."""
+
+TRIAL_PATHS = ("auto", "compiled", "gymnasium")
+"""`auto` takes the compiled path whenever the environment is table-backed."""
 
 
 @dataclass
@@ -54,39 +63,88 @@ def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: 
     return total / episodes
 
 
-def run_trial(spec: dict[str, Any]) -> TrialResult:
-    """Run one trial spec (see `runner.plan`) through gymnasium, step by step."""
+def run_trial(spec: dict[str, Any], path: str = "auto") -> TrialResult:
+    """Run one trial spec (see `runner.plan`) on the compiled path when possible, or as `path` demands."""
+    if path not in TRIAL_PATHS:
+        raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
     streams = trial_streams(spec["seed"])
-    ev = spec["evaluation"]
-    budget = int(spec["real_steps"])
     env = build_env(spec["env"])
-    eval_env = build_env(spec["env"])
     try:
         n_states, n_actions = env_sizes(env)
         agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
         agent.setup(n_states, n_actions, streams.agent)
-        eval_env.reset(seed=streams.eval_env_seed)
-        n_points = budget // ev["every"] + 1
-        rows = {name: np.zeros(n_points, dtype=np.float64) for name in METRIC_COLUMNS}
-        returns: list[float] = []
-        lengths: list[int] = []
-        recent: deque[float] = deque(maxlen=ev["training_window"])
-        start = time.perf_counter()
+        reason = why_not_table_backed(env)
+        if path == "compiled" and reason is not None:
+            raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {reason}")
+        if path == "gymnasium" or reason is not None:
+            return _run_gymnasium(spec, env, agent, streams)
+        return _run_compiled(spec, env, agent, streams)
+    finally:
+        env.close()
 
-        def record(point: int, steps: int) -> None:
-            rows["real_steps"][point] = steps
-            rows["episodes"][point] = len(returns)
-            rows["eval_return"][point] = evaluate_greedy(
-                agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation
-            )
-            rows["train_return"][point] = np.mean(recent) if recent else np.nan
-            for name, value in zip(COUNTER_NAMES, agent.counters_, strict=True):
-                rows[name][point] = value
-            rows["wall_seconds"][point] = time.perf_counter() - start
 
+def _run_compiled(spec: dict[str, Any], env: gym.Env, agent: TabularAgent, streams: TrialStreams) -> TrialResult:
+    ev = spec["evaluation"]
+    budget = int(spec["real_steps"])
+    t = table_from_env(env)
+    table = (t.start_cdf, t.offsets, t.cdf, t.next_state, t.reward, t.terminated, t.step_limit)
+    rows = np.zeros((budget // ev["every"] + 1, len(METRIC_COLUMNS)))
+    returns = np.zeros(budget, dtype=np.float64)
+    lengths = np.zeros(budget, dtype=np.int64)
+    n_episodes = run_table_trial(
+        type(agent).act_kernel,
+        type(agent).observe_kernel,
+        agent.arrays_,
+        agent.hyper_,
+        agent.counters_,
+        agent.stream_,
+        table,
+        new_stream(streams.env),
+        new_stream(streams.eval_env),
+        streams.evaluation,
+        budget,
+        int(ev["every"]),
+        int(ev["episodes"]),
+        int(ev["step_cap"]),
+        int(ev["training_window"]),
+        rows,
+        returns,
+        lengths,
+    )
+    return TrialResult(
+        rows={name: rows[:, i].copy() for i, name in enumerate(METRIC_COLUMNS)},
+        episode_returns=returns[:n_episodes].copy(),
+        episode_lengths=lengths[:n_episodes].copy(),
+        trial_path="compiled",
+    )
+
+
+def _run_gymnasium(spec: dict[str, Any], env: gym.Env, agent: TabularAgent, streams: TrialStreams) -> TrialResult:
+    ev = spec["evaluation"]
+    budget = int(spec["real_steps"])
+    eval_env = build_env(spec["env"])
+    eval_env.reset(seed=streams.reset_seed(streams.eval_env))
+    n_points = budget // ev["every"] + 1
+    rows = {name: np.zeros(n_points, dtype=np.float64) for name in METRIC_COLUMNS}
+    returns: list[float] = []
+    lengths: list[int] = []
+    recent: deque[float] = deque(maxlen=ev["training_window"])
+    start = time.perf_counter()
+
+    def record(point: int, steps: int) -> None:
+        rows["real_steps"][point] = steps
+        rows["episodes"][point] = len(returns)
+        rows["eval_return"][point] = evaluate_greedy(
+            agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation
+        )
+        rows["train_return"][point] = np.mean(recent) if recent else np.nan
+        for name, value in zip(COUNTER_NAMES, agent.counters_, strict=True):
+            rows[name][point] = value
+        rows["wall_seconds"][point] = time.perf_counter() - start
+
+    try:
         record(0, 0)
-        state, _ = env.reset(seed=streams.env_seed)
-        state = int(state)
+        state = int(env.reset(seed=streams.reset_seed(streams.env))[0])
         episode_return, episode_length, point = 0.0, 0, 1
         for step in range(1, budget + 1):
             action = agent.act(state)
@@ -106,7 +164,6 @@ def run_trial(spec: dict[str, Any]) -> TrialResult:
                 record(point, step)
                 point += 1
     finally:
-        env.close()
         eval_env.close()
     return TrialResult(
         rows=rows,

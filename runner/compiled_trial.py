@@ -1,0 +1,139 @@
+"""A whole trial in compiled code, for environments known as a transition table.
+
+It does what `runner.trial` does step by step through gymnasium (acting, learning, planning, greedy evaluation
+on a separate environment copy, metric rows), calling the very same agent kernels, which are passed in as
+compiled functions. Only the environment's randomness differs: it comes from a compiled stream instead of
+gymnasium's generator, so the two paths are the same experiment in distribution, not bit for bit.
+"""
+
+from __future__ import annotations
+
+import time
+
+import numpy as np
+from numba import njit, objmode
+
+from runner.agents.kernels import greedy_action
+from runner.streams import uniform
+
+__all__ = ["run_table_trial", "sample_outcome", "sample_start"]
+
+REAL_STEPS, EPISODES, EVAL_RETURN, TRAIN_RETURN, REAL_UPDATES, PLANNING_UPDATES, MODEL_UPDATES, WALL = range(8)
+
+
+@njit(cache=True)
+def sample_start(start_cdf, stream):
+    """A start state drawn from the cumulative start distribution."""
+    u = uniform(stream)
+    for s in range(start_cdf.shape[0]):
+        if u < start_cdf[s]:
+            return s
+    return start_cdf.shape[0] - 1
+
+
+@njit(cache=True)
+def sample_outcome(offsets, cdf, pair, stream):
+    """Index of the outcome of a (state, action) pair; a pair with one outcome draws nothing."""
+    first = offsets[pair]
+    last = offsets[pair + 1] - 1
+    if first == last:
+        return first
+    u = uniform(stream)
+    for j in range(first, last):
+        if u < cdf[j]:
+            return j
+    return last
+
+
+@njit(cache=True)
+def _clock():
+    with objmode(now="float64"):
+        now = time.perf_counter()
+    return now
+
+
+@njit(cache=True)
+def _evaluate(q, table, step_cap, episodes, env_stream, policy_stream):
+    start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
+    n_actions = q.shape[1]
+    cap = step_cap if step_limit == 0 or step_cap < step_limit else step_limit
+    total = 0.0
+    for _ in range(episodes):
+        s = sample_start(start_cdf, env_stream)
+        for _ in range(cap):
+            a = greedy_action(q, s, policy_stream)
+            j = sample_outcome(offsets, cdf, s * n_actions + a, env_stream)
+            total += reward[j]
+            s = next_state[j]
+            if terminated[j]:
+                break
+    return total / episodes
+
+
+@njit(cache=True)
+def run_table_trial(
+    act,
+    observe,
+    arrays,
+    hyper,
+    counters,
+    agent_stream,
+    table,
+    env_stream,
+    eval_env_stream,
+    eval_stream,
+    budget,
+    every,
+    eval_episodes,
+    step_cap,
+    window,
+    rows,
+    episode_returns,
+    episode_lengths,
+):
+    """Run the trial; fill `rows` (n_points x 8, the columns of METRIC_COLUMNS) and the episode arrays.
+
+    `table` is (start_cdf, offsets, cdf, next_state, reward, terminated, step_limit). Returns the number of
+    finished training episodes.
+    """
+    start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
+    q = arrays[0]
+    n_actions = q.shape[1]
+    started = _clock()
+    n_episodes = 0
+    point = 0
+    s = sample_start(start_cdf, env_stream)
+    episode_return = 0.0
+    episode_length = 0
+    for step in range(budget + 1):
+        if step > 0:
+            a = act(arrays, hyper, s, agent_stream)
+            j = sample_outcome(offsets, cdf, s * n_actions + a, env_stream)
+            s2 = next_state[j]
+            done = terminated[j]
+            observe(arrays, hyper, counters, s, a, reward[j], s2, done, agent_stream)
+            episode_return += reward[j]
+            episode_length += 1
+            s = s2
+            if done or (step_limit > 0 and episode_length >= step_limit):
+                episode_returns[n_episodes] = episode_return
+                episode_lengths[n_episodes] = episode_length
+                n_episodes += 1
+                episode_return = 0.0
+                episode_length = 0
+                s = sample_start(start_cdf, env_stream)
+        if step % every == 0:
+            rows[point, REAL_STEPS] = step
+            rows[point, EPISODES] = n_episodes
+            rows[point, EVAL_RETURN] = _evaluate(q, table, step_cap, eval_episodes, eval_env_stream, eval_stream)
+            if n_episodes == 0:
+                rows[point, TRAIN_RETURN] = np.nan
+            else:
+                first = n_episodes - window if n_episodes > window else 0
+                rows[point, TRAIN_RETURN] = episode_returns[first:n_episodes].mean()
+            rows[point, REAL_UPDATES] = counters[0]
+            rows[point, PLANNING_UPDATES] = counters[1]
+            rows[point, MODEL_UPDATES] = counters[2]
+            rows[point, WALL] = _clock() - started
+            point += 1
+    return n_episodes

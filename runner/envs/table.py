@@ -1,0 +1,108 @@
+"""Environments whose dynamics are a known transition table, converted once into flat arrays.
+
+Such environments (the study's grid maps; gymnasium's FrozenLake, CliffWalking and Taxi) can run a whole trial in
+compiled code. Only classes whose `step` samples exactly from `P` qualify, behind no wrapper other than those
+`gymnasium.make` adds; anything else (e.g. Taxi's `fickle_passenger`, which changes the state outside the table)
+stays on the gymnasium path.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import gymnasium as gym
+import numpy as np
+from gymnasium.envs.toy_text.cliffwalking import CliffWalkingEnv
+from gymnasium.envs.toy_text.frozen_lake import FrozenLakeEnv
+from gymnasium.envs.toy_text.taxi import TaxiEnv
+from gymnasium.wrappers import OrderEnforcing, PassiveEnvChecker, TimeLimit
+
+from runner.envs.grid import GridWorld
+from runner.envs.sources import env_sizes
+
+__all__ = ["TransitionTable", "table_from_env", "why_not_table_backed"]
+
+_TABLE_STEP_CLASSES = (FrozenLakeEnv, CliffWalkingEnv, TaxiEnv, GridWorld)
+_NEUTRAL_WRAPPERS = (TimeLimit, OrderEnforcing, PassiveEnvChecker)
+
+
+@dataclass(frozen=True)
+class TransitionTable:
+    """Outcomes of every (state, action) in compressed rows: pair p = s * n_actions + a owns entries
+    `offsets[p]:offsets[p + 1]` of `cdf` (cumulative probability, last one exactly 1), `next_state`,
+    `reward` and `terminated`. `start_cdf` is the cumulative start distribution; `step_limit` 0 means none."""
+
+    n_states: int
+    n_actions: int
+    start_cdf: np.ndarray
+    offsets: np.ndarray
+    cdf: np.ndarray
+    next_state: np.ndarray
+    reward: np.ndarray
+    terminated: np.ndarray
+    step_limit: int
+
+
+def why_not_table_backed(env: gym.Env) -> str | None:
+    """None when the environment's steps are exactly its table's; else the reason in a few words."""
+    layer = env
+    while isinstance(layer, gym.Wrapper):
+        if not isinstance(layer, _NEUTRAL_WRAPPERS):
+            return f"wrapper {type(layer).__name__} may change steps"
+        layer = layer.env
+    if not isinstance(layer, _TABLE_STEP_CLASSES):
+        return f"{type(layer).__name__} is not a known table-stepped environment"
+    if getattr(layer, "fickle_passenger", False):
+        return "Taxi's fickle_passenger changes the destination outside the transition table"
+    return None
+
+
+def _step_limit(env: gym.Env) -> int:
+    layer = env
+    while isinstance(layer, gym.Wrapper):
+        if isinstance(layer, TimeLimit):
+            return int(layer._max_episode_steps)
+        layer = layer.env
+    return 0
+
+
+def _closed_cdf(probabilities) -> np.ndarray:
+    """Cumulative probabilities whose entries from the last positive one on are exactly 1.
+
+    Rounding would otherwise leave a sliver of probability on outcomes that cannot happen.
+    """
+    probs = np.asarray(probabilities, dtype=np.float64)
+    cdf = np.cumsum(probs)
+    cdf[np.flatnonzero(probs > 0)[-1] :] = 1.0
+    return cdf
+
+
+def table_from_env(env: gym.Env) -> TransitionTable:
+    """Convert a table-backed environment's `P` and `initial_state_distrib` into flat arrays."""
+    reason = why_not_table_backed(env)
+    if reason is not None:
+        raise ValueError(f"not table-backed: {reason}")
+    n_states, n_actions = env_sizes(env)
+    base = env.unwrapped
+    offsets = np.zeros(n_states * n_actions + 1, dtype=np.int64)
+    cdf, nxt, reward, terminated = [], [], [], []
+    for s in range(n_states):
+        for a in range(n_actions):
+            outcomes = base.P[s][a]
+            cdf.extend(_closed_cdf([o[0] for o in outcomes]))
+            nxt.extend(int(o[1]) for o in outcomes)
+            reward.extend(float(o[2]) for o in outcomes)
+            terminated.extend(bool(o[3]) for o in outcomes)
+            offsets[s * n_actions + a + 1] = len(cdf)
+    start = _closed_cdf(base.initial_state_distrib)
+    return TransitionTable(
+        n_states=n_states,
+        n_actions=n_actions,
+        start_cdf=start,
+        offsets=offsets,
+        cdf=np.asarray(cdf, dtype=np.float64),
+        next_state=np.asarray(nxt, dtype=np.int64),
+        reward=np.asarray(reward, dtype=np.float64),
+        terminated=np.asarray(terminated, dtype=np.bool_),
+        step_limit=_step_limit(env),
+    )
