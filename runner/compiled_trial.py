@@ -1,24 +1,65 @@
 """A whole trial in compiled code, for environments known as a transition table.
 
 It does what `runner.trial` does step by step through gymnasium (acting, learning, planning, greedy evaluation
-on a separate environment copy, metric rows), calling the very same agent kernels, which are passed in as
-compiled functions. Only the environment's randomness differs: it comes from a compiled stream instead of
-gymnasium's generator, so the two paths are the same experiment in distribution, not bit for bit.
+on a separate environment copy, metric rows), calling the very same agent kernels. The agent kind is passed as a
+literal string and resolved to its kernels when the loop compiles: passing the kernels themselves as arguments
+would make numba's disk cache miss in every new process (the key would hold the kernels' identities), so each
+worker would compile the loop again. Only the environment's randomness differs from the gymnasium path: it
+comes from a compiled stream instead of gymnasium's generator, so the two paths are the same experiment in
+distribution, not bit for bit.
 """
 
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
+from typing import Any
 
 import numpy as np
-from numba import njit, objmode
+from numba import literally, njit, objmode, types
+from numba.extending import overload
 
+from runner.agents import agent_class
 from runner.agents.kernels import greedy_action
 from runner.streams import uniform
 
-__all__ = ["run_table_trial", "sample_outcome", "sample_start"]
+__all__ = ["run_kind_trial", "run_table_trial", "sample_outcome", "sample_start"]
 
 REAL_STEPS, EPISODES, EVAL_RETURN, TRAIN_RETURN, REAL_UPDATES, PLANNING_UPDATES, MODEL_UPDATES, WALL = range(8)
+
+
+def agent_act(kind, arrays, hyper, state, stream):
+    """The act kernel of agent kind `kind` (a compile-time literal); callable only from compiled code."""
+    raise NotImplementedError("agent_act is resolved inside compiled code")
+
+
+def agent_observe(kind, arrays, hyper, counters, state, action, reward, next_state, terminated, stream):
+    """The observe kernel of agent kind `kind` (a compile-time literal); callable only from compiled code."""
+    raise NotImplementedError("agent_observe is resolved inside compiled code")
+
+
+@overload(agent_act)
+def _agent_act(kind, arrays, hyper, state, stream):
+    if not isinstance(kind, types.StringLiteral):
+        return None
+    kernel = agent_class(kind.literal_value).act_kernel
+
+    def impl(kind, arrays, hyper, state, stream):
+        return kernel(arrays, hyper, state, stream)
+
+    return impl
+
+
+@overload(agent_observe)
+def _agent_observe(kind, arrays, hyper, counters, state, action, reward, next_state, terminated, stream):
+    if not isinstance(kind, types.StringLiteral):
+        return None
+    kernel = agent_class(kind.literal_value).observe_kernel
+
+    def impl(kind, arrays, hyper, counters, state, action, reward, next_state, terminated, stream):
+        kernel(arrays, hyper, counters, state, action, reward, next_state, terminated, stream)
+
+    return impl
 
 
 @njit(cache=True)
@@ -72,8 +113,7 @@ def _evaluate(q, table, step_cap, episodes, env_stream, policy_stream):
 
 @njit(cache=True)
 def run_table_trial(
-    act,
-    observe,
+    kind,
     arrays,
     hyper,
     counters,
@@ -91,7 +131,8 @@ def run_table_trial(
     episode_returns,
     episode_lengths,
 ):
-    """Run the trial; fill `rows` (n_points x 8, the columns of METRIC_COLUMNS) and the episode arrays.
+    """Run the trial of agent kind `kind`; fill `rows` (n_points x 8, the columns of METRIC_COLUMNS) and the
+    episode arrays.
 
     `table` is (start_cdf, offsets, cdf, next_state, reward, terminated, step_limit). Returns the number of
     finished training episodes.
@@ -107,11 +148,11 @@ def run_table_trial(
     episode_length = 0
     for step in range(budget + 1):
         if step > 0:
-            a = act(arrays, hyper, s, agent_stream)
+            a = agent_act(literally(kind), arrays, hyper, s, agent_stream)
             j = sample_outcome(offsets, cdf, s * n_actions + a, env_stream)
             s2 = next_state[j]
             done = terminated[j]
-            observe(arrays, hyper, counters, s, a, reward[j], s2, done, agent_stream)
+            agent_observe(literally(kind), arrays, hyper, counters, s, a, reward[j], s2, done, agent_stream)
             episode_return += reward[j]
             episode_length += 1
             s = s2
@@ -137,3 +178,24 @@ def run_table_trial(
             rows[point, WALL] = _clock() - started
             point += 1
     return n_episodes
+
+
+_ENTRY_POINTS: dict[str, Callable[..., int]] = {}
+
+
+def run_kind_trial(kind: str, *args: Any) -> int:
+    """Call `run_table_trial(kind, *args)` from Python without numba's per-call literal dispatch.
+
+    The first call for a kind goes through the dispatcher, which compiles the kind's loop or loads it from the
+    disk cache; later calls go straight to that compiled loop's entry point, saving tens of milliseconds of
+    dispatch per trial (the loop itself often takes less).
+    """
+    entry = _ENTRY_POINTS.get(kind)
+    if entry is not None:
+        return entry(kind, *args)
+    result = run_table_trial(kind, *args)
+    for signature, compiled in run_table_trial.overloads.items():
+        first = signature[0]
+        if isinstance(first, types.StringLiteral) and first.literal_value == kind:
+            _ENTRY_POINTS[kind] = compiled.entry_point
+    return result

@@ -8,6 +8,8 @@ else step by step through gymnasium. Both call the same agent kernels.
 
 from __future__ import annotations
 
+import functools
+import json
 import time
 from collections import deque
 from dataclasses import dataclass
@@ -17,9 +19,9 @@ import gymnasium as gym
 import numpy as np
 
 from runner.agents import COUNTER_NAMES, TabularAgent, make_agent
-from runner.compiled_trial import run_table_trial
+from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, env_sizes
-from runner.envs.table import table_from_env, why_not_table_backed
+from runner.envs.table import TransitionTable, table_from_env, why_not_table_backed
 from runner.errors import EnvironmentSourceError
 from runner.seeding import TrialStreams, trial_streams
 from runner.streams import new_stream
@@ -63,37 +65,51 @@ def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: 
     return total / episodes
 
 
+@dataclass(frozen=True)
+class _EnvFacts:
+    n_states: int
+    n_actions: int
+    not_table_reason: str | None
+    table: TransitionTable | None
+
+
+@functools.lru_cache(maxsize=16)
+def _env_facts(env_json: str) -> _EnvFacts:
+    """Sizes and transition table of an environment spec, worked out once per process."""
+    env = build_env(json.loads(env_json))
+    try:
+        n_states, n_actions = env_sizes(env)
+        reason = why_not_table_backed(env)
+        table = table_from_env(env) if reason is None else None
+    finally:
+        env.close()
+    return _EnvFacts(n_states, n_actions, reason, table)
+
+
 def run_trial(spec: dict[str, Any], path: str = "auto") -> TrialResult:
     """Run one trial spec (see `runner.plan`) on the compiled path when possible, or as `path` demands."""
     if path not in TRIAL_PATHS:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
+    facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
-    env = build_env(spec["env"])
-    try:
-        n_states, n_actions = env_sizes(env)
-        agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
-        agent.setup(n_states, n_actions, streams.agent)
-        reason = why_not_table_backed(env)
-        if path == "compiled" and reason is not None:
-            raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {reason}")
-        if path == "gymnasium" or reason is not None:
-            return _run_gymnasium(spec, env, agent, streams)
-        return _run_compiled(spec, env, agent, streams)
-    finally:
-        env.close()
+    agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
+    agent.setup(facts.n_states, facts.n_actions, streams.agent)
+    if path == "compiled" and facts.table is None:
+        raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {facts.not_table_reason}")
+    if path == "gymnasium" or facts.table is None:
+        return _run_gymnasium(spec, agent, streams)
+    return _run_compiled(spec, facts.table, agent, streams)
 
 
-def _run_compiled(spec: dict[str, Any], env: gym.Env, agent: TabularAgent, streams: TrialStreams) -> TrialResult:
+def _run_compiled(spec: dict[str, Any], t: TransitionTable, agent: TabularAgent, streams: TrialStreams) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
-    t = table_from_env(env)
     table = (t.start_cdf, t.offsets, t.cdf, t.next_state, t.reward, t.terminated, t.step_limit)
     rows = np.zeros((budget // ev["every"] + 1, len(METRIC_COLUMNS)))
     returns = np.zeros(budget, dtype=np.float64)
     lengths = np.zeros(budget, dtype=np.int64)
-    n_episodes = run_table_trial(
-        type(agent).act_kernel,
-        type(agent).observe_kernel,
+    n_episodes = run_kind_trial(
+        spec["agent"]["kind"],
         agent.arrays_,
         agent.hyper_,
         agent.counters_,
@@ -119,9 +135,10 @@ def _run_compiled(spec: dict[str, Any], env: gym.Env, agent: TabularAgent, strea
     )
 
 
-def _run_gymnasium(spec: dict[str, Any], env: gym.Env, agent: TabularAgent, streams: TrialStreams) -> TrialResult:
+def _run_gymnasium(spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
+    env = build_env(spec["env"])
     eval_env = build_env(spec["env"])
     eval_env.reset(seed=streams.reset_seed(streams.eval_env))
     n_points = budget // ev["every"] + 1
@@ -164,6 +181,7 @@ def _run_gymnasium(spec: dict[str, Any], env: gym.Env, agent: TabularAgent, stre
                 record(point, step)
                 point += 1
     finally:
+        env.close()
         eval_env.close()
     return TrialResult(
         rows=rows,

@@ -66,14 +66,18 @@ def _step_limit(env: gym.Env) -> int:
     return 0
 
 
-def _closed_cdf(probabilities) -> np.ndarray:
-    """Cumulative probabilities whose entries from the last positive one on are exactly 1.
-
-    Rounding would otherwise leave a sliver of probability on outcomes that cannot happen.
-    """
-    probs = np.asarray(probabilities, dtype=np.float64)
-    cdf = np.cumsum(probs)
-    cdf[np.flatnonzero(probs > 0)[-1] :] = 1.0
+def _closed_cdfs(probabilities: np.ndarray, offsets: np.ndarray) -> np.ndarray:
+    """Cumulative probabilities within each group `offsets[i]:offsets[i + 1]`, exactly 1 from each group's last
+    positive entry on (rounding would otherwise leave a sliver of probability on outcomes that cannot happen)."""
+    counts = np.diff(offsets)
+    group = np.repeat(np.arange(counts.size), counts)
+    running = np.cumsum(probabilities)
+    before = np.concatenate(([0.0], running))[offsets[:-1]]
+    cdf = running - before[group]
+    index = np.arange(probabilities.size)
+    last_positive = np.full(counts.size, -1, dtype=np.int64)
+    np.maximum.at(last_positive, group, np.where(probabilities > 0, index, -1))
+    cdf[index >= last_positive[group]] = 1.0
     return cdf
 
 
@@ -83,26 +87,21 @@ def table_from_env(env: gym.Env) -> TransitionTable:
     if reason is not None:
         raise ValueError(f"not table-backed: {reason}")
     n_states, n_actions = env_sizes(env)
-    base = env.unwrapped
-    offsets = np.zeros(n_states * n_actions + 1, dtype=np.int64)
-    cdf, nxt, reward, terminated = [], [], [], []
-    for s in range(n_states):
-        for a in range(n_actions):
-            outcomes = base.P[s][a]
-            cdf.extend(_closed_cdf([o[0] for o in outcomes]))
-            nxt.extend(int(o[1]) for o in outcomes)
-            reward.extend(float(o[2]) for o in outcomes)
-            terminated.extend(bool(o[3]) for o in outcomes)
-            offsets[s * n_actions + a + 1] = len(cdf)
-    start = _closed_cdf(base.initial_state_distrib)
+    table = env.unwrapped.P
+    outcomes = [table[s][a] for s in range(n_states) for a in range(n_actions)]
+    offsets = np.zeros(len(outcomes) + 1, dtype=np.int64)
+    offsets[1:] = np.cumsum([len(o) for o in outcomes])
+    flat = [entry for pair in outcomes for entry in pair]
+    probs = np.array([e[0] for e in flat], dtype=np.float64)
+    start = np.asarray(env.unwrapped.initial_state_distrib, dtype=np.float64)
     return TransitionTable(
         n_states=n_states,
         n_actions=n_actions,
-        start_cdf=start,
+        start_cdf=_closed_cdfs(start, np.array([0, start.size])),
         offsets=offsets,
-        cdf=np.asarray(cdf, dtype=np.float64),
-        next_state=np.asarray(nxt, dtype=np.int64),
-        reward=np.asarray(reward, dtype=np.float64),
-        terminated=np.asarray(terminated, dtype=np.bool_),
+        cdf=_closed_cdfs(probs, offsets),
+        next_state=np.array([e[1] for e in flat], dtype=np.int64),
+        reward=np.array([e[2] for e in flat], dtype=np.float64),
+        terminated=np.array([e[3] for e in flat], dtype=np.bool_),
         step_limit=_step_limit(env),
     )
