@@ -12,7 +12,7 @@ from runner.config import Study, load_study
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
 from runner.provenance import platform_text, versions
-from runner.schedule import TrialOutcome, run_parallel, warm_up
+from runner.schedule import TrialOutcome, needed_kernels, run_parallel, warm_up
 from runner.store import Store, study_dir
 
 __all__ = ["RunSummary", "run_study", "study_facts"]
@@ -87,7 +87,7 @@ def run_study(
             platform=platform_text(),
             jobs=n_jobs,
         )
-        warm_up({t.spec["agent"]["kind"] for t in todo})
+        warm_up(needed_kernels(todo, trial_path))
         progress = Progress(len(todo))
 
         def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:

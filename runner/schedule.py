@@ -17,9 +17,9 @@ from joblib import Parallel, delayed
 
 from runner.agents import make_agent
 from runner.plan import SPEC_FORMAT, PlannedTrial
-from runner.trial import run_trial
+from runner.trial import resolve_path, run_trial
 
-__all__ = ["TrialOutcome", "execute_trial", "run_parallel", "warm_up"]
+__all__ = ["TrialOutcome", "execute_trial", "needed_kernels", "run_parallel", "warm_up"]
 
 _WARM_UP_GRID = {
     "source": "grid",
@@ -65,13 +65,13 @@ def execute_trial(trial_id: str, spec: dict[str, Any], path: str = "auto", in_wo
         return TrialOutcome(trial_id, None, "", type(err).__name__, str(err), traceback.format_exc())
 
 
-def warm_up(kinds: set[str]) -> None:
-    """Compile (or load from numba's disk cache) every kernel the agent kinds use, on both trial paths.
+def warm_up(needs: set[tuple[str, str]]) -> None:
+    """Compile (or load from numba's disk cache) the kernels of each (agent kind, trial path) needed.
 
     Done once in the parent before dispatch, so worker processes load the cached machine code instead of
     compiling it again.
     """
-    for kind in sorted(kinds):
+    for kind, path in sorted(needs):
         spec = {
             "format": SPEC_FORMAT,
             "env": _WARM_UP_GRID,
@@ -80,8 +80,12 @@ def warm_up(kinds: set[str]) -> None:
             "real_steps": 4,
             "evaluation": {"every": 2, "episodes": 1, "step_cap": 3, "training_window": 2},
         }
-        for path in ("compiled", "gymnasium"):
-            run_trial(spec, path)
+        run_trial(spec, path)
+
+
+def needed_kernels(trials: list[PlannedTrial], path: str) -> set[tuple[str, str]]:
+    """The (agent kind, trial path) pairs a list of trials will use."""
+    return {(t.spec["agent"]["kind"], resolve_path(t.spec, path)) for t in trials}
 
 
 def run_parallel(

@@ -26,7 +26,7 @@ from runner.errors import EnvironmentSourceError
 from runner.seeding import TrialStreams, trial_streams
 from runner.streams import new_stream
 
-__all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "run_trial"]
+__all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
 
 METRIC_COLUMNS = (
     "real_steps",
@@ -86,17 +86,24 @@ def _env_facts(env_json: str) -> _EnvFacts:
     return _EnvFacts(n_states, n_actions, reason, table)
 
 
-def run_trial(spec: dict[str, Any], path: str = "auto") -> TrialResult:
-    """Run one trial spec (see `runner.plan`) on the compiled path when possible, or as `path` demands."""
+def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
+    """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can)."""
     if path not in TRIAL_PATHS:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
+    facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
+    if path == "compiled" and facts.table is None:
+        raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {facts.not_table_reason}")
+    return "gymnasium" if path == "gymnasium" or facts.table is None else "compiled"
+
+
+def run_trial(spec: dict[str, Any], path: str = "auto") -> TrialResult:
+    """Run one trial spec (see `runner.plan`) on the compiled path when possible, or as `path` demands."""
+    chosen = resolve_path(spec, path)
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
     agent.setup(facts.n_states, facts.n_actions, streams.agent)
-    if path == "compiled" and facts.table is None:
-        raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {facts.not_table_reason}")
-    if path == "gymnasium" or facts.table is None:
+    if chosen == "gymnasium":
         return _run_gymnasium(spec, agent, streams)
     return _run_compiled(spec, facts.table, agent, streams)
 
