@@ -182,6 +182,11 @@ def run_table_trial(
 
 _ENTRY_POINTS: dict[str, Callable[..., int]] = {}
 
+_run_table_trial_uncached = njit(cache=False)(run_table_trial.py_func)
+"""The same loop for agent kinds from the user's own modules: numba's disk cache would not notice when the
+user edits their kernels (it only watches the file of the cached function), so those loops compile afresh in
+each process."""
+
 
 def run_kind_trial(kind: str, *args: Any) -> int:
     """Call `run_table_trial(kind, *args)` from Python without numba's per-call literal dispatch.
@@ -193,8 +198,9 @@ def run_kind_trial(kind: str, *args: Any) -> int:
     entry = _ENTRY_POINTS.get(kind)
     if entry is not None:
         return entry(kind, *args)
-    result = run_table_trial(kind, *args)
-    for signature, compiled in run_table_trial.overloads.items():
+    loop = _run_table_trial_uncached if ":" in kind else run_table_trial
+    result = loop(kind, *args)
+    for signature, compiled in loop.overloads.items():
         first = signature[0]
         if isinstance(first, types.StringLiteral) and first.literal_value == kind:
             _ENTRY_POINTS[kind] = compiled.entry_point

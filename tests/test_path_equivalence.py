@@ -166,3 +166,25 @@ def test_time_limit_is_taken_from_the_environment():
         == gym.spec("FrozenLake-v1").max_episode_steps
     )
     assert table_from_env(build_env(SLIPPERY_GRID)).step_limit == 40
+
+
+class OwnQLearning(QLearning):
+    """A user's agent kind, reached through its 'module:Class' entry point."""
+
+
+def test_a_users_agent_kind_runs_on_the_compiled_path():
+    def spec(kind):
+        return {
+            "format": 1,
+            "env": SLIPPERY_GRID,
+            "agent": {"kind": kind, "params": QLearning().get_params()},
+            "seed": 4,
+            "real_steps": 500,
+            "evaluation": {"every": 100, "episodes": 3, "step_cap": 40, "training_window": 5},
+        }
+
+    own = run_trial(spec(f"{__name__}:OwnQLearning"), "compiled")
+    builtin = run_trial(spec("q_learning"), "compiled")
+    assert own.trial_path == "compiled"
+    for column in ("eval_return", "episodes", "real_updates"):
+        assert np.array_equal(own.rows[column], builtin.rows[column])
