@@ -8,11 +8,18 @@ from collections import Counter
 from pathlib import Path
 
 from runner import __version__
-from runner.errors import ConfigError, EnvironmentSourceError, StoreError, UnknownKindError
+from runner.errors import (
+    ClusterError,
+    ConfigError,
+    EnvironmentSourceError,
+    StoreError,
+    StudyBusyError,
+    UnknownKindError,
+)
 
 __all__ = ["main"]
 
-_USER_ERRORS = (ConfigError, EnvironmentSourceError, StoreError, UnknownKindError)
+_USER_ERRORS = (ClusterError, ConfigError, EnvironmentSourceError, StoreError, StudyBusyError, UnknownKindError)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -36,6 +43,30 @@ def _parser() -> argparse.ArgumentParser:
         "through gymnasium; gymnasium forces the step-by-step path",
     )
 
+    run.add_argument(
+        "--trial-timeout",
+        type=float,
+        default=0.0,
+        metavar="SECONDS",
+        help="store a trial as failed when it runs longer than this many wall seconds (default: no limit)",
+    )
+    run.add_argument("--start-over", action="store_true", help="delete the study's stored results first")
+    run.add_argument("--failed-only", action="store_true", help="run only trials that failed before")
+    run.add_argument(
+        "--cluster",
+        metavar="ADDRESS",
+        default=None,
+        help="run trials on the dask.distributed scheduler at ADDRESS (e.g. tcp://10.0.0.5:8786); "
+        "needs pip install '.[cluster]'",
+    )
+
+    rerun = sub.add_parser("rerun", help="re-run stored trials and check that their rows come out bit for bit")
+    rerun.add_argument("folder", help="the study's results folder, e.g. results/warehouse-spills")
+    rerun.add_argument("trial_ids", nargs="*", metavar="TRIAL_ID", help="trial ids (or unique prefixes)")
+    rerun.add_argument("--sample", type=int, default=None, metavar="K", help="check K stored trials at random")
+    rerun.add_argument("--all", action="store_true", help="check every stored trial")
+    rerun.add_argument("--seed", type=int, default=0, help="seed of the random sample (default 0)")
+
     check = sub.add_parser("check", help="validate a study and print how many trials it declares")
     check.add_argument("study", help="the study YAML file")
 
@@ -58,6 +89,8 @@ def main(argv: list[str] | None = None) -> int:
             return _check(args)
         if args.command == "report":
             return _report(Path(args.folder), args.out)
+        if args.command == "rerun":
+            return _rerun(args)
         return _list(args.what)
     except _USER_ERRORS as err:
         print(f"stepmeter: error: {err}", file=sys.stderr)
@@ -67,14 +100,23 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from runner.run import run_study
+    from runner.run import RunOptions, run_study
 
     if args.jobs is not None and args.jobs < 1:
         print(f"stepmeter: error: --jobs: expected a whole number >= 1, got {args.jobs}", file=sys.stderr)
         return 2
-    summary = run_study(
-        args.study, results_root=args.results, jobs=args.jobs, command=" ".join(sys.argv), trial_path=args.path
+    if args.trial_timeout < 0:
+        print(f"stepmeter: error: --trial-timeout: expected seconds >= 0, got {args.trial_timeout}", file=sys.stderr)
+        return 2
+    options = RunOptions(
+        jobs=args.jobs,
+        trial_path=args.path,
+        time_limit=args.trial_timeout,
+        start_over=args.start_over,
+        failed_only=args.failed_only,
+        cluster=args.cluster,
     )
+    summary = run_study(args.study, results_root=args.results, options=options, command=" ".join(sys.argv))
     if summary.interrupted:
         print(
             f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "
@@ -90,6 +132,24 @@ def _run(args: argparse.Namespace) -> int:
         print(f"{len(summary.failed)} trials failed; their errors are stored in {summary.folder}", file=sys.stderr)
         return 1
     return 0
+
+
+def _rerun(args: argparse.Namespace) -> int:
+    from runner.rerun import rerun_trials, select_trials
+
+    if not (args.trial_ids or args.sample or args.all):
+        print("stepmeter: error: rerun: give TRIAL_ID(s), --sample K or --all", file=sys.stderr)
+        return 2
+    ids = select_trials(Path(args.folder), args.trial_ids, args.sample, args.all, args.seed)
+    checks = rerun_trials(Path(args.folder), ids)
+    for check in checks:
+        verdict = "same rows bit for bit" if check.matched else f"DIFFERENT: {check.difference}"
+        print(f"{check.trial_id}  {check.label}  ({check.trial_path} path): {verdict}")
+        for line in check.provenance:
+            print(f"    differs from the stored run: {line}")
+    mismatched = sum(not c.matched for c in checks)
+    print(f"{len(checks) - mismatched} of {len(checks)} re-run trials reproduced their stored rows")
+    return 1 if mismatched else 0
 
 
 def _check(args: argparse.Namespace) -> int:

@@ -127,6 +127,7 @@ def run_table_trial(
     eval_episodes,
     step_cap,
     window,
+    time_limit,
     rows,
     episode_returns,
     episode_lengths,
@@ -135,7 +136,7 @@ def run_table_trial(
     episode arrays.
 
     `table` is (start_cdf, offsets, cdf, next_state, reward, terminated, step_limit). Returns the number of
-    finished training episodes.
+    finished training episodes, or -1 when the trial ran past `time_limit` seconds (0: no limit).
     """
     start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
     q = arrays[0]
@@ -147,6 +148,8 @@ def run_table_trial(
     episode_return = 0.0
     episode_length = 0
     for step in range(budget + 1):
+        if time_limit > 0 and step % 4096 == 0 and _clock() - started > time_limit:
+            return -1
         if step > 0:
             a = agent_act(literally(kind), arrays, hyper, s, agent_stream)
             j = sample_outcome(offsets, cdf, s * n_actions + a, env_stream)

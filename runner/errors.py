@@ -1,6 +1,14 @@
 """Exceptions raised by stepmeter; the command line turns each into one clear line."""
 
-__all__ = ["ConfigError", "EnvironmentSourceError", "StoreError", "StudyInterrupted", "UnknownKindError"]
+__all__ = [
+    "ClusterError",
+    "ConfigError",
+    "EnvironmentSourceError",
+    "StoreError",
+    "StudyBusyError",
+    "TrialTimeout",
+    "UnknownKindError",
+]
 
 
 class ConfigError(ValueError):
@@ -19,5 +27,13 @@ class StoreError(RuntimeError):
     """A results folder is missing, unreadable or not a stepmeter store."""
 
 
-class StudyInterrupted(KeyboardInterrupt):
-    """The user stopped a run; finished trials are kept."""
+class ClusterError(RuntimeError):
+    """The cluster backend is not installed or its scheduler cannot be reached."""
+
+
+class StudyBusyError(RuntimeError):
+    """Another run holds the study's lock; the message names its process."""
+
+
+class TrialTimeout(TimeoutError):
+    """A trial ran past the per-trial wall-clock limit."""

@@ -9,13 +9,14 @@ from pathlib import Path
 from typing import TextIO
 
 from runner.config import Study, load_study
+from runner.lock import StudyLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
 from runner.provenance import platform_text, versions
 from runner.schedule import TrialOutcome, needed_kernels, run_parallel, warm_up
-from runner.store import Store, study_dir
+from runner.store import Store, remove_store, study_dir
 
-__all__ = ["RunSummary", "run_study", "study_facts"]
+__all__ = ["RunOptions", "RunSummary", "run_study", "study_facts"]
 
 
 @dataclass
@@ -51,63 +52,99 @@ def default_jobs() -> int:
         return os.cpu_count() or 1
 
 
+@dataclass(frozen=True)
+class RunOptions:
+    """How to run a study: processes, trial path, per-trial wall limit, and which trials."""
+
+    jobs: int | None = None
+    trial_path: str = "auto"
+    time_limit: float = 0.0
+    start_over: bool = False
+    failed_only: bool = False
+    cluster: str | None = None
+
+
 def run_study(
     path: str | Path,
     *,
     results_root: str | Path = "results",
-    jobs: int | None = None,
+    options: RunOptions = RunOptions(),
     command: str = "",
     stream: TextIO | None = None,
-    trial_path: str = "auto",
 ) -> RunSummary:
-    """Run every declared trial that is not stored yet; finished trials are committed one by one."""
+    """Run every declared trial that is not stored yet; finished trials are committed one by one.
+
+    Only one run may write a study at a time (`StudyLock`); a second one is refused.
+    """
     out = stream or sys.stdout
     study = load_study(path)
     trials = plan_trials(study)
     folder = study_dir(results_root, study.name)
-    with Store(folder, create=True) as store:
-        store.declare(study_facts(study), trials)
-        stored = store.stored_ids()
-        todo = [t for t in trials if t.trial_id not in stored]
-        summary = RunSummary(folder, len(trials), len(trials) - len(todo))
-        n_jobs = max(1, min(jobs or default_jobs(), len(todo) or 1))
-        print(
-            f"study {study.name}: {len(trials)} trials declared, {summary.already_stored} already stored, "
-            f"{len(todo)} to run on {n_jobs} process{'es' if n_jobs > 1 else ''}",
-            file=out,
-        )
-        if not todo:
-            return summary
-        run_id = store.begin_run(
-            command=command or " ".join(sys.argv),
-            study_file=str(Path(path).resolve()),
-            study_text=study.text,
-            study_hash=study.text_hash,
-            versions=versions(),
-            platform=platform_text(),
-            jobs=n_jobs,
-        )
-        warm_up(needed_kernels(todo, trial_path))
-        progress = Progress(len(todo))
+    with StudyLock(folder) as lock:
+        if lock.stale_owner:
+            print(f"cleared a stale lock left by a run that no longer exists ({lock.stale_owner})", file=out)
+        if options.start_over:
+            remove_store(folder)
+        with Store(folder, create=True) as store:
+            return _run_locked(study, trials, store, folder, path, options, command, out)
 
-        def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
-            if outcome.rows is None:
-                store.write_failure(trial.trial_id, run_id, outcome.error_type, outcome.message, outcome.traceback)
-                summary.failed.append(
-                    f"{trial.env_label} / {trial.agent_label} / seed {trial.seed}: "
-                    f"{outcome.error_type}: {outcome.message}"
-                )
-            else:
-                store.write_trial(trial, run_id, outcome.rows, outcome.trial_path)
-            progress.advance(failed=outcome.rows is None)
 
-        try:
-            run_parallel(todo, n_jobs, keep, trial_path)
-        except KeyboardInterrupt:
-            summary.interrupted = True
-        finally:
-            progress.close()
-            summary.ran = store.count_trials(run_id)
-            outcome = "interrupted" if summary.interrupted else ("failures" if summary.failed else "complete")
-            store.end_run(run_id, outcome)
+def _run_locked(
+    study: Study,
+    trials: list[PlannedTrial],
+    store: Store,
+    folder: Path,
+    path: str | Path,
+    options: RunOptions,
+    command: str,
+    out: TextIO,
+) -> RunSummary:
+    store.declare(study_facts(study), trials)
+    stored = store.stored_ids()
+    todo = [t for t in trials if t.trial_id not in stored]
+    if options.failed_only:
+        failed = store.failed_ids()
+        todo = [t for t in todo if t.trial_id in failed]
+    summary = RunSummary(folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
+    n_jobs = max(1, min(options.jobs or default_jobs(), len(todo) or 1))
+    where = f"the cluster at {options.cluster}" if options.cluster else f"{n_jobs} process{'es' if n_jobs > 1 else ''}"
+    which = "previously failed trials" if options.failed_only else "to run"
+    print(
+        f"study {study.name}: {len(trials)} trials declared, {summary.already_stored} already stored, "
+        f"{len(todo)} {which} on {where}",
+        file=out,
+    )
+    if not todo:
+        return summary
+    run_id = store.begin_run(
+        command=command or " ".join(sys.argv),
+        study_file=str(Path(path).resolve()),
+        study_text=study.text,
+        study_hash=study.text_hash,
+        versions=versions(),
+        platform=platform_text(),
+        jobs=n_jobs,
+    )
+    warm_up(needed_kernels(todo, options.trial_path))
+    progress = Progress(len(todo))
+
+    def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
+        if outcome.rows is None:
+            store.write_failure(trial.trial_id, run_id, outcome.error_type, outcome.message, outcome.traceback)
+            summary.failed.append(
+                f"{trial.env_label} / {trial.agent_label} / seed {trial.seed}: {outcome.error_type}: {outcome.message}"
+            )
+        else:
+            store.write_trial(trial, run_id, outcome.rows, outcome.trial_path)
+        progress.advance(failed=outcome.rows is None)
+
+    try:
+        run_parallel(todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster)
+    except KeyboardInterrupt:
+        summary.interrupted = True
+    finally:
+        progress.close()
+        summary.ran = store.count_trials(run_id)
+        outcome = "interrupted" if summary.interrupted else ("failures" if summary.failed else "complete")
+        store.end_run(run_id, outcome)
     return summary

@@ -7,6 +7,7 @@ load them instead of compiling them again.
 from __future__ import annotations
 
 import signal
+import threading
 import traceback
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -46,17 +47,24 @@ class TrialOutcome:
 
 
 def _ignore_interrupts() -> None:
-    """In a worker process, leave Ctrl-C to the parent, which stops the pool and keeps finished trials."""
+    """In a worker process, leave Ctrl-C to the parent, which stops the pool and keeps finished trials.
+
+    Cluster workers run tasks in threads, where signals cannot be set (nor arrive); they are left alone.
+    """
+    if threading.current_thread() is not threading.main_thread():
+        return
     if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
-def execute_trial(trial_id: str, spec: dict[str, Any], path: str = "auto", in_worker: bool = False) -> TrialOutcome:
-    """Run one trial; any exception or non-finite metric becomes a failed outcome."""
+def execute_trial(
+    trial_id: str, spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0, in_worker: bool = False
+) -> TrialOutcome:
+    """Run one trial; any exception, time-out or non-finite metric becomes a failed outcome."""
     if in_worker:
         _ignore_interrupts()
     try:
-        result = run_trial(spec, path)
+        result = run_trial(spec, path, time_limit)
         for name, column in result.rows.items():
             if name != "train_return" and not np.all(np.isfinite(column)):
                 raise FloatingPointError(f"metric {name!r} has a non-finite value")
@@ -93,15 +101,23 @@ def run_parallel(
     jobs: int,
     on_outcome: Callable[[PlannedTrial, TrialOutcome], None],
     path: str = "auto",
+    time_limit: float = 0.0,
+    cluster: str | None = None,
 ) -> None:
-    """Run every trial on `jobs` processes (1: in this process), calling on_outcome as each finishes."""
+    """Run every trial on `jobs` local processes (1: in this process) or on a dask cluster, calling on_outcome
+    in this process as each finishes, so only this process writes."""
     by_id = {t.trial_id: t for t in trials}
+    tasks = (delayed(execute_trial)(t.trial_id, t.spec, path, time_limit, in_worker=True) for t in trials)
+    if cluster:
+        from runner.cluster import run_on_cluster
+
+        for outcome in run_on_cluster(cluster, tasks):
+            on_outcome(by_id[outcome.trial_id], outcome)
+        return
     outcomes: Iterator[TrialOutcome]
     if jobs == 1:
-        outcomes = (execute_trial(t.trial_id, t.spec, path) for t in trials)
+        outcomes = (execute_trial(t.trial_id, t.spec, path, time_limit) for t in trials)
     else:
-        outcomes = Parallel(n_jobs=jobs, return_as="generator_unordered")(
-            delayed(execute_trial)(t.trial_id, t.spec, path, in_worker=True) for t in trials
-        )
+        outcomes = Parallel(n_jobs=jobs, return_as="generator_unordered")(tasks)
     for outcome in outcomes:
         on_outcome(by_id[outcome.trial_id], outcome)

@@ -9,6 +9,7 @@ one transaction, so a trial is either fully stored or absent. Only the parent pr
 from __future__ import annotations
 
 import json
+import shutil
 import sqlite3
 from collections.abc import Iterable
 from datetime import UTC, datetime
@@ -21,7 +22,7 @@ from runner.errors import StoreError
 from runner.plan import PlannedTrial
 from runner.trial import METRIC_COLUMNS
 
-__all__ = ["DB_NAME", "SCHEMA_VERSION", "Store", "study_dir"]
+__all__ = ["DB_NAME", "SCHEMA_VERSION", "Store", "remove_store", "study_dir"]
 
 DB_NAME = "study.sqlite"
 SCHEMA_VERSION = 1
@@ -62,6 +63,16 @@ def study_dir(results_root: str | Path, study_name: str) -> Path:
     if target.parent != root:
         raise StoreError(f"study name {study_name!r} would leave the results folder {root}")
     return target
+
+
+def remove_store(folder: str | Path) -> None:
+    """Delete a study's database and report so the study starts over (the lock file stays)."""
+    folder = Path(folder)
+    for name in (DB_NAME, f"{DB_NAME}-wal", f"{DB_NAME}-shm"):
+        (folder / name).unlink(missing_ok=True)
+    report = folder / "report"
+    if report.is_dir():
+        shutil.rmtree(report)
 
 
 def _now() -> str:
@@ -168,6 +179,15 @@ class Store:
     def stored_ids(self) -> set[str]:
         """Ids of the trials already finished and stored."""
         return {r[0] for r in self.conn.execute("SELECT trial_id FROM trials")}
+
+    def failed_ids(self) -> set[str]:
+        """Ids of trials that failed and have no stored result."""
+        return {
+            r[0]
+            for r in self.conn.execute(
+                "SELECT trial_id FROM failures WHERE trial_id NOT IN (SELECT trial_id FROM trials)"
+            )
+        }
 
     def count_trials(self, run_id: int) -> int:
         """How many trials a run stored."""

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from runner.analysis.frames import load_results, missing_trials, open_store
+from runner.analysis.frames import load_results, missing_trials, open_store, undeclared_trials
 from runner.analysis.report import ReportOutput, StudyFacts, write_report
 
 __all__ = ["report_study"]
@@ -33,4 +33,10 @@ def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple
     note = f"{declared - len(missing)} of {declared} declared trials have stored results"
     if len(missing):
         note += f"; {len(missing)} missing (not run yet, interrupted or failed): run the study again to add them"
+    extra = undeclared_trials(folder)
+    if len(extra):
+        kinds = sorted({f"{e} / {a}" for e, a in zip(extra["env"], extra["agent"], strict=True)})
+        note += f"\n{len(extra)} stored trials are no longer declared by the study file and are left out: " + "; ".join(
+            kinds
+        )
     return output, note

@@ -22,7 +22,7 @@ from runner.agents import COUNTER_NAMES, TabularAgent, make_agent
 from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, env_sizes
 from runner.envs.table import TransitionTable, table_from_env, why_not_table_backed
-from runner.errors import EnvironmentSourceError
+from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.seeding import TrialStreams, trial_streams
 from runner.streams import new_stream
 
@@ -96,19 +96,24 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
     return "gymnasium" if path == "gymnasium" or facts.table is None else "compiled"
 
 
-def run_trial(spec: dict[str, Any], path: str = "auto") -> TrialResult:
-    """Run one trial spec (see `runner.plan`) on the compiled path when possible, or as `path` demands."""
+def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0) -> TrialResult:
+    """Run one trial spec (see `runner.plan`) on the compiled path when possible, or as `path` demands.
+
+    A trial still running after `time_limit` wall seconds (0: no limit) raises TrialTimeout.
+    """
     chosen = resolve_path(spec, path)
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
     agent.setup(facts.n_states, facts.n_actions, streams.agent)
     if chosen == "gymnasium":
-        return _run_gymnasium(spec, agent, streams)
-    return _run_compiled(spec, facts.table, agent, streams)
+        return _run_gymnasium(spec, agent, streams, time_limit)
+    return _run_compiled(spec, facts.table, agent, streams, time_limit)
 
 
-def _run_compiled(spec: dict[str, Any], t: TransitionTable, agent: TabularAgent, streams: TrialStreams) -> TrialResult:
+def _run_compiled(
+    spec: dict[str, Any], t: TransitionTable, agent: TabularAgent, streams: TrialStreams, time_limit: float
+) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
     table = (t.start_cdf, t.offsets, t.cdf, t.next_state, t.reward, t.terminated, t.step_limit)
@@ -130,10 +135,13 @@ def _run_compiled(spec: dict[str, Any], t: TransitionTable, agent: TabularAgent,
         int(ev["episodes"]),
         int(ev["step_cap"]),
         int(ev["training_window"]),
+        float(time_limit),
         rows,
         returns,
         lengths,
     )
+    if n_episodes < 0:
+        raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
     return TrialResult(
         rows={name: rows[:, i].copy() for i, name in enumerate(METRIC_COLUMNS)},
         episode_returns=returns[:n_episodes].copy(),
@@ -142,7 +150,7 @@ def _run_compiled(spec: dict[str, Any], t: TransitionTable, agent: TabularAgent,
     )
 
 
-def _run_gymnasium(spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams) -> TrialResult:
+def _run_gymnasium(spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams, time_limit: float) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
     env = build_env(spec["env"])
@@ -171,6 +179,8 @@ def _run_gymnasium(spec: dict[str, Any], agent: TabularAgent, streams: TrialStre
         state = int(env.reset(seed=streams.reset_seed(streams.env))[0])
         episode_return, episode_length, point = 0.0, 0, 1
         for step in range(1, budget + 1):
+            if time_limit > 0 and step % 256 == 0 and time.perf_counter() - start > time_limit:
+                raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
             action = agent.act(state)
             next_state, reward, terminated, truncated, _ = env.step(action)
             next_state = int(next_state)

@@ -10,7 +10,7 @@ import pytest
 import runner
 from runner.config import load_study
 from runner.plan import plan_trials
-from runner.run import run_study
+from runner.run import RunOptions, run_study
 from runner.trial import METRIC_COLUMNS
 
 STUDY = """\
@@ -45,7 +45,9 @@ def _db(tmp_path):
 
 def test_rows_provenance_and_tidy_frame(tmp_path):
     path = _write(tmp_path)
-    summary = run_study(path, results_root=tmp_path / "results", jobs=1, command="stepmeter run tiny.yaml")
+    summary = run_study(
+        path, results_root=tmp_path / "results", options=RunOptions(jobs=1), command="stepmeter run tiny.yaml"
+    )
     assert (summary.planned, summary.ran, summary.failed) == (4, 4, [])
     frame = runner.load_results(tmp_path / "results" / "tiny")
     assert list(frame.columns) == ["env", "agent", "kind", "trial_id", "seed", "point", *METRIC_COLUMNS]
@@ -63,18 +65,18 @@ def test_parallel_run_stores_the_same_rows_as_a_serial_run(tmp_path):
     serial, parallel = tmp_path / "serial", tmp_path / "parallel"
     for folder, jobs in ((serial, 1), (parallel, 2)):
         folder.mkdir()
-        run_study(_write(folder), results_root=folder / "results", jobs=jobs)
+        run_study(_write(folder), results_root=folder / "results", options=RunOptions(jobs=jobs))
     a = runner.load_results(serial / "results" / "tiny").drop(columns="wall_seconds")
     b = runner.load_results(parallel / "results" / "tiny").drop(columns="wall_seconds")
     pd.testing.assert_frame_equal(a, b)
 
 
 def test_rerun_skips_stored_trials_and_new_seeds_run_alone(tmp_path):
-    run_study(_write(tmp_path), results_root=tmp_path / "results", jobs=1)
-    again = run_study(_write(tmp_path), results_root=tmp_path / "results", jobs=1)
+    run_study(_write(tmp_path), results_root=tmp_path / "results", options=RunOptions(jobs=1))
+    again = run_study(_write(tmp_path), results_root=tmp_path / "results", options=RunOptions(jobs=1))
     assert (again.already_stored, again.ran) == (4, 0)
     old_ids = {t.trial_id for t in plan_trials(load_study(_write(tmp_path)))}
-    grown = run_study(_write(tmp_path, seeds=3), results_root=tmp_path / "results", jobs=1)
+    grown = run_study(_write(tmp_path, seeds=3), results_root=tmp_path / "results", options=RunOptions(jobs=1))
     assert (grown.already_stored, grown.ran) == (4, 2)
     new_ids = {t.trial_id for t in plan_trials(load_study(_write(tmp_path, seeds=3)))}
     assert old_ids < new_ids
@@ -93,7 +95,7 @@ def test_adding_an_agent_changes_no_existing_trial_id(tmp_path):
 def test_a_failing_trial_is_stored_as_a_failure_and_the_study_goes_on(tmp_path):
     # One distinct next state per (state, action) cannot hold a slippery floor's outcomes: the kernel raises.
     extra = "  - {label: cramped, kind: certainty_equivalence, params: {max_successors: 1}}\n"
-    summary = run_study(_write(tmp_path, extra=extra), results_root=tmp_path / "results", jobs=1)
+    summary = run_study(_write(tmp_path, extra=extra), results_root=tmp_path / "results", options=RunOptions(jobs=1))
     assert summary.ran == 4
     assert len(summary.failed) == 2 and all("max_successors" in line for line in summary.failed)
     rows = _db(tmp_path).execute("SELECT error_type, message, traceback FROM failures").fetchall()
@@ -116,20 +118,20 @@ def test_interrupted_run_keeps_finished_trials(tmp_path, monkeypatch):
             raise KeyboardInterrupt
 
     monkeypatch.setattr(runner.store.Store, "write_trial", write_then_interrupt)
-    summary = run_study(_write(tmp_path), results_root=tmp_path / "results", jobs=1)
+    summary = run_study(_write(tmp_path), results_root=tmp_path / "results", options=RunOptions(jobs=1))
     assert summary.interrupted and summary.ran == 2
     db = _db(tmp_path)
     assert db.execute("SELECT count(*) FROM trials").fetchone()[0] == 2
     assert db.execute("SELECT outcome FROM runs").fetchone()[0] == "interrupted"
     assert db.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
     monkeypatch.undo()
-    finished = run_study(_write(tmp_path), results_root=tmp_path / "results", jobs=1)
+    finished = run_study(_write(tmp_path), results_root=tmp_path / "results", options=RunOptions(jobs=1))
     assert (finished.already_stored, finished.ran) == (2, 2)
 
 
 @pytest.mark.parametrize("seed", [0, 1])
 def test_metric_rows_are_finite_and_counters_grow(tmp_path, seed):
-    run_study(_write(tmp_path), results_root=tmp_path / "results", jobs=1)
+    run_study(_write(tmp_path), results_root=tmp_path / "results", options=RunOptions(jobs=1))
     frame = runner.load_results(tmp_path / "results" / "tiny")
     trial = frame[frame["seed"] == seed]
     assert np.isfinite(trial["eval_return"]).all()

@@ -9,7 +9,7 @@ import pandas as pd
 from runner.store import DB_NAME, Store
 from runner.trial import METRIC_COLUMNS
 
-__all__ = ["load_failures", "load_results", "missing_trials", "open_store"]
+__all__ = ["load_failures", "load_results", "missing_trials", "open_store", "undeclared_trials"]
 
 
 def open_store(path: str | Path) -> Store:
@@ -43,6 +43,16 @@ def missing_trials(path: str | Path) -> pd.DataFrame:
         rows = store.query(
             "SELECT d.env_label, d.agent_label, d.seed, d.trial_id FROM declared d "
             "WHERE d.trial_id NOT IN (SELECT trial_id FROM trials) ORDER BY d.position"
+        )
+    return pd.DataFrame.from_records(rows, columns=["env", "agent", "seed", "trial_id"])
+
+
+def undeclared_trials(path: str | Path) -> pd.DataFrame:
+    """Stored trials the current study file no longer declares (kept in the store, left out of reports)."""
+    with open_store(path) as store:
+        rows = store.query(
+            "SELECT env_label, agent_label, seed, trial_id FROM trials "
+            "WHERE trial_id NOT IN (SELECT trial_id FROM declared) ORDER BY env_label, agent_label, seed"
         )
     return pd.DataFrame.from_records(rows, columns=["env", "agent", "seed", "trial_id"])
 

@@ -1,0 +1,70 @@
+"""One writer per study: a lock file held with an OS-level lock for as long as a run writes to the store.
+
+The kernel releases the lock when its process dies, however it dies, so a lock file left by a killed run is
+recognised as stale (it can be locked again) and cleared.
+"""
+
+from __future__ import annotations
+
+import fcntl
+import os
+import socket
+from datetime import UTC, datetime
+from pathlib import Path
+
+from runner.errors import StudyBusyError
+
+__all__ = ["LOCK_NAME", "StudyLock"]
+
+LOCK_NAME = "run.lock"
+
+
+class StudyLock:
+    """Hold `results/<study>/run.lock`; `stale_owner` says whose lock was cleared, if any."""
+
+    def __init__(self, folder: str | Path) -> None:
+        self.path = Path(folder) / LOCK_NAME
+        self.stale_owner: str | None = None
+        self._handle = None
+
+    def acquire(self) -> StudyLock:
+        """Take the lock or raise StudyBusyError naming the process that holds it."""
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        handle = open(self.path, "a+", encoding="utf-8")  # noqa: SIM115 - held open while the run lasts
+        try:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            handle.seek(0)
+            owner = handle.read().strip() or "an unknown process"
+            handle.close()
+            raise StudyBusyError(
+                f"{self.path.parent}: another stepmeter run is writing this study ({owner}); "
+                "wait for it to finish or stop it, then run again"
+            ) from None
+        handle.seek(0)
+        previous = handle.read().strip()
+        self.stale_owner = previous or None
+        handle.seek(0)
+        handle.truncate()
+        started = datetime.now(UTC).isoformat(timespec="seconds")
+        handle.write(f"process {os.getpid()} on {socket.gethostname()}, started {started}")
+        handle.flush()
+        self._handle = handle
+        return self
+
+    def release(self) -> None:
+        """Clear and unlock the lock file."""
+        if self._handle is None:
+            return
+        self._handle.seek(0)
+        self._handle.truncate()
+        self._handle.flush()
+        fcntl.flock(self._handle.fileno(), fcntl.LOCK_UN)
+        self._handle.close()
+        self._handle = None
+
+    def __enter__(self) -> StudyLock:
+        return self.acquire()
+
+    def __exit__(self, *exc: object) -> None:
+        self.release()
