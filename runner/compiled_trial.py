@@ -25,7 +25,18 @@ from runner.streams import uniform
 
 __all__ = ["run_kind_trial", "run_table_trial", "sample_outcome", "sample_start"]
 
-REAL_STEPS, EPISODES, EVAL_RETURN, TRAIN_RETURN, REAL_UPDATES, PLANNING_UPDATES, MODEL_UPDATES, WALL = range(8)
+(
+    REAL_STEPS,
+    EPISODES,
+    EVAL_RETURN,
+    TRAIN_RETURN,
+    REAL_UPDATES,
+    PLANNING_UPDATES,
+    MODEL_UPDATES,
+    MODEL_TV_ERROR,
+    MODEL_REWARD_ERROR,
+    WALL,
+) = range(10)
 
 
 def agent_act(kind, arrays, hyper, state, stream):
@@ -36,6 +47,23 @@ def agent_act(kind, arrays, hyper, state, stream):
 def agent_observe(kind, arrays, hyper, counters, state, action, reward, next_state, terminated, stream):
     """The observe kernel of agent kind `kind` (a compile-time literal); callable only from compiled code."""
     raise NotImplementedError("agent_observe is resolved inside compiled code")
+
+
+def agent_model_error(kind, arrays, table):
+    """The model-error kernel of agent kind `kind` (a compile-time literal); callable only from compiled code."""
+    raise NotImplementedError("agent_model_error is resolved inside compiled code")
+
+
+@overload(agent_model_error)
+def _agent_model_error(kind, arrays, table):
+    if not isinstance(kind, types.StringLiteral):
+        return None
+    kernel = agent_class(kind.literal_value).model_error_kernel
+
+    def impl(kind, arrays, table):
+        return kernel(arrays, table)
+
+    return impl
 
 
 @overload(agent_act)
@@ -132,7 +160,7 @@ def run_table_trial(
     episode_returns,
     episode_lengths,
 ):
-    """Run the trial of agent kind `kind`; fill `rows` (n_points x 8, the columns of METRIC_COLUMNS) and the
+    """Run the trial of agent kind `kind`; fill `rows` (n_points x 10, the columns of METRIC_COLUMNS) and the
     episode arrays.
 
     `table` is (start_cdf, offsets, cdf, next_state, reward, terminated, step_limit). Returns the number of
@@ -178,6 +206,9 @@ def run_table_trial(
             rows[point, REAL_UPDATES] = counters[0]
             rows[point, PLANNING_UPDATES] = counters[1]
             rows[point, MODEL_UPDATES] = counters[2]
+            tv, reward_error = agent_model_error(literally(kind), arrays, table)
+            rows[point, MODEL_TV_ERROR] = tv
+            rows[point, MODEL_REWARD_ERROR] = reward_error
             rows[point, WALL] = _clock() - started
             point += 1
     return n_episodes

@@ -20,7 +20,10 @@ from runner.agents import make_agent
 from runner.plan import SPEC_FORMAT, PlannedTrial
 from runner.trial import resolve_path, run_trial
 
-__all__ = ["TrialOutcome", "execute_trial", "needed_kernels", "run_parallel", "warm_up"]
+NAN_ALLOWED = ("train_return", "model_tv_error", "model_reward_error")
+"""Metric columns where NaN means "not applicable yet" rather than a broken trial."""
+
+__all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "needed_kernels", "run_parallel", "warm_up"]
 
 _WARM_UP_GRID = {
     "source": "grid",
@@ -66,7 +69,7 @@ def execute_trial(
     try:
         result = run_trial(spec, path, time_limit)
         for name, column in result.rows.items():
-            if name != "train_return" and not np.all(np.isfinite(column)):
+            if name not in NAN_ALLOWED and not np.all(np.isfinite(column)):
                 raise FloatingPointError(f"metric {name!r} has a non-finite value")
         return TrialOutcome(trial_id, result.rows, result.trial_path)
     except Exception as err:

@@ -25,7 +25,7 @@ from runner.trial import METRIC_COLUMNS
 __all__ = ["DB_NAME", "SCHEMA_VERSION", "Store", "remove_store", "study_dir"]
 
 DB_NAME = "study.sqlite"
-SCHEMA_VERSION = 1
+SCHEMA_VERSION = 2
 _INT_COLUMNS = {"real_steps", "episodes", "real_updates", "planning_updates", "model_updates"}
 
 _SCHEMA = f"""

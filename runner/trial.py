@@ -34,9 +34,13 @@ METRIC_COLUMNS = (
     "eval_return",
     "train_return",
     *COUNTER_NAMES,
+    "model_tv_error",
+    "model_reward_error",
     "wall_seconds",
 )
-"""Columns of a metric row, in order; `wall_seconds` is the only timing column."""
+"""Columns of a metric row, in order; `wall_seconds` is the only timing column. The model errors (mean
+total-variation distance of the agent's learned transition model to the true table, mean absolute reward error,
+over the pairs it has tried) are NaN for model-free agents and for environments with no known table."""
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
 """`auto` takes the compiled path whenever the environment is table-backed."""
@@ -107,7 +111,7 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
     agent.setup(facts.n_states, facts.n_actions, streams.agent)
     if chosen == "gymnasium":
-        return _run_gymnasium(spec, agent, streams, time_limit)
+        return _run_gymnasium(spec, agent, streams, time_limit, facts.table)
     return _run_compiled(spec, facts.table, agent, streams, time_limit)
 
 
@@ -116,7 +120,7 @@ def _run_compiled(
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
-    table = (t.start_cdf, t.offsets, t.cdf, t.next_state, t.reward, t.terminated, t.step_limit)
+    table = t.as_tuple()
     rows = np.zeros((budget // ev["every"] + 1, len(METRIC_COLUMNS)))
     returns = np.zeros(budget, dtype=np.float64)
     lengths = np.zeros(budget, dtype=np.int64)
@@ -150,7 +154,9 @@ def _run_compiled(
     )
 
 
-def _run_gymnasium(spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams, time_limit: float) -> TrialResult:
+def _run_gymnasium(
+    spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams, time_limit: float, table: TransitionTable | None
+) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
     env = build_env(spec["env"])
@@ -161,6 +167,7 @@ def _run_gymnasium(spec: dict[str, Any], agent: TabularAgent, streams: TrialStre
     returns: list[float] = []
     lengths: list[int] = []
     recent: deque[float] = deque(maxlen=ev["training_window"])
+    table_tuple = table.as_tuple() if table is not None else None
     start = time.perf_counter()
 
     def record(point: int, steps: int) -> None:
@@ -172,6 +179,8 @@ def _run_gymnasium(spec: dict[str, Any], agent: TabularAgent, streams: TrialStre
         rows["train_return"][point] = np.mean(recent) if recent else np.nan
         for name, value in zip(COUNTER_NAMES, agent.counters_, strict=True):
             rows[name][point] = value
+        errors = agent.model_error(table_tuple) if table_tuple is not None else (np.nan, np.nan)
+        rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
         rows["wall_seconds"][point] = time.perf_counter() - start
 
     try:

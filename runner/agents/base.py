@@ -13,6 +13,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from runner.agents.kernels import greedy_action
+from runner.models.table_error import no_model_error
 from runner.params import Param, resolve_params
 from runner.streams import as_stream
 
@@ -89,6 +90,15 @@ class TabularAgent:
         Subclasses extend it with their own rules, e.g. planning updates = n x real updates for Dyna-Q.
         """
         return [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
+
+    model_error_kernel = staticmethod(no_model_error)
+    """Compiled (arrays, table) -> (mean total-variation distance, mean absolute reward error) of the agent's
+    learned model against a true transition table; model-free kinds keep this default, which gives NaN."""
+
+    def model_error(self, table: tuple) -> tuple[float, float]:
+        """The learned model's error against a true table (see `model_error_kernel`)."""
+        tv, reward = self.model_error_kernel(self.arrays_, table)
+        return float(tv), float(reward)
 
     @staticmethod
     def act_kernel(arrays, hyper, state, rng):  # pragma: no cover - replaced by every kind

@@ -6,6 +6,7 @@ from numba import njit
 from runner.agents.base import TabularAgent
 from runner.agents.common import EPSILON, GAMMA
 from runner.agents.kernels import epsilon_greedy
+from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import Param
 from runner.planning.value_iteration import sweep_until_converged
 
@@ -63,6 +64,33 @@ def certainty_equivalence_observe(arrays, hyper, counters, state, action, reward
             hyper[_OPTIMISTIC],
         )
         counters[1] += backups
+
+
+@njit(cache=True)
+def certainty_equivalence_model_error(arrays, table):
+    """Mean total-variation distance of the count model to the true table, and mean absolute reward error,
+    over the (state, action) pairs visited so far (NaN before any)."""
+    n_states, n_actions = arrays[_Q].shape
+    visits = arrays[_VISITS]
+    tv = 0.0
+    reward_error = 0.0
+    visited = 0
+    for s in range(n_states):
+        for a in range(n_actions):
+            total = visits[s, a]
+            if total == 0.0:
+                continue
+            pair = s * n_actions + a
+            overlap = 0.0
+            for j in range(arrays[_N_SUCC][s, a]):
+                learned = arrays[_WEIGHT][s, a, j] / total
+                overlap += min(learned, true_probability(table, pair, arrays[_SUCC][s, a, j], n_states))
+            tv += 1.0 - overlap
+            reward_error += abs(arrays[_REWARD_SUM][s, a] / total - true_mean_reward(table, pair))
+            visited += 1
+    if visited == 0:
+        return np.nan, np.nan
+    return tv / visited, reward_error / visited
 
 
 class CertaintyEquivalence(TabularAgent):
@@ -150,3 +178,4 @@ class CertaintyEquivalence(TabularAgent):
 
     act_kernel = staticmethod(certainty_equivalence_act)
     observe_kernel = staticmethod(certainty_equivalence_observe)
+    model_error_kernel = staticmethod(certainty_equivalence_model_error)

@@ -6,6 +6,7 @@ from numba import njit
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.kernels import epsilon_greedy, q_learning_update
+from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import Param
 from runner.streams import below
 
@@ -60,6 +61,26 @@ def dyna_q_observe(arrays, hyper, counters, state, action, reward, next_state, t
     dyna_q_plan(arrays, hyper, counters, np.int64(hyper[_PLANNING]), rng)
 
 
+@njit(cache=True)
+def dyna_q_model_error(arrays, table):
+    """Mean total-variation distance of the last-outcome model to the true table, and mean absolute reward
+    error, over the (state, action) pairs seen so far (NaN before any)."""
+    n_states, n_actions = arrays[_Q].shape
+    n_seen = arrays[_N_SEEN][0]
+    if n_seen == 0:
+        return np.nan, np.nan
+    tv = 0.0
+    reward_error = 0.0
+    for i in range(n_seen):
+        pair = arrays[_SEEN_LIST][i]
+        s = pair // n_actions
+        a = pair % n_actions
+        learned = n_states if arrays[_TERMINAL][s, a] != 0 else arrays[_NEXT][s, a]
+        tv += 1.0 - true_probability(table, pair, learned, n_states)
+        reward_error += abs(arrays[_REWARD][s, a] - true_mean_reward(table, pair))
+    return tv / n_seen, reward_error / n_seen
+
+
 class DynaQ(TabularAgent):
     """Tabular Dyna-Q with a deterministic last-outcome model and a planning budget per real step."""
 
@@ -101,3 +122,4 @@ class DynaQ(TabularAgent):
 
     act_kernel = staticmethod(dyna_q_act)
     observe_kernel = staticmethod(dyna_q_observe)
+    model_error_kernel = staticmethod(dyna_q_model_error)

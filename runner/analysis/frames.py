@@ -22,7 +22,8 @@ def load_results(path: str | Path) -> pd.DataFrame:
     """One row per (declared trial, evaluation point) of a stored study.
 
     Columns: env, agent, kind, trial_id, seed, point, then the metric columns (real_steps, episodes,
-    eval_return, train_return, real_updates, planning_updates, model_updates, wall_seconds). Only trials
+    eval_return, train_return, real_updates, planning_updates, model_updates, model_tv_error,
+    model_reward_error, wall_seconds). Only trials
     the study file currently declares are included, in declaration order.
     """
     with open_store(path) as store:
@@ -34,7 +35,8 @@ def load_results(path: str | Path) -> pd.DataFrame:
         )
     columns = ["env", "agent", "kind", "trial_id", "seed", "point", *METRIC_COLUMNS]
     frame = pd.DataFrame.from_records(rows, columns=columns)
-    return frame.astype({"train_return": "float64", "eval_return": "float64", "wall_seconds": "float64"})
+    floats = ("eval_return", "train_return", "model_tv_error", "model_reward_error", "wall_seconds")
+    return frame.astype(dict.fromkeys(floats, "float64"))
 
 
 def missing_trials(path: str | Path) -> pd.DataFrame:

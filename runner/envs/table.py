@@ -42,6 +42,10 @@ class TransitionTable:
     terminated: np.ndarray
     step_limit: int
 
+    def as_tuple(self) -> tuple:
+        """The tuple compiled code takes: (start_cdf, offsets, cdf, next_state, reward, terminated, step_limit)."""
+        return (self.start_cdf, self.offsets, self.cdf, self.next_state, self.reward, self.terminated, self.step_limit)
+
 
 def why_not_table_backed(env: gym.Env) -> str | None:
     """None when the environment's steps are exactly its table's; else the reason in a few words."""
