@@ -11,6 +11,9 @@ AGENTS = Registry(
         "q_learning": "runner.agents.q_learning:QLearning",
         "dyna_q": "runner.agents.dyna_q:DynaQ",
         "certainty_equivalence": "runner.agents.certainty_equivalence:CertaintyEquivalence",
+        "sarsa": "runner.agents.sarsa:Sarsa",
+        "expected_sarsa": "runner.agents.sarsa:ExpectedSarsa",
+        "replay_q_learning": "runner.agents.replay_q:ReplayQLearning",
     },
 )
 
