@@ -20,7 +20,6 @@ from numba import literally, njit, objmode, types
 from numba.extending import overload
 
 from runner.agents import agent_class
-from runner.agents.kernels import greedy_action
 from runner.streams import uniform
 
 __all__ = ["run_kind_trial", "run_table_trial", "sample_outcome", "sample_start"]
@@ -47,6 +46,23 @@ def agent_act(kind, arrays, hyper, state, stream):
 def agent_observe(kind, arrays, hyper, counters, state, action, reward, next_state, terminated, stream):
     """The observe kernel of agent kind `kind` (a compile-time literal); callable only from compiled code."""
     raise NotImplementedError("agent_observe is resolved inside compiled code")
+
+
+def agent_greedy(kind, arrays, hyper, state, stream):
+    """The evaluation kernel of agent kind `kind` (a compile-time literal); callable only from compiled code."""
+    raise NotImplementedError("agent_greedy is resolved inside compiled code")
+
+
+@overload(agent_greedy)
+def _agent_greedy(kind, arrays, hyper, state, stream):
+    if not isinstance(kind, types.StringLiteral):
+        return None
+    kernel = agent_class(kind.literal_value).greedy_kernel
+
+    def impl(kind, arrays, hyper, state, stream):
+        return kernel(arrays, hyper, state, stream)
+
+    return impl
 
 
 def agent_model_error(kind, arrays, table):
@@ -122,15 +138,15 @@ def _clock():
 
 
 @njit(cache=True)
-def _evaluate(q, table, step_cap, episodes, env_stream, policy_stream):
+def _evaluate(kind, arrays, hyper, table, step_cap, episodes, env_stream, policy_stream):
     start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
-    n_actions = q.shape[1]
+    n_actions = arrays[0].shape[1]
     cap = step_cap if step_limit == 0 or step_cap < step_limit else step_limit
     total = 0.0
     for _ in range(episodes):
         s = sample_start(start_cdf, env_stream)
         for _ in range(cap):
-            a = greedy_action(q, s, policy_stream)
+            a = agent_greedy(literally(kind), arrays, hyper, s, policy_stream)
             j = sample_outcome(offsets, cdf, s * n_actions + a, env_stream)
             total += reward[j]
             s = next_state[j]
@@ -197,7 +213,9 @@ def run_table_trial(
         if step % every == 0:
             rows[point, REAL_STEPS] = step
             rows[point, EPISODES] = n_episodes
-            rows[point, EVAL_RETURN] = _evaluate(q, table, step_cap, eval_episodes, eval_env_stream, eval_stream)
+            rows[point, EVAL_RETURN] = _evaluate(
+                kind, arrays, hyper, table, step_cap, eval_episodes, eval_env_stream, eval_stream
+            )
             if n_episodes == 0:
                 rows[point, TRAIN_RETURN] = np.nan
             else:

@@ -362,9 +362,12 @@ def _agent(src: SourceText, path: KeyPath, value: Any) -> list[AgentVariant]:
     variants = []
     for combo in itertools.product(*grids.values()) if grids else [()]:
         varied = dict(zip(grids, combo, strict=True))
-        resolved = cls(**fixed, **varied).get_params()
+        agent = cls(**fixed, **varied)
+        resolved = agent.get_params()
         suffix = ", ".join(f"{k}={v}" for k, v in varied.items())
         variant_label = f"{label} ({suffix})" if suffix else label
+        if agent.label_note():
+            variant_label = f"{variant_label} [{agent.label_note()}]"
         variants.append(AgentVariant(variant_label, label, kind, resolved, varied))
     return variants
 

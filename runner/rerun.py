@@ -48,8 +48,8 @@ def compare_rows(stored: np.ndarray, fresh: np.ndarray, columns: list[str]) -> s
     gaps = np.where(same, 0.0, np.abs(np.nan_to_num(stored - fresh, nan=np.inf)))
     worst_row, worst_col = np.unravel_index(np.argmax(gaps), gaps.shape)
     return (
-        f"first difference at row {row} (point {row}), column {columns[col]}: stored {stored[row, col]!r}, "
-        f"now {fresh[row, col]!r}; largest difference {gaps[worst_row, worst_col]:.6g} "
+        f"first difference at row {row} (point {row}), column {columns[col]}: stored {float(stored[row, col])!r}, "
+        f"now {float(fresh[row, col])!r}; largest difference {gaps[worst_row, worst_col]:.6g} "
         f"in {columns[worst_col]} at row {worst_row}"
     )
 

@@ -109,7 +109,7 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
-    agent.setup(facts.n_states, facts.n_actions, streams.agent)
+    agent.setup(facts.n_states, facts.n_actions, streams.agent, facts.table.as_tuple() if facts.table else None)
     if chosen == "gymnasium":
         return _run_gymnasium(spec, agent, streams, time_limit, facts.table)
     return _run_compiled(spec, facts.table, agent, streams, time_limit)

@@ -12,7 +12,8 @@ from typing import Any, ClassVar
 
 import numpy as np
 
-from runner.agents.kernels import greedy_action
+from runner.agents.kernels import q_table_greedy
+from runner.errors import EnvironmentSourceError
 from runner.models.table_error import no_model_error
 from runner.params import Param, resolve_params
 from runner.streams import as_stream
@@ -38,17 +39,42 @@ class TabularAgent:
         """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
         return dict(self._params)
 
-    def setup(self, n_states: int, n_actions: int, stream: int | np.random.SeedSequence | np.ndarray) -> None:
+    needs_table: ClassVar[bool] = False
+    """Kinds that plan on the environment's true table (oracles) set this; `setup` then requires the table."""
+
+    def setup(
+        self,
+        n_states: int,
+        n_actions: int,
+        stream: int | np.random.SeedSequence | np.ndarray,
+        table: tuple | None = None,
+    ) -> None:
         """Create the learned state for an environment of that size.
 
-        `stream` is the agent's random stream (see `runner.streams`), or a seed to build one from.
+        `stream` is the agent's random stream (see `runner.streams`), or a seed to build one from. `table` is the
+        environment's true transition table as the compiled path's tuple, when it is known (see
+        `runner.envs.table.TransitionTable.as_tuple`); only oracle kinds may use it.
         """
+        if self.uses_table() and table is None:
+            raise EnvironmentSourceError(
+                f"{self.kind} with these parameters plans on the true transition table, so it needs a "
+                "table-backed environment (a grid map, FrozenLake, CliffWalking or Taxi)"
+            )
+        self.table_ = table
         self.n_states_ = int(n_states)
         self.n_actions_ = int(n_actions)
         self.stream_ = as_stream(stream)
         self.counters_ = np.zeros(len(COUNTER_NAMES), dtype=np.int64)
         self.arrays_ = self.make_arrays(self.n_states_, self.n_actions_)
         self.hyper_ = np.asarray(self.make_hyper(), dtype=np.float64)
+
+    def uses_table(self) -> bool:
+        """Whether this agent, with its parameters, plans on the true table (an oracle upper bound)."""
+        return self.needs_table
+
+    def label_note(self) -> str:
+        """Text appended to the agent's variant label in every output (e.g. to mark an oracle); empty: none."""
+        return ""
 
     def make_arrays(self, n_states: int, n_actions: int) -> tuple[np.ndarray, ...]:
         """The learned state; entry 0 is the Q-table of shape (n_states, n_actions)."""
@@ -78,7 +104,7 @@ class TabularAgent:
 
     def greedy(self, state: int, stream: np.ndarray) -> int:
         """Greedy action for evaluation; ties are broken with the evaluation stream, not the agent's."""
-        return int(greedy_action(self.arrays_[0], state, stream))
+        return int(self.greedy_kernel(self.arrays_, self.hyper_, state, stream))
 
     def counters(self) -> dict[str, int]:
         """Counters by name."""
@@ -90,6 +116,10 @@ class TabularAgent:
         Subclasses extend it with their own rules, e.g. planning updates = n x real updates for Dyna-Q.
         """
         return [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
+
+    greedy_kernel = staticmethod(q_table_greedy)
+    """Compiled (arrays, hyper, state, stream) -> action of the evaluation policy. The default is greedy on the
+    Q-table; search agents replace it with a search that leaves the agent's counters alone."""
 
     model_error_kernel = staticmethod(no_model_error)
     """Compiled (arrays, table) -> (mean total-variation distance, mean absolute reward error) of the agent's

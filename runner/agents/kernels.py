@@ -8,7 +8,7 @@ from numba import njit
 
 from runner.streams import below, uniform
 
-__all__ = ["argmax_random_tie", "epsilon_greedy", "greedy_action", "q_learning_update"]
+__all__ = ["argmax_random_tie", "epsilon_greedy", "greedy_action", "q_learning_update", "q_table_greedy"]
 
 
 @njit(cache=True)
@@ -42,6 +42,12 @@ def epsilon_greedy(q, state, epsilon, rng):
 def greedy_action(q, state, rng):
     """The greedy action of a Q-table; the evaluation policy of every tabular agent."""
     return argmax_random_tie(q[state], rng)
+
+
+@njit(cache=True)
+def q_table_greedy(arrays, hyper, state, rng):
+    """The default evaluation kernel: greedy on the Q-table in `arrays[0]`."""
+    return argmax_random_tie(arrays[0][state], rng)
 
 
 @njit(cache=True)
