@@ -137,6 +137,9 @@ def _run(args: argparse.Namespace) -> int:
 def _rerun(args: argparse.Namespace) -> int:
     from runner.rerun import rerun_trials, select_trials
 
+    if args.sample is not None and args.sample < 1:
+        print(f"stepmeter: error: rerun --sample: expected a whole number >= 1, got {args.sample}", file=sys.stderr)
+        return 2
     if not (args.trial_ids or args.sample or args.all):
         print("stepmeter: error: rerun: give TRIAL_ID(s), --sample K or --all", file=sys.stderr)
         return 2
