@@ -75,6 +75,7 @@ class _EnvFacts:
     n_actions: int
     not_table_reason: str | None
     table: TransitionTable | None
+    rules: tuple | None
 
 
 @functools.lru_cache(maxsize=16)
@@ -85,9 +86,10 @@ def _env_facts(env_json: str) -> _EnvFacts:
         n_states, n_actions = env_sizes(env)
         reason = why_not_table_backed(env)
         table = table_from_env(env) if reason is None else None
+        rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
     finally:
         env.close()
-    return _EnvFacts(n_states, n_actions, reason, table)
+    return _EnvFacts(n_states, n_actions, reason, table, rules)
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
@@ -109,7 +111,13 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
-    agent.setup(facts.n_states, facts.n_actions, streams.agent, facts.table.as_tuple() if facts.table else None)
+    agent.setup(
+        facts.n_states,
+        facts.n_actions,
+        streams.agent,
+        facts.table.as_tuple() if facts.table else None,
+        facts.rules,
+    )
     if chosen == "gymnasium":
         return _run_gymnasium(spec, agent, streams, time_limit, facts.table)
     return _run_compiled(spec, facts.table, agent, streams, time_limit)

@@ -48,12 +48,15 @@ class TabularAgent:
         n_actions: int,
         stream: int | np.random.SeedSequence | np.ndarray,
         table: tuple | None = None,
+        rules: tuple | None = None,
     ) -> None:
         """Create the learned state for an environment of that size.
 
         `stream` is the agent's random stream (see `runner.streams`), or a seed to build one from. `table` is the
         environment's true transition table as the compiled path's tuple, when it is known (see
-        `runner.envs.table.TransitionTable.as_tuple`); only oracle kinds may use it.
+        `runner.envs.table.TransitionTable.as_tuple`); only oracle kinds may use it. `rules` is what a
+        game environment tells a player about its rules (`env.unwrapped.game_rules()`, a tuple of arrays), for
+        kinds that search a game tree.
         """
         if self.uses_table() and table is None:
             raise EnvironmentSourceError(
@@ -61,6 +64,7 @@ class TabularAgent:
                 "table-backed environment (a grid map, FrozenLake, CliffWalking or Taxi)"
             )
         self.table_ = table
+        self.rules_ = rules
         self.n_states_ = int(n_states)
         self.n_actions_ = int(n_actions)
         self.stream_ = as_stream(stream)
