@@ -14,6 +14,8 @@ AGENTS = Registry(
         "sarsa": "runner.agents.sarsa:Sarsa",
         "expected_sarsa": "runner.agents.sarsa:ExpectedSarsa",
         "replay_q_learning": "runner.agents.replay_q:ReplayQLearning",
+        "dyna_q_plus": "runner.agents.dyna_q_plus:DynaQPlus",
+        "rmax": "runner.agents.rmax:RMax",
     },
 )
 

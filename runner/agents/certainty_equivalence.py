@@ -10,11 +10,27 @@ from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import Param
 from runner.planning.value_iteration import sweep_until_converged
 
-__all__ = ["CertaintyEquivalence"]
+__all__ = ["CertaintyEquivalence", "count_model_arrays"]
 
-_GAMMA, _EPSILON, _TOL, _MAX_SWEEPS, _REPLAN, _UNVISITED, _OPTIMISTIC = range(7)
+_GAMMA, _EPSILON, _TOL, _MAX_SWEEPS, _REPLAN, _UNVISITED, _OPTIMISTIC, _KNOWN_AFTER = range(8)
 _Q, _V, _SUCC, _WEIGHT, _N_SUCC, _VISITS, _REWARD_SUM, _SINCE = range(8)
 _UNVISITED_CODES = {"optimistic": 0, "self_loop": 1}
+
+
+def count_model_arrays(n_states: int, n_actions: int, max_successors: int, start_value: float) -> tuple:
+    """The arrays of a count model with value iteration: Q, V, successor lists and weights, their lengths,
+    visits, reward sums and the steps since the last plan."""
+    width = min(max_successors, n_states + 1)
+    return (
+        np.full((n_states, n_actions), start_value, dtype=np.float64),
+        np.zeros(n_states + 1, dtype=np.float64),
+        np.zeros((n_states, n_actions, width), dtype=np.int64),
+        np.zeros((n_states, n_actions, width), dtype=np.float64),
+        np.zeros((n_states, n_actions), dtype=np.int64),
+        np.zeros((n_states, n_actions), dtype=np.float64),
+        np.zeros((n_states, n_actions), dtype=np.float64),
+        np.zeros(1, dtype=np.int64),
+    )
 
 
 @njit(cache=True)
@@ -47,7 +63,10 @@ def certainty_equivalence_observe(arrays, hyper, counters, state, action, reward
     counters[2] += 1
     since = arrays[_SINCE]
     since[0] += 1
-    if since[0] >= hyper[_REPLAN]:
+    replan = since[0] >= hyper[_REPLAN]
+    if hyper[_REPLAN] == 0:  # replan only when a pair has just become known (R-max)
+        replan = arrays[_VISITS][state, action] == hyper[_KNOWN_AFTER]
+    if replan:
         since[0] = 0
         _, backups = sweep_until_converged(
             arrays[_Q],
@@ -62,6 +81,7 @@ def certainty_equivalence_observe(arrays, hyper, counters, state, action, reward
             np.int64(hyper[_MAX_SWEEPS]),
             np.int64(hyper[_UNVISITED]),
             hyper[_OPTIMISTIC],
+            hyper[_KNOWN_AFTER],
         )
         counters[1] += backups
 
@@ -120,18 +140,8 @@ class CertaintyEquivalence(TabularAgent):
 
     def make_arrays(self, n_states, n_actions):
         p = self._params
-        width = min(p["max_successors"], n_states + 1)
         start = p["optimistic_value"] if p["unvisited"] == "optimistic" else 0.0
-        return (
-            np.full((n_states, n_actions), start, dtype=np.float64),
-            np.zeros(n_states + 1, dtype=np.float64),
-            np.zeros((n_states, n_actions, width), dtype=np.int64),
-            np.zeros((n_states, n_actions, width), dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.int64),
-            np.zeros((n_states, n_actions), dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.float64),
-            np.zeros(1, dtype=np.int64),
-        )
+        return count_model_arrays(n_states, n_actions, p["max_successors"], start)
 
     def make_hyper(self):
         p = self._params
@@ -143,6 +153,7 @@ class CertaintyEquivalence(TabularAgent):
             float(p["replan_every"]),
             float(_UNVISITED_CODES[p["unvisited"]]),
             p["optimistic_value"],
+            1.0,
         ]
 
     def transition_estimate(self) -> np.ndarray:
@@ -171,10 +182,14 @@ class CertaintyEquivalence(TabularAgent):
         per_sweep = self.n_states_ * self.n_actions_
         if c["planning_updates"] % per_sweep:
             problems.append(f"planning_updates {c['planning_updates']} is not whole sweeps of {per_sweep} backups")
-        replans = real_steps // self._params["replan_every"]
+        replans = self.replans_made(real_steps)
         if not replans <= c["planning_updates"] // per_sweep <= replans * self._params["max_sweeps"]:
             problems.append(f"{c['planning_updates'] // per_sweep} sweeps for {replans} re-plans is outside the cap")
         return problems
+
+    def replans_made(self, real_steps: int) -> int:
+        """How many times value iteration ran after `real_steps` observed steps."""
+        return real_steps // self._params["replan_every"]
 
     act_kernel = staticmethod(certainty_equivalence_act)
     observe_kernel = staticmethod(certainty_equivalence_observe)

@@ -18,11 +18,24 @@ UNVISITED_SELF_LOOP = 1
 
 @njit(cache=True)
 def sweep_until_converged(
-    q, v, succ_states, succ_weights, n_succ, visits, reward_sum, gamma, tol, max_sweeps, unvisited, optimistic
+    q,
+    v,
+    succ_states,
+    succ_weights,
+    n_succ,
+    visits,
+    reward_sum,
+    gamma,
+    tol,
+    max_sweeps,
+    unvisited,
+    optimistic,
+    known_after=1.0,
 ):
     """In-place (Gauss-Seidel) sweeps until the largest value change is below tol or max_sweeps is hit.
 
-    Returns (sweeps done, backups done); `v` has n_states + 1 entries, the last being the ended state.
+    Pairs tried fewer than `known_after` times count as unknown (valued by `unvisited`). Returns (sweeps done,
+    backups done); `v` has n_states + 1 entries, the last being the ended state.
     """
     n_states, n_actions = q.shape
     sweeps = 0
@@ -32,7 +45,7 @@ def sweep_until_converged(
             best = -np.inf
             for a in range(n_actions):
                 total = visits[s, a]
-                if total == 0.0:
+                if total < known_after or total == 0.0:
                     value = optimistic if unvisited == UNVISITED_OPTIMISTIC else gamma * v[s]
                 else:
                     acc = 0.0
