@@ -16,6 +16,7 @@ AGENTS = Registry(
         "replay_q_learning": "runner.agents.replay_q:ReplayQLearning",
         "dyna_q_plus": "runner.agents.dyna_q_plus:DynaQPlus",
         "rmax": "runner.agents.rmax:RMax",
+        "prioritized_sweeping": "runner.agents.prioritized_sweeping:PrioritizedSweeping",
     },
 )
 
