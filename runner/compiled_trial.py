@@ -34,8 +34,9 @@ __all__ = ["run_kind_trial", "run_table_trial", "sample_outcome", "sample_start"
     MODEL_UPDATES,
     MODEL_TV_ERROR,
     MODEL_REWARD_ERROR,
+    ENV_PHASE,
     WALL,
-) = range(10)
+) = range(11)
 
 
 def agent_act(kind, arrays, hyper, state, stream):
@@ -162,7 +163,8 @@ def run_table_trial(
     hyper,
     counters,
     agent_stream,
-    table,
+    tables,
+    change_steps,
     env_stream,
     eval_env_stream,
     eval_stream,
@@ -176,12 +178,16 @@ def run_table_trial(
     episode_returns,
     episode_lengths,
 ):
-    """Run the trial of agent kind `kind`; fill `rows` (n_points x 10, the columns of METRIC_COLUMNS) and the
+    """Run the trial of agent kind `kind`; fill `rows` (n_points x 11, the columns of METRIC_COLUMNS) and the
     episode arrays.
 
-    `table` is (start_cdf, offsets, cdf, next_state, reward, terminated, step_limit). Returns the number of
-    finished training episodes, or -1 when the trial ran past `time_limit` seconds (0: no limit).
+    `tables` holds one table per phase of the environment, each (start_cdf, offsets, cdf, next_state, reward,
+    terminated, step_limit); the environment moves to phase k + 1 once `change_steps[k]` real steps are done
+    (the last entry lies past the budget). Returns the number of finished training episodes, or -1 when the
+    trial ran past `time_limit` seconds (0: no limit).
     """
+    phase = 0
+    table = tables[0]
     start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
     q = arrays[0]
     n_actions = q.shape[1]
@@ -194,6 +200,10 @@ def run_table_trial(
     for step in range(budget + 1):
         if time_limit > 0 and step % 4096 == 0 and _clock() - started > time_limit:
             return -1
+        if step > change_steps[phase]:
+            phase += 1
+            table = tables[phase]
+            start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
         if step > 0:
             a = agent_act(literally(kind), arrays, hyper, s, agent_stream)
             j = sample_outcome(offsets, cdf, s * n_actions + a, env_stream)
@@ -227,6 +237,7 @@ def run_table_trial(
             tv, reward_error = agent_model_error(literally(kind), arrays, table)
             rows[point, MODEL_TV_ERROR] = tv
             rows[point, MODEL_REWARD_ERROR] = reward_error
+            rows[point, ENV_PHASE] = phase
             rows[point, WALL] = _clock() - started
             point += 1
     return n_episodes

@@ -26,7 +26,7 @@ _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 _TOP_KEYS = ("study", "description", "seeds", "real_steps", "evaluation", "environments", "agents", "baseline")
 _EVAL_KEYS = ("every", "episodes", "step_cap", "training_window")
 _ENV_KEYS = ("label", "gym", "grid", "entry", "options", "step_limit", "threshold")
-_GRID_KEYS = ("map", *GRID_PARAMS)
+_GRID_KEYS = ("map", *GRID_PARAMS, "changes")
 _AGENT_KEYS = ("label", "kind", "params")
 _DEFAULT_STEP_CAP = 1000
 
@@ -105,7 +105,7 @@ def load_study(path: str | Path) -> Study:
     seeds = _seeds(src, _require(src, data, ("seeds",)))
     real_steps = _positive_int(src, ("real_steps",), _require(src, data, ("real_steps",)))
     evaluation = _evaluation(src, data.get("evaluation"), real_steps)
-    environments = _environments(src, _require(src, data, ("environments",)), evaluation)
+    environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
     agents = _agents(src, _require(src, data, ("agents",)))
     baseline = _baseline(src, data.get("baseline"), agents)
     return Study(
@@ -194,19 +194,21 @@ def _evaluation(src: SourceText, value: Any, real_steps: int) -> Evaluation:
     return Evaluation(every, episodes, step_cap, window)
 
 
-def _environments(src: SourceText, value: Any, evaluation: Evaluation) -> tuple[EnvironmentDecl, ...]:
+def _environments(src: SourceText, value: Any, evaluation: Evaluation, real_steps: int) -> tuple[EnvironmentDecl, ...]:
     if not isinstance(value, list) or not value:
         raise src.error(("environments",), f"expected a non-empty list of environments, got {_kind(value)}")
     out: list[EnvironmentDecl] = []
     for i, item in enumerate(value):
-        decl = _environment(src, ("environments", i), item, evaluation)
+        decl = _environment(src, ("environments", i), item, evaluation, real_steps)
         if any(e.label == decl.label for e in out):
             raise src.error(("environments", i, "label"), f"expected a unique label, {decl.label!r} is used twice")
         out.append(decl)
     return tuple(out)
 
 
-def _environment(src: SourceText, path: KeyPath, value: Any, evaluation: Evaluation) -> EnvironmentDecl:
+def _environment(
+    src: SourceText, path: KeyPath, value: Any, evaluation: Evaluation, real_steps: int
+) -> EnvironmentDecl:
     data = _mapping(src, path, value)
     _no_unknown_keys(src, data, path, _ENV_KEYS)
     given = [s for s in SOURCES if s in data]
@@ -236,7 +238,7 @@ def _environment(src: SourceText, path: KeyPath, value: Any, evaluation: Evaluat
         default_label = env_id
         time_limit = step_limit or registered.max_episode_steps
     elif source == "grid":
-        spec = {"source": "grid", **_grid(src, (*path, "grid"), data["grid"])}
+        spec = {"source": "grid", **_grid(src, (*path, "grid"), data["grid"], real_steps)}
         default_label = f"grid-{path[-1]}"
         time_limit = step_limit
     else:
@@ -260,17 +262,10 @@ def _environment(src: SourceText, path: KeyPath, value: Any, evaluation: Evaluat
     return EnvironmentDecl(label=label, spec=spec, threshold=threshold, step_cap=int(step_cap))
 
 
-def _grid(src: SourceText, path: KeyPath, value: Any) -> dict[str, Any]:
+def _grid(src: SourceText, path: KeyPath, value: Any, real_steps: int) -> dict[str, Any]:
     data = _mapping(src, path, value)
     _no_unknown_keys(src, data, path, _GRID_KEYS)
-    text = _require(src, data, (*path, "map"))
-    if not isinstance(text, str):
-        raise src.error((*path, "map"), f"expected the map as text (use '|' for a block), got {_kind(text)}")
-    try:
-        rows = parse_grid_map(text)
-    except GridMapError as err:
-        line = src.line((*path, "map")) if err.row is None else src.content_line((*path, "map"), err.row)
-        raise ConfigError(f"{src.file}:{line}: {format_path((*path, 'map'))}: {err}") from None
+    rows = _grid_map(src, (*path, "map"), _require(src, data, (*path, "map")))
     resolved: dict[str, Any] = {"map": "\n".join(rows)}
     for param in _GRID_SCHEMA:
         raw = data.get(param.name, param.default)
@@ -278,7 +273,47 @@ def _grid(src: SourceText, path: KeyPath, value: Any) -> dict[str, Any]:
             resolved[param.name] = check_value(param, raw)
         except ValueError as err:
             raise src.error((*path, param.name), str(err)) from None
+    if "changes" in data:
+        resolved["changes"] = _grid_changes(src, (*path, "changes"), data["changes"], rows, real_steps)
     return resolved
+
+
+def _grid_map(src: SourceText, path: KeyPath, text: Any) -> tuple[str, ...]:
+    if not isinstance(text, str):
+        raise src.error(path, f"expected the map as text (use '|' for a block), got {_kind(text)}")
+    try:
+        return parse_grid_map(text)
+    except GridMapError as err:
+        line = src.line(path) if err.row is None else src.content_line(path, err.row)
+        raise ConfigError(f"{src.file}:{line}: {format_path(path)}: {err}") from None
+
+
+def _grid_changes(
+    src: SourceText, path: KeyPath, value: Any, first: tuple[str, ...], real_steps: int
+) -> list[dict[str, Any]]:
+    """Maps that replace the first one after given real steps, e.g. an aisle blocked half-way."""
+    if not isinstance(value, list) or not value:
+        raise src.error(path, f"expected a list of changes like [{{at: 3000, map: ...}}], got {_kind(value)}")
+    changes: list[dict[str, Any]] = []
+    for i, item in enumerate(value):
+        ipath = (*path, i)
+        data = _mapping(src, ipath, item)
+        _no_unknown_keys(src, data, ipath, ("at", "map"))
+        at = _positive_int(src, (*ipath, "at"), _require(src, data, (*ipath, "at")))
+        if at >= real_steps:
+            raise src.error((*ipath, "at"), f"expected a real step below real_steps ({real_steps}), got {at}")
+        if changes and at <= changes[-1]["at"]:
+            raise src.error(
+                (*ipath, "at"), f"expected a step after the previous change ({changes[-1]['at']}), got {at}"
+            )
+        rows = _grid_map(src, (*ipath, "map"), _require(src, data, (*ipath, "map")))
+        if (len(rows), len(rows[0])) != (len(first), len(first[0])):
+            raise src.error(
+                (*ipath, "map"),
+                f"expected the first map's size {len(first)}x{len(first[0])}, got {len(rows)}x{len(rows[0])}",
+            )
+        changes.append({"at": at, "map": "\n".join(rows)})
+    return changes
 
 
 def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str, Any]) -> None:

@@ -25,8 +25,8 @@ from runner.trial import METRIC_COLUMNS
 __all__ = ["DB_NAME", "SCHEMA_VERSION", "Store", "remove_store", "study_dir"]
 
 DB_NAME = "study.sqlite"
-SCHEMA_VERSION = 2
-_INT_COLUMNS = {"real_steps", "episodes", "real_updates", "planning_updates", "model_updates"}
+SCHEMA_VERSION = 3
+_INT_COLUMNS = {"real_steps", "episodes", "real_updates", "planning_updates", "model_updates", "env_phase"}
 
 _SCHEMA = f"""
 CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);

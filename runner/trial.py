@@ -21,7 +21,7 @@ import numpy as np
 from runner.agents import COUNTER_NAMES, TabularAgent, make_agent
 from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, env_sizes
-from runner.envs.table import TransitionTable, table_from_env, why_not_table_backed
+from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.seeding import TrialStreams, trial_streams
 from runner.streams import new_stream
@@ -36,11 +36,13 @@ METRIC_COLUMNS = (
     *COUNTER_NAMES,
     "model_tv_error",
     "model_reward_error",
+    "env_phase",
     "wall_seconds",
 )
 """Columns of a metric row, in order; `wall_seconds` is the only timing column. The model errors (mean
 total-variation distance of the agent's learned transition model to the true table, mean absolute reward error,
-over the pairs it has tried) are NaN for model-free agents and for environments with no known table."""
+over the pairs it has tried) are NaN for model-free agents and for environments with no known table.
+`env_phase` counts the environment's changes so far (a grid map whose walls move at given real steps)."""
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
 """`auto` takes the compiled path whenever the environment is table-backed."""
@@ -74,8 +76,14 @@ class _EnvFacts:
     n_states: int
     n_actions: int
     not_table_reason: str | None
-    table: TransitionTable | None
+    tables: tuple[TransitionTable, ...] | None
+    change_steps: tuple[int, ...]
     rules: tuple | None
+
+    @property
+    def table(self) -> TransitionTable | None:
+        """The table the environment starts with (None when it is not table-backed)."""
+        return self.tables[0] if self.tables else None
 
 
 @functools.lru_cache(maxsize=16)
@@ -85,11 +93,12 @@ def _env_facts(env_json: str) -> _EnvFacts:
     try:
         n_states, n_actions = env_sizes(env)
         reason = why_not_table_backed(env)
-        table = table_from_env(env) if reason is None else None
+        tables = phase_tables(env) if reason is None else None
         rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
+        steps = change_steps(env)
     finally:
         env.close()
-    return _EnvFacts(n_states, n_actions, reason, table, rules)
+    return _EnvFacts(n_states, n_actions, reason, tables, steps, rules)
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
@@ -119,16 +128,17 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
         facts.rules,
     )
     if chosen == "gymnasium":
-        return _run_gymnasium(spec, agent, streams, time_limit, facts.table)
-    return _run_compiled(spec, facts.table, agent, streams, time_limit)
+        return _run_gymnasium(spec, agent, streams, time_limit, facts)
+    return _run_compiled(spec, facts, agent, streams, time_limit)
 
 
 def _run_compiled(
-    spec: dict[str, Any], t: TransitionTable, agent: TabularAgent, streams: TrialStreams, time_limit: float
+    spec: dict[str, Any], facts: _EnvFacts, agent: TabularAgent, streams: TrialStreams, time_limit: float
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
-    table = t.as_tuple()
+    tables = tuple(t.as_tuple() for t in facts.tables)
+    changes = np.array([*facts.change_steps, budget + 1], dtype=np.int64)
     rows = np.zeros((budget // ev["every"] + 1, len(METRIC_COLUMNS)))
     returns = np.zeros(budget, dtype=np.float64)
     lengths = np.zeros(budget, dtype=np.int64)
@@ -138,7 +148,8 @@ def _run_compiled(
         agent.hyper_,
         agent.counters_,
         agent.stream_,
-        table,
+        tables,
+        changes,
         new_stream(streams.env),
         new_stream(streams.eval_env),
         streams.evaluation,
@@ -163,7 +174,7 @@ def _run_compiled(
 
 
 def _run_gymnasium(
-    spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams, time_limit: float, table: TransitionTable | None
+    spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
@@ -175,7 +186,8 @@ def _run_gymnasium(
     returns: list[float] = []
     lengths: list[int] = []
     recent: deque[float] = deque(maxlen=ev["training_window"])
-    table_tuple = table.as_tuple() if table is not None else None
+    tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
+    phase = 0
     start = time.perf_counter()
 
     def record(point: int, steps: int) -> None:
@@ -187,8 +199,9 @@ def _run_gymnasium(
         rows["train_return"][point] = np.mean(recent) if recent else np.nan
         for name, value in zip(COUNTER_NAMES, agent.counters_, strict=True):
             rows[name][point] = value
-        errors = agent.model_error(table_tuple) if table_tuple is not None else (np.nan, np.nan)
+        errors = agent.model_error(tables[phase]) if tables is not None else (np.nan, np.nan)
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
+        rows["env_phase"][point] = phase
         rows["wall_seconds"][point] = time.perf_counter() - start
 
     try:
@@ -198,6 +211,10 @@ def _run_gymnasium(
         for step in range(1, budget + 1):
             if time_limit > 0 and step % 256 == 0 and time.perf_counter() - start > time_limit:
                 raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
+            if phase < len(facts.change_steps) and step > facts.change_steps[phase]:
+                phase += 1
+                env.unwrapped.set_phase(phase)
+                eval_env.unwrapped.set_phase(phase)
             action = agent.act(state)
             next_state, reward, terminated, truncated, _ = env.step(action)
             next_state = int(next_state)

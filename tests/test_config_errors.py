@@ -142,7 +142,7 @@ _CASES = [
         "expected a number in [0, 1], got 1.5",
     ),
     # agents
-    Case("agent-kind-typo", _HEAD + "agents:\n  - kind: dyna\n", 7, "agents[0].kind", "did you mean 'dyna_q'?"),
+    Case("agent-kind-typo", _HEAD + "agents:\n  - kind: dyna\n", 7, "agents[0].kind", "did you mean 'dyna_q'"),
     Case(
         "alpha-out-of-range",
         _HEAD + "agents:\n  - kind: q_learning\n    params:\n      alpha: 1.5\n",

@@ -113,7 +113,12 @@ def transition_table(spec: GridSpec) -> dict[int, dict[int, list[tuple[float, in
 
 
 class GridWorld(gym.Env):
-    """A grid map as a gymnasium environment; `P` and `initial_state_distrib` expose its table."""
+    """A grid map as a gymnasium environment; `P` and `initial_state_distrib` expose its table.
+
+    `changes` lists maps of the same size that replace the map after given numbers of real steps
+    (`[{"at": 3000, "map": "..."}]`); the trial runner calls `set_phase` at those steps, on the training and the
+    evaluation copy alike. Phase 0 is the first map.
+    """
 
     metadata: ClassVar[dict] = {"render_modes": ["ansi"]}
 
@@ -125,20 +130,39 @@ class GridWorld(gym.Env):
         goal_reward: float = 1.0,
         hazard_penalty: float = -1.0,
         hazard_ends: bool = True,
+        changes: list[dict] | None = None,
         render_mode: str | None = None,
     ) -> None:
-        rows = parse_grid_map(map)
-        self.spec_ = GridSpec(rows, slip, step_reward, goal_reward, hazard_penalty, hazard_ends)
+        maps = [map, *(change["map"] for change in changes or [])]
+        self.change_steps = tuple(int(change["at"]) for change in changes or [])
+        self._phases = [
+            GridSpec(parse_grid_map(text), slip, step_reward, goal_reward, hazard_penalty, hazard_ends) for text in maps
+        ]
+        shapes = {spec.shape for spec in self._phases}
+        if len(shapes) != 1:
+            raise GridMapError(f"every changed map must keep the first map's size {self._phases[0].shape}")
+        n_rows, n_cols = self._phases[0].shape
+        self.observation_space = gym.spaces.Discrete(n_rows * n_cols)
+        self.action_space = gym.spaces.Discrete(4)
+        self.render_mode = render_mode
+        self.set_phase(0)
+        self.s = int(np.flatnonzero(self.initial_state_distrib)[0])
+
+    @property
+    def n_phases(self) -> int:
+        """How many maps the environment goes through (1 when it never changes)."""
+        return len(self._phases)
+
+    def set_phase(self, phase: int) -> None:
+        """Switch to map number `phase`; the agent stays in its cell."""
+        self.phase = phase
+        self.spec_ = self._phases[phase]
         n_rows, n_cols = self.spec_.shape
-        cells = "".join(rows)
+        cells = "".join(self.spec_.rows)
         self.P = transition_table(self.spec_)
         starts = [i for i, ch in enumerate(cells) if ch == "S"]
         self.initial_state_distrib = np.zeros(n_rows * n_cols)
         self.initial_state_distrib[starts] = 1.0 / len(starts)
-        self.observation_space = gym.spaces.Discrete(n_rows * n_cols)
-        self.action_space = gym.spaces.Discrete(4)
-        self.render_mode = render_mode
-        self.s = starts[0]
 
     def reset(self, *, seed: int | None = None, options: dict | None = None):
         super().reset(seed=seed)

@@ -54,13 +54,17 @@ def build_env(spec: dict[str, Any]) -> gym.Env:
         except TypeError as err:
             raise EnvironmentSourceError(f"gymnasium id {spec['id']!r} rejected its options: {err}") from None
     if source == "grid":
-        env: gym.Env = GridWorld(spec["map"], **{k: spec[k] for k in GRID_PARAMS})
+        env: gym.Env = GridWorld(spec["map"], changes=spec.get("changes"), **{k: spec[k] for k in GRID_PARAMS})
     elif source == "entry":
         cls = import_entry_point(spec["entry"])
         try:
             env = cls(**(spec.get("options") or {}))
         except TypeError as err:
             raise EnvironmentSourceError(f"{spec['entry']} rejected its options: {err}") from None
+        if not isinstance(env, gym.Env):
+            raise EnvironmentSourceError(
+                f"{spec['entry']} built a {type(env).__name__}, not a gymnasium environment (gymnasium.Env)"
+            )
     else:
         raise EnvironmentSourceError(f"unknown environment source {source!r}; expected one of {sorted(SOURCES)}")
     if limit is not None:

@@ -20,7 +20,7 @@ from gymnasium.wrappers import OrderEnforcing, PassiveEnvChecker, TimeLimit
 from runner.envs.grid import GridWorld
 from runner.envs.sources import env_sizes
 
-__all__ = ["TransitionTable", "table_from_env", "why_not_table_backed"]
+__all__ = ["TransitionTable", "change_steps", "phase_tables", "table_from_env", "why_not_table_backed"]
 
 _TABLE_STEP_CLASSES = (FrozenLakeEnv, CliffWalkingEnv, TaxiEnv, GridWorld)
 _NEUTRAL_WRAPPERS = (TimeLimit, OrderEnforcing, PassiveEnvChecker)
@@ -109,3 +109,21 @@ def table_from_env(env: gym.Env) -> TransitionTable:
         terminated=np.array([e[3] for e in flat], dtype=np.bool_),
         step_limit=_step_limit(env),
     )
+
+
+def change_steps(env: gym.Env) -> tuple[int, ...]:
+    """Real steps after which a changing environment switches to its next map (empty for fixed ones)."""
+    return tuple(getattr(env.unwrapped, "change_steps", ()))
+
+
+def phase_tables(env: gym.Env) -> tuple[TransitionTable, ...]:
+    """One table per phase of a changing environment (one table for a fixed one); leaves it in phase 0."""
+    base = env.unwrapped
+    if not change_steps(env):
+        return (table_from_env(env),)
+    tables = []
+    for phase in range(base.n_phases):
+        base.set_phase(phase)
+        tables.append(table_from_env(env))
+    base.set_phase(0)
+    return tuple(tables)
