@@ -16,7 +16,7 @@ from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from numba import literally, njit, objmode, types
+from numba import literally, njit, objmode, typeof, types
 from numba.extending import overload
 
 from runner.agents import agent_class
@@ -243,7 +243,7 @@ def run_table_trial(
     return n_episodes
 
 
-_ENTRY_POINTS: dict[str, Callable[..., int]] = {}
+_ENTRY_POINTS: dict[tuple, Callable[..., int]] = {}
 
 _run_table_trial_uncached = njit(cache=False)(run_table_trial.py_func)
 """The same loop for agent kinds from the user's own modules: numba's disk cache would not notice when the
@@ -254,17 +254,21 @@ each process."""
 def run_kind_trial(kind: str, *args: Any) -> int:
     """Call `run_table_trial(kind, *args)` from Python without numba's per-call literal dispatch.
 
-    The first call for a kind goes through the dispatcher, which compiles the kind's loop or loads it from the
-    disk cache; later calls go straight to that compiled loop's entry point, saving tens of milliseconds of
-    dispatch per trial (the loop itself often takes less).
+    The first call for a kind and argument types goes through the dispatcher, which compiles the loop or loads it
+    from the disk cache; later calls with the same types go straight to that compiled loop's entry point, saving
+    tens of milliseconds of dispatch per trial (the loop itself often takes less). The argument types are part of
+    the key: an entry point must never see arguments of other types (say, a different number of map phases).
     """
-    entry = _ENTRY_POINTS.get(kind)
+    arg_types = tuple(typeof(arg) for arg in args)
+    key = (kind, arg_types)
+    entry = _ENTRY_POINTS.get(key)
     if entry is not None:
         return entry(kind, *args)
     loop = _run_table_trial_uncached if ":" in kind else run_table_trial
     result = loop(kind, *args)
     for signature, compiled in loop.overloads.items():
-        first = signature[0]
-        if isinstance(first, types.StringLiteral) and first.literal_value == kind:
-            _ENTRY_POINTS[kind] = compiled.entry_point
+        first = signature.args[0] if hasattr(signature, "args") else signature[0]
+        rest = tuple(signature.args[1:] if hasattr(signature, "args") else signature[1:])
+        if isinstance(first, types.StringLiteral) and first.literal_value == kind and rest == arg_types:
+            _ENTRY_POINTS[key] = compiled.entry_point
     return result
