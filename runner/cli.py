@@ -67,6 +67,18 @@ def _parser() -> argparse.ArgumentParser:
     rerun.add_argument("--all", action="store_true", help="check every stored trial")
     rerun.add_argument("--seed", type=int, default=0, help="seed of the random sample (default 0)")
 
+    seeds = sub.add_parser("seeds", help="how many seeds a study needs to detect given AUC differences")
+    seeds.add_argument("folder", help="a stored (pilot) study's results folder")
+    seeds.add_argument(
+        "--difference",
+        type=float,
+        action="append",
+        metavar="D",
+        help="an AUC difference to detect, in return units (repeat for several; default 0.05, 0.1 and 0.2)",
+    )
+    seeds.add_argument("--alpha", type=float, default=0.05, help="significance level (default 0.05)")
+    seeds.add_argument("--power", type=float, default=0.8, help="wanted power (default 0.8)")
+
     check = sub.add_parser("check", help="validate a study and print how many trials it declares")
     check.add_argument("study", help="the study YAML file")
 
@@ -91,6 +103,8 @@ def main(argv: list[str] | None = None) -> int:
             return _report(Path(args.folder), args.out)
         if args.command == "rerun":
             return _rerun(args)
+        if args.command == "seeds":
+            return _seeds(args)
         return _list(args.what)
     except _USER_ERRORS as err:
         print(f"stepmeter: error: {err}", file=sys.stderr)
@@ -153,6 +167,50 @@ def _rerun(args: argparse.Namespace) -> int:
     mismatched = sum(not c.matched for c in checks)
     print(f"{len(checks) - mismatched} of {len(checks)} re-run trials reproduced their stored rows")
     return 1 if mismatched else 0
+
+
+def _seeds(args: argparse.Namespace) -> int:
+    import pandas as pd
+
+    from runner.analysis.curves import trial_scores
+    from runner.analysis.frames import load_results, open_store
+    from runner.analysis.power import seeds_advice
+
+    differences = args.difference or [0.05, 0.1, 0.2]
+    if any(d <= 0 for d in differences) or not 0 < args.alpha < 1 or not 0 < args.power < 1:
+        print("stepmeter: error: seeds: differences must be > 0, alpha and power in (0, 1)", file=sys.stderr)
+        return 2
+    with open_store(args.folder) as store:
+        facts = store.facts()
+    scores = trial_scores(load_results(args.folder))
+    if scores.empty:
+        print(f"stepmeter: error: {args.folder}: no stored trials to learn the spread of AUC from", file=sys.stderr)
+        return 2
+    print(
+        f"seeds per agent for a two-sided two-sample t-test on AUC at alpha {args.alpha:g} and power {args.power:g}, "
+        "from this study's spread between seeds (a guide: few pilot seeds give uncertain spreads)"
+    )
+    for env in facts["env_order"]:
+        advice = seeds_advice(
+            scores,
+            env,
+            differences,
+            baseline=facts["baseline"],
+            agent_order=facts["agent_order"],
+            alpha=args.alpha,
+            power=args.power,
+        )
+        if advice.empty:
+            continue
+        print(f"\n{env}")
+        for row in advice.itertuples():
+            needed = "more than 10000 (or an unknown number of)" if row.seeds_needed is pd.NA else row.seeds_needed
+            print(
+                f"  {row.agent_a} vs {row.agent_b}: AUC difference {row.difference:g} needs {needed} seeds each "
+                f"(pilot sds {row.sd_a:.3g} and {row.sd_b:.3g} over {row.n_a} and {row.n_b} seeds; "
+                f"power now {row.power_now:.2f})"
+            )
+    return 0
 
 
 def _check(args: argparse.Namespace) -> int:

@@ -102,7 +102,11 @@ class Store:
         except sqlite3.DatabaseError as err:
             raise StoreError(f"{self.path}: not a readable stepmeter database ({err})") from None
         if version is None or int(version[0]) != SCHEMA_VERSION:
-            raise StoreError(f"{self.path}: unsupported store version {version and version[0]}")
+            found = "no version" if version is None else f"store version {version[0]}"
+            raise StoreError(
+                f"{self.path}: written by another stepmeter release ({found}, this one reads {SCHEMA_VERSION}); "
+                "run the study again with --start-over, or use the release that wrote it"
+            )
 
     def close(self) -> None:
         """Close the connection."""
