@@ -12,8 +12,9 @@ from typing import Any
 
 import numpy as np
 
-from runner.agents import TabularAgent, agent_class
+from runner.agents import AGENTS, TabularAgent, agent_class
 from runner.envs.sources import build_env, env_sizes
+from runner.planning.negamax import solve_negamax
 from runner.streams import new_stream
 from runner.trial import METRIC_COLUMNS, run_trial
 
@@ -43,7 +44,27 @@ SLIPPERY = {
 }
 """A small stochastic task with a hazard, for determinism and accounting checks."""
 
+GAME = {
+    "source": "entry",
+    "entry": "runner.envs.takeaway:TakeAwayGame",
+    "options": {"heaps": [2, 3, 4], "opponent": "random"},
+    "step_limit": None,
+}
+"""A small take-away game (60 positions) standing in for the grid tasks for kinds that search a game's rules
+(`needs_rules = True`): the grid maps have no game rules to search."""
+
 _EAST = 1
+
+
+def _task(cls: type[TabularAgent], usual: dict) -> dict:
+    """The environment a check runs a kind on: the usual grid task, or GAME for kinds that need game rules."""
+    return GAME if cls.needs_rules else usual
+
+
+def _kind_name(cls: type[TabularAgent]) -> str:
+    """What a trial spec names the class by: its registered kind, else its 'module:Class' entry point."""
+    entry = f"{cls.__module__}:{cls.__qualname__}"
+    return cls.kind if AGENTS.entries.get(cls.kind) == entry else entry
 
 
 class ContractError(AssertionError):
@@ -54,7 +75,8 @@ def _drive(agent: TabularAgent, env_spec: dict, steps: int, seed: int) -> list[i
     """Set the agent up on the environment and learn for `steps` real steps; return the actions taken."""
     env = build_env(env_spec)
     n_states, n_actions = env_sizes(env)
-    agent.setup(n_states, n_actions, seed)
+    rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
+    agent.setup(n_states, n_actions, seed, rules=rules)
     state, _ = env.reset(seed=seed)
     actions = []
     for _ in range(steps):
@@ -94,7 +116,8 @@ def _check_params_round_trip(cls: type[TabularAgent], params: dict) -> None:
 
 def _check_same_seed_same_run(cls: type[TabularAgent], params: dict) -> None:
     a, b = cls(**params), cls(**params)
-    if _drive(a, SLIPPERY, 400, seed=7) != _drive(b, SLIPPERY, 400, seed=7):
+    task = _task(cls, SLIPPERY)
+    if _drive(a, task, 400, seed=7) != _drive(b, task, 400, seed=7):
         raise ContractError("two runs with the same seed chose different actions")
     for x, y in zip(a.arrays_, b.arrays_, strict=True):
         if not np.array_equal(x, y):
@@ -102,13 +125,14 @@ def _check_same_seed_same_run(cls: type[TabularAgent], params: dict) -> None:
 
 
 def _check_different_seeds_differ(cls: type[TabularAgent], params: dict) -> None:
-    if _drive(cls(**params), SLIPPERY, 400, seed=1) == _drive(cls(**params), SLIPPERY, 400, seed=2):
+    task = _task(cls, SLIPPERY)
+    if _drive(cls(**params), task, 400, seed=1) == _drive(cls(**params), task, 400, seed=2):
         raise ContractError("runs with seeds 1 and 2 chose exactly the same 400 actions; is the stream used?")
 
 
 def _check_actions_valid(cls: type[TabularAgent], params: dict) -> None:
     agent = cls(**params)
-    actions = _drive(agent, SLIPPERY, 300, seed=3)
+    actions = _drive(agent, _task(cls, SLIPPERY), 300, seed=3)
     stream = new_stream(0)
     greedy = [agent.greedy(s, stream) for s in range(agent.n_states_)]
     bad = [a for a in actions + greedy if not 0 <= a < agent.n_actions_]
@@ -117,6 +141,9 @@ def _check_actions_valid(cls: type[TabularAgent], params: dict) -> None:
 
 
 def _check_learning_changes_behaviour(cls: type[TabularAgent], params: dict) -> None:
+    if cls.needs_rules:
+        _check_plays_the_game(cls, params)
+        return
     agent = cls(**params)
     _drive(agent, CORRIDOR, 3000, seed=5)
     stream = new_stream(11)
@@ -126,17 +153,32 @@ def _check_learning_changes_behaviour(cls: type[TabularAgent], params: dict) -> 
             raise ContractError(f"after 3000 steps in a corridor the greedy actions in cell {state} are {chosen}")
 
 
+def _check_plays_the_game(cls: type[TabularAgent], params: dict) -> None:
+    """For kinds that search a game (their behaviour comes from search, not learning): after 300 steps of GAME,
+    the greedy move from at least 90% of the positions won for the player to move (exact negamax solve) leads to
+    a position lost for the opponent."""
+    agent = cls(**params)
+    _drive(agent, GAME, 300, seed=5)
+    next_position, is_terminal, terminal_value = agent.rules_[0], agent.rules_[1], agent.rules_[2]
+    value = solve_negamax(next_position, is_terminal, terminal_value)
+    stream = new_stream(11)
+    won = [s for s in range(agent.n_states_) if not is_terminal[s] and value[s] > 0]
+    good = sum(value[next_position[s, agent.greedy(s, stream)]] < 0 for s in won)
+    if good < 0.9 * len(won):
+        raise ContractError(f"the greedy move keeps the win in only {good} of {len(won)} won positions of GAME")
+
+
 def _check_params_unchanged(cls: type[TabularAgent], params: dict) -> None:
     agent = cls(**params)
     before = agent.get_params()
-    _drive(agent, SLIPPERY, 300, seed=4)
+    _drive(agent, _task(cls, SLIPPERY), 300, seed=4)
     if agent.get_params() != before:
         raise ContractError("learning changed the agent's parameters")
 
 
 def _check_counters_add_up(cls: type[TabularAgent], params: dict) -> None:
     agent = cls(**params)
-    _drive(agent, SLIPPERY, 500, seed=6)
+    _drive(agent, _task(cls, SLIPPERY), 500, seed=6)
     problems = agent.counter_problems(500)
     if problems:
         raise ContractError("counters do not add up: " + "; ".join(problems))
@@ -144,10 +186,11 @@ def _check_counters_add_up(cls: type[TabularAgent], params: dict) -> None:
 
 def _check_trial_rows_reproducible(cls: type[TabularAgent], params: dict) -> None:
     columns = [c for c in METRIC_COLUMNS if c != "wall_seconds"]
+    kind, task = _kind_name(cls), _task(cls, SLIPPERY)
     for path in ("compiled", "gymnasium"):
-        first = run_trial(_trial_spec(cls.kind, params, SLIPPERY, seed=9), path).rows
-        again = run_trial(_trial_spec(cls.kind, params, SLIPPERY, seed=9), path).rows
-        other = run_trial(_trial_spec(cls.kind, params, SLIPPERY, seed=10), path).rows
+        first = run_trial(_trial_spec(kind, params, task, seed=9), path).rows
+        again = run_trial(_trial_spec(kind, params, task, seed=9), path).rows
+        other = run_trial(_trial_spec(kind, params, task, seed=10), path).rows
         for c in columns:
             if not np.array_equal(first[c], again[c], equal_nan=True):
                 raise ContractError(f"on the {path} path the same trial spec gave different {c!r} rows")

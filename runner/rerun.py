@@ -103,7 +103,7 @@ def rerun_trials(folder: str | Path, trial_ids: list[str]) -> list[RerunCheck]:
                     np.array(rows, dtype=np.float64),
                 )
             )
-    warm_up({(spec["agent"]["kind"], path) for _, spec, path, *_ in records})
+    warm_up([(spec, path) for _, spec, path, *_ in records])
     checks = []
     for trial_id, spec, path, label, run_versions, run_platform, stored in records:
         result = run_trial(spec, path)

@@ -13,7 +13,7 @@ from runner.lock import StudyLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
 from runner.provenance import platform_text, versions
-from runner.schedule import TrialOutcome, needed_kernels, run_parallel, warm_up
+from runner.schedule import TrialOutcome, run_parallel, warm_up
 from runner.store import Store, remove_store, study_dir
 
 __all__ = ["RunOptions", "RunSummary", "run_study", "study_facts"]
@@ -125,7 +125,7 @@ def _run_locked(
         platform=platform_text(),
         jobs=n_jobs,
     )
-    warm_up(needed_kernels(todo, options.trial_path))
+    warm_up([(t.spec, options.trial_path) for t in todo])
     progress = Progress(len(todo))
 
     def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:

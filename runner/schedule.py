@@ -6,6 +6,7 @@ load them instead of compiling them again.
 
 from __future__ import annotations
 
+import json
 import signal
 import threading
 import traceback
@@ -16,25 +17,13 @@ from typing import Any
 import numpy as np
 from joblib import Parallel, delayed
 
-from runner.agents import make_agent
-from runner.plan import SPEC_FORMAT, PlannedTrial
+from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
 
 NAN_ALLOWED = ("train_return", "model_tv_error", "model_reward_error")
 """Metric columns where NaN means "not applicable yet" rather than a broken trial."""
 
-__all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "needed_kernels", "run_parallel", "warm_up"]
-
-_WARM_UP_GRID = {
-    "source": "grid",
-    "map": "S~G",
-    "slip": 0.5,
-    "step_reward": 0.0,
-    "goal_reward": 1.0,
-    "hazard_penalty": -1.0,
-    "hazard_ends": True,
-    "step_limit": 3,
-}
+__all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "run_parallel", "warm_up"]
 
 
 @dataclass
@@ -76,27 +65,22 @@ def execute_trial(
         return TrialOutcome(trial_id, None, "", type(err).__name__, str(err), traceback.format_exc())
 
 
-def warm_up(needs: set[tuple[str, str]]) -> None:
-    """Compile (or load from numba's disk cache) the kernels of each (agent kind, trial path) needed.
+def warm_up(runs: list[tuple[dict[str, Any], str]]) -> None:
+    """Compile (or load from numba's disk cache) what the given (trial spec, path) pairs will run.
 
-    Done once in the parent before dispatch, so worker processes load the cached machine code instead of
-    compiling it again.
+    One four-step trial per distinct agent kind, path and environment, run in the parent before dispatch, so
+    worker processes load the cached machine code instead of compiling it again (the environment matters: it
+    fixes the argument types the compiled loop is built for).
     """
-    for kind, path in sorted(needs):
-        spec = {
-            "format": SPEC_FORMAT,
-            "env": _WARM_UP_GRID,
-            "agent": {"kind": kind, "params": make_agent(kind, {}).get_params()},
-            "seed": 0,
-            "real_steps": 4,
-            "evaluation": {"every": 2, "episodes": 1, "step_cap": 3, "training_window": 2},
-        }
-        run_trial(spec, path)
-
-
-def needed_kernels(trials: list[PlannedTrial], path: str) -> set[tuple[str, str]]:
-    """The (agent kind, trial path) pairs a list of trials will use."""
-    return {(t.spec["agent"]["kind"], resolve_path(t.spec, path)) for t in trials}
+    done = set()
+    for spec, path in runs:
+        chosen = resolve_path(spec, path)
+        key = (spec["agent"]["kind"], chosen, json.dumps(spec["env"], sort_keys=True))
+        if key in done:
+            continue
+        done.add(key)
+        evaluation = {**spec["evaluation"], "every": 2, "episodes": 1, "step_cap": 3}
+        run_trial({**spec, "real_steps": 4, "evaluation": evaluation}, chosen)
 
 
 def run_parallel(

@@ -36,6 +36,12 @@ ENV_SPECS = {
         "step_limit": None,
     },
     "grid": GRID,
+    "entry-takeaway": {
+        "source": "entry",
+        "entry": "runner.envs.takeaway:TakeAwayGame",
+        "options": {"heaps": [2, 3, 4], "opponent": "random"},
+        "step_limit": None,
+    },
     "entry": {
         "source": "entry",
         "entry": "runner.envs.grid:GridWorld",

@@ -17,6 +17,7 @@ AGENTS = Registry(
         "dyna_q_plus": "runner.agents.dyna_q_plus:DynaQPlus",
         "rmax": "runner.agents.rmax:RMax",
         "prioritized_sweeping": "runner.agents.prioritized_sweeping:PrioritizedSweeping",
+        "negamax_search": "runner.agents.self_play:NegamaxSearch",
     },
 )
 

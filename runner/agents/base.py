@@ -39,6 +39,9 @@ class TabularAgent:
         """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
         return dict(self._params)
 
+    needs_rules: ClassVar[bool] = False
+    """Kinds that search a game's rules set this; they run only on game environments (`game_rules()`)."""
+
     needs_table: ClassVar[bool] = False
     """Kinds that plan on the environment's true table (oracles) set this; `setup` then requires the table."""
 

@@ -19,10 +19,11 @@ from gymnasium.wrappers import OrderEnforcing, PassiveEnvChecker, TimeLimit
 
 from runner.envs.grid import GridWorld
 from runner.envs.sources import env_sizes
+from runner.envs.takeaway import TakeAwayGame
 
 __all__ = ["TransitionTable", "change_steps", "phase_tables", "table_from_env", "why_not_table_backed"]
 
-_TABLE_STEP_CLASSES = (FrozenLakeEnv, CliffWalkingEnv, TaxiEnv, GridWorld)
+_TABLE_STEP_CLASSES = (FrozenLakeEnv, CliffWalkingEnv, TaxiEnv, GridWorld, TakeAwayGame)
 _NEUTRAL_WRAPPERS = (TimeLimit, OrderEnforcing, PassiveEnvChecker)
 
 
