@@ -154,6 +154,9 @@ def _rerun(args: argparse.Namespace) -> int:
     if args.sample is not None and args.sample < 1:
         print(f"stepmeter: error: rerun --sample: expected a whole number >= 1, got {args.sample}", file=sys.stderr)
         return 2
+    if args.trial_ids and (args.sample or args.all):
+        print("stepmeter: error: rerun: give TRIAL_ID(s), or --sample K, or --all; not several", file=sys.stderr)
+        return 2
     if not (args.trial_ids or args.sample or args.all):
         print("stepmeter: error: rerun: give TRIAL_ID(s), --sample K or --all", file=sys.stderr)
         return 2

@@ -6,6 +6,7 @@ alone writes the store. joblib batches trials into tasks on its own.
 
 from __future__ import annotations
 
+import socket
 from collections.abc import Iterable, Iterator
 from typing import Any
 
@@ -13,7 +14,20 @@ from joblib import Parallel, parallel_config
 
 from runner.errors import ClusterError
 
-__all__ = ["run_on_cluster"]
+__all__ = ["check_reachable", "run_on_cluster"]
+
+
+def check_reachable(address: str, timeout: float = 5.0) -> None:
+    """Fail at once, with one clear line, when nothing listens at a tcp:// scheduler address."""
+    if not address.startswith("tcp://"):
+        return
+    host, _, port = address.removeprefix("tcp://").rpartition(":")
+    if not host or not port.isdigit():
+        raise ClusterError(f"expected a scheduler address like tcp://HOST:8786, got {address!r}")
+    try:
+        socket.create_connection((host.strip("[]"), int(port)), timeout=timeout).close()
+    except OSError as err:
+        raise ClusterError(f"cannot reach a dask scheduler at {address!r}: {err}") from None
 
 
 def run_on_cluster(address: str, tasks: Iterable[Any], connect_timeout: float = 30.0) -> Iterator[Any]:

@@ -116,6 +116,10 @@ def _run_locked(
     )
     if not todo:
         return summary
+    if options.cluster:
+        from runner.cluster import check_reachable
+
+        check_reachable(options.cluster)
     run_id = store.begin_run(
         command=command or " ".join(sys.argv),
         study_file=str(Path(path).resolve()),
@@ -138,13 +142,15 @@ def _run_locked(
             store.write_trial(trial, run_id, outcome.rows, outcome.trial_path)
         progress.advance(failed=outcome.rows is None)
 
+    outcome = "aborted"
     try:
         run_parallel(todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster)
+        outcome = "failures" if summary.failed else "complete"
     except KeyboardInterrupt:
         summary.interrupted = True
+        outcome = "interrupted"
     finally:
         progress.close()
         summary.ran = store.count_trials(run_id)
-        outcome = "interrupted" if summary.interrupted else ("failures" if summary.failed else "complete")
         store.end_run(run_id, outcome)
     return summary
