@@ -254,21 +254,16 @@ each process."""
 def run_kind_trial(kind: str, *args: Any) -> int:
     """Call `run_table_trial(kind, *args)` from Python without numba's per-call literal dispatch.
 
-    The first call for a kind and argument types goes through the dispatcher, which compiles the loop or loads it
-    from the disk cache; later calls with the same types go straight to that compiled loop's entry point, saving
-    tens of milliseconds of dispatch per trial (the loop itself often takes less). The argument types are part of
-    the key: an entry point must never see arguments of other types (say, a different number of map phases).
+    The loop is compiled (or loaded from the disk cache) once per kind and argument types, for exactly that
+    signature with the kind as a literal, and then called straight through its entry point: dispatching by
+    value would cost tens of milliseconds per trial, often more than the trial. The argument types are part of
+    the key, so an entry point never sees arguments of other types (say, a different number of map phases).
     """
     arg_types = tuple(typeof(arg) for arg in args)
     key = (kind, arg_types)
     entry = _ENTRY_POINTS.get(key)
-    if entry is not None:
-        return entry(kind, *args)
-    loop = _run_table_trial_uncached if ":" in kind else run_table_trial
-    result = loop(kind, *args)
-    for signature, compiled in loop.overloads.items():
-        first = signature.args[0] if hasattr(signature, "args") else signature[0]
-        rest = tuple(signature.args[1:] if hasattr(signature, "args") else signature[1:])
-        if isinstance(first, types.StringLiteral) and first.literal_value == kind and rest == arg_types:
-            _ENTRY_POINTS[key] = compiled.entry_point
-    return result
+    if entry is None:
+        loop = _run_table_trial_uncached if ":" in kind else run_table_trial
+        entry = loop.compile((types.literal(kind), *arg_types))
+        _ENTRY_POINTS[key] = entry
+    return entry(kind, *args)

@@ -26,7 +26,7 @@ __all__ = ["DB_NAME", "SCHEMA_VERSION", "Store", "remove_store", "study_dir"]
 
 DB_NAME = "study.sqlite"
 SCHEMA_VERSION = 3
-_INT_COLUMNS = {"real_steps", "episodes", "real_updates", "planning_updates", "model_updates", "env_phase"}
+INT_COLUMNS = {"real_steps", "episodes", "real_updates", "planning_updates", "model_updates", "env_phase"}
 
 _SCHEMA = f"""
 CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
@@ -42,7 +42,7 @@ CREATE TABLE IF NOT EXISTS trials (
 );
 CREATE TABLE IF NOT EXISTS metrics (
     trial_id TEXT NOT NULL REFERENCES trials(trial_id), point INTEGER NOT NULL,
-    {", ".join(f"{c} {'INTEGER' if c in _INT_COLUMNS else 'REAL'}" for c in METRIC_COLUMNS)},
+    {", ".join(f"{c} {'INTEGER' if c in INT_COLUMNS else 'REAL'}" for c in METRIC_COLUMNS)},
     PRIMARY KEY (trial_id, point)
 ) WITHOUT ROWID;
 CREATE TABLE IF NOT EXISTS declared (
@@ -200,13 +200,16 @@ class Store:
     def write_trial(self, trial: PlannedTrial, run_id: int, rows: dict[str, np.ndarray], trial_path: str) -> None:
         """Store a finished trial and all its metric rows in one transaction."""
         n = len(rows["real_steps"])
-        values = []
-        for i in range(n):
-            row: list[Any] = [trial.trial_id, i]
-            for c in METRIC_COLUMNS:
-                x = float(rows[c][i])
-                row.append(int(x) if c in _INT_COLUMNS else (None if np.isnan(x) else x))
-            values.append(row)
+        columns: list[list] = [[trial.trial_id] * n, list(range(n))]
+        for c in METRIC_COLUMNS:
+            values = np.asarray(rows[c], dtype=np.float64)
+            if c in INT_COLUMNS:
+                columns.append(values.astype(np.int64).tolist())
+            else:
+                as_list = values.tolist()
+                for i in np.flatnonzero(np.isnan(values)):
+                    as_list[i] = None
+                columns.append(as_list)
         placeholders = ", ".join("?" * (2 + len(METRIC_COLUMNS)))
         with self.conn:
             self.conn.execute(
@@ -224,7 +227,7 @@ class Store:
                     float(rows["wall_seconds"][-1]),
                 ),
             )
-            self.conn.executemany(f"INSERT INTO metrics VALUES ({placeholders})", values)
+            self.conn.executemany(f"INSERT INTO metrics VALUES ({placeholders})", zip(*columns, strict=True))
 
     def write_failure(self, trial_id: str, run_id: int, error_type: str, message: str, traceback: str) -> None:
         """Record a failed trial; the study goes on."""

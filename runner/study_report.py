@@ -1,13 +1,51 @@
-"""Make the report of a stored study: read its facts and rows, write figures and tables."""
+"""Make the report of a stored study: read its facts, rows and records, write figures, tables and the page."""
 
 from __future__ import annotations
 
+import json
 from pathlib import Path
 
-from runner.analysis.frames import load_results, missing_trials, open_store, undeclared_trials
-from runner.analysis.report import ReportOutput, StudyFacts, write_report
+import pandas as pd
 
-__all__ = ["report_study"]
+from runner.analysis.frames import load_results, missing_trials, open_store, undeclared_trials
+from runner.analysis.page import FAILURE_COLUMNS, RUN_COLUMNS, StudyRecords
+from runner.analysis.report import ReportOutput, StudyFacts, write_report
+from runner.store import Store
+
+__all__ = ["report_study", "study_records", "variant_params"]
+
+
+def study_records(folder: str | Path) -> StudyRecords:
+    """Runs (provenance), failures with their trial labels, missing and undeclared trials of a stored study.
+
+    A failure's labels come from the current declaration, or from the stored trial when the study file no
+    longer declares it; `stored_later` says whether some run stored a result for that trial afterwards.
+    """
+    with open_store(folder) as store:
+        runs = store.query(f"SELECT {', '.join(RUN_COLUMNS)} FROM runs ORDER BY run_id")
+        failures = store.query(
+            "SELECT d.env_label, d.agent_label, d.seed, f.trial_id, f.run_id, f.error_type, f.message, f.at, "
+            "f.trial_id IN (SELECT trial_id FROM trials) FROM failures f "
+            "LEFT JOIN declared d ON d.trial_id = f.trial_id ORDER BY f.failure_id"
+        )
+    failure_frame = pd.DataFrame.from_records(failures, columns=FAILURE_COLUMNS)
+    return StudyRecords(
+        runs=pd.DataFrame.from_records(runs, columns=RUN_COLUMNS),
+        failures=failure_frame.astype({"stored_later": bool}),
+        missing=missing_trials(folder),
+        undeclared=undeclared_trials(folder),
+    )
+
+
+def variant_params(store: Store) -> dict[str, dict]:
+    """Each declared agent label's parameters, read from the stored trial specs (one spec per label suffices)."""
+    # SQLite takes the bare `spec` column from the row holding min(position) of each group.
+    rows = store.query("SELECT agent_label, spec, min(position) FROM declared GROUP BY agent_label")
+    params: dict[str, dict] = {}
+    for label, spec, _ in rows:
+        value = json.loads(spec).get("agent", {}).get("params", {})
+        params[str(label)] = dict(value) if isinstance(value, dict) else {}
+    return params
 
 
 def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple[ReportOutput, str]:
@@ -18,8 +56,10 @@ def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple
     folder = Path(folder)
     with open_store(folder) as store:
         facts = store.facts()
+        params = variant_params(store)
     frame = load_results(folder)
-    missing = missing_trials(folder)
+    records = study_records(folder)
+    missing = records.missing
     study_facts = StudyFacts(
         name=facts["name"],
         budget=facts["real_steps"],
@@ -27,13 +67,16 @@ def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple
         thresholds=facts["thresholds"],
         env_order=facts["env_order"],
         agent_order=facts["agent_order"],
+        consecutive=int(facts.get("consecutive", 1)),
+        description=str(facts.get("description") or ""),
+        variant_params=params,
     )
-    output = write_report(frame, study_facts, Path(out_dir) if out_dir else folder / "report")
+    output = write_report(frame, study_facts, Path(out_dir) if out_dir else folder / "report", records)
     declared = frame["trial_id"].nunique() + len(missing)
     note = f"{declared - len(missing)} of {declared} declared trials have stored results"
     if len(missing):
         note += f"; {len(missing)} missing (not run yet, interrupted or failed): run the study again to add them"
-    extra = undeclared_trials(folder)
+    extra = records.undeclared
     if len(extra):
         kinds = sorted({f"{e} / {a}" for e, a in zip(extra["env"], extra["agent"], strict=True)})
         note += f"\n{len(extra)} stored trials are no longer declared by the study file and are left out: " + "; ".join(

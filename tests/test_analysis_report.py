@@ -79,10 +79,24 @@ def test_write_report_writes_every_file(tmp_path):
     output = write_report(frame, _facts(), out_dir)
 
     names = {path.name for path in output.files}
-    expected = {"summary.csv", "summary.md", "trial_scores.csv", "curves.csv"}
-    for env in _ENVS:
-        expected |= {f"curves_{safe_name(env)}.png", f"curves_{safe_name(env)}.svg"}
+    expected = {"summary.csv", "summary.md", "trial_scores.csv", "curves.csv", "report.html"}
+    expected |= {
+        f"{name}.csv"
+        for name in (
+            "steps_to_threshold",
+            "threshold_summary",
+            "efficiency",
+            "comparisons",
+            "seeds_advice",
+            "frontier",
+        )
+    }
+    figures = {env: ["curves", "budget"] for env in _ENVS}
+    figures["FrozenLake-v1 4x4"] += ["threshold", "frontier"]  # the only env with a threshold
+    for env, stems in figures.items():
+        expected |= {f"{stem}_{safe_name(env)}.{ext}" for stem in stems for ext in ("png", "svg")}
     assert names == expected
+    assert len(output.files) == len(expected)
     for path in output.files:
         assert path.parent == out_dir
         assert path.stat().st_size > 0
@@ -146,10 +160,14 @@ def test_empty_frame_is_rejected(tmp_path):
         write_report(_frame().iloc[0:0], _facts(), tmp_path)
 
 
+@pytest.mark.slow
 def test_report_is_reproducible(tmp_path):
     write_report(_frame(), _facts(), tmp_path / "a")
     write_report(_frame(), _facts(), tmp_path / "b")
-    for name in ("summary.csv", "trial_scores.csv", "curves.csv", "summary.md"):
+    names = ["summary.csv", "trial_scores.csv", "curves.csv", "summary.md", "steps_to_threshold.csv"]
+    names += ["threshold_summary.csv", "efficiency.csv", "comparisons.csv", "seeds_advice.csv", "frontier.csv"]
+    names.append("report.html")
+    for name in names:
         assert (tmp_path / "a" / name).read_text() == (tmp_path / "b" / name).read_text()
 
 

@@ -108,19 +108,33 @@ def trial_scores(frame: pd.DataFrame) -> pd.DataFrame:
     `auc` is the time-averaged greedy evaluation return over the real steps taken (see `normalized_auc`);
     `planning_per_real` is planning updates per real environment step at the last point (0 before any step).
     """
-    records = []
-    for keys, trial in frame.groupby(_TRIAL_KEYS, sort=True):
-        ordered = trial.sort_values("point")
-        last = ordered.iloc[-1]
-        steps = float(last["real_steps"])
-        records.append(
-            {
-                **dict(zip(_TRIAL_KEYS, keys, strict=True)),
-                "auc": normalized_auc(ordered["real_steps"].to_numpy(), ordered["eval_return"].to_numpy()),
-                "final_return": float(last["eval_return"]),
-                "real_steps": int(last["real_steps"]),
-                "planning_per_real": float(last["planning_updates"]) / steps if steps else 0.0,
-                "wall_seconds": float(last["wall_seconds"]),
-            }
-        )
-    return pd.DataFrame.from_records(records, columns=SCORE_COLUMNS)
+    if frame.empty:
+        return pd.DataFrame(columns=SCORE_COLUMNS)
+    codes = frame.groupby(_TRIAL_KEYS, sort=True, observed=True).ngroup().to_numpy()
+    order = np.lexsort((frame["point"].to_numpy(), codes))
+    code = codes[order]
+    steps = frame["real_steps"].to_numpy(dtype=float)[order]
+    returns = frame["eval_return"].to_numpy(dtype=float)[order]
+    starts = np.r_[True, code[1:] != code[:-1]]
+    first = np.flatnonzero(starts)
+    last = np.r_[first[1:] - 1, code.size - 1]
+    within = ~starts[1:]
+    if np.any(np.diff(steps)[within] < 0):
+        raise ValueError("real_steps must be non-decreasing within each trial")
+    segments = np.diff(steps) * (returns[1:] + returns[:-1]) / 2.0
+    n_trials = first.size
+    area = np.bincount(code[:-1][within], weights=segments[within], minlength=n_trials)
+    mean = np.bincount(code, weights=returns, minlength=n_trials) / np.bincount(code, minlength=n_trials)
+    span = steps[last] - steps[first]
+    planning = frame["planning_updates"].to_numpy(dtype=float)[order][last]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        auc = np.where(span > 0, area / span, mean)
+        per_real = np.where(steps[last] > 0, planning / steps[last], 0.0)
+    keys = frame[_TRIAL_KEYS].iloc[order[first]].reset_index(drop=True)
+    return keys.assign(
+        auc=auc,
+        final_return=returns[last],
+        real_steps=steps[last].astype(int),
+        planning_per_real=per_real,
+        wall_seconds=frame["wall_seconds"].to_numpy(dtype=float)[order][last],
+    )[SCORE_COLUMNS]

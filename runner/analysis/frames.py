@@ -4,10 +4,14 @@ from __future__ import annotations
 
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
-from runner.store import DB_NAME, Store
+from runner.store import DB_NAME, INT_COLUMNS, Store
 from runner.trial import METRIC_COLUMNS
+
+_CHUNK = 100_000
+"""Rows fetched at a time: straight into float arrays, so no per-row Python objects pile up."""
 
 __all__ = ["load_failures", "load_results", "missing_trials", "open_store", "undeclared_trials"]
 
@@ -27,16 +31,28 @@ def load_results(path: str | Path) -> pd.DataFrame:
     the study file currently declares are included, in declaration order.
     """
     with open_store(path) as store:
+        declared = pd.DataFrame.from_records(
+            store.query(
+                "SELECT position, env_label, agent_label, kind, trial_id, seed FROM declared ORDER BY position"
+            ),
+            columns=["position", "env", "agent", "kind", "trial_id", "seed"],
+        )
         metric_sql = ", ".join(f"m.{c}" for c in METRIC_COLUMNS)
-        rows = store.query(
-            "SELECT d.env_label, d.agent_label, d.kind, d.trial_id, d.seed, m.point, "
-            f"{metric_sql} FROM declared d JOIN metrics m ON m.trial_id = d.trial_id "
+        cursor = store.conn.execute(
+            f"SELECT d.position, m.point, {metric_sql} FROM declared d JOIN metrics m ON m.trial_id = d.trial_id "
             "ORDER BY d.position, m.point"
         )
-    columns = ["env", "agent", "kind", "trial_id", "seed", "point", *METRIC_COLUMNS]
-    frame = pd.DataFrame.from_records(rows, columns=columns)
-    floats = ("eval_return", "train_return", "model_tv_error", "model_reward_error", "wall_seconds")
-    return frame.astype(dict.fromkeys(floats, "float64"))
+        chunks = []
+        while rows := cursor.fetchmany(_CHUNK):
+            chunks.append(np.array(rows, dtype=np.float64))
+    values = np.concatenate(chunks) if chunks else np.empty((0, 2 + len(METRIC_COLUMNS)))
+    where = np.searchsorted(declared["position"].to_numpy(), values[:, 0].astype(np.int64))
+    frame = pd.DataFrame({name: declared[name].to_numpy()[where] for name in ("env", "agent", "kind", "trial_id")})
+    frame["seed"] = declared["seed"].to_numpy(dtype=np.int64)[where]
+    frame["point"] = values[:, 1].astype(np.int64)
+    for column, name in enumerate(METRIC_COLUMNS, start=2):
+        frame[name] = values[:, column].astype(np.int64) if name in INT_COLUMNS else values[:, column]
+    return frame
 
 
 def missing_trials(path: str | Path) -> pd.DataFrame:

@@ -1,19 +1,38 @@
-"""Learning-curve figures (mean greedy return vs real steps with bootstrap bands), one per environment."""
+"""Report figures, one set per environment: learning curves, time to threshold, model error, budget and frontier.
+
+Every figure is built without pyplot (no global figure state) and written as PNG and SVG. An agent keeps the
+same colour and marker in every figure of an environment: its position in the report's agent order picks them.
+"""
 
 from __future__ import annotations
 
+import math
 import os
 import re
 import threading
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
+from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
 from runner.analysis.tables import ordered_labels
 
-__all__ = ["PALETTE", "plot_curves", "safe_name"]
+__all__ = [
+    "PALETTE",
+    "BudgetFamily",
+    "BudgetReference",
+    "agent_styles",
+    "plot_budget",
+    "plot_curves",
+    "plot_frontier",
+    "plot_model_error",
+    "plot_threshold",
+    "safe_name",
+]
 
 PALETTE = (
     "#1d4f91",
@@ -27,6 +46,7 @@ PALETTE = (
 )
 _MARKERS = ("o", "s", "^", "D", "v", "P", "X")
 _THRESHOLD_COLOUR = "#333333"
+_GRID_COLOUR = "#dddddd"
 _DPI = 120
 
 
@@ -34,6 +54,11 @@ def safe_name(label: str) -> str:
     """Turn a label into a file-name fragment made only of letters, digits, dots, dashes and underscores."""
     cleaned = re.sub(r"[^A-Za-z0-9._-]+", "_", label).strip("._")
     return cleaned or "env"
+
+
+def agent_styles(agents: Sequence[str]) -> dict[str, tuple[str, str]]:
+    """Colour and marker of each agent from its position in `agents`, so every figure of an env agrees."""
+    return {agent: (PALETTE[i % len(PALETTE)], _MARKERS[i % len(_MARKERS)]) for i, agent in enumerate(agents)}
 
 
 def _save_atomic(figure: Figure, path: Path, file_format: str) -> None:
@@ -49,37 +74,67 @@ def _save_atomic(figure: Figure, path: Path, file_format: str) -> None:
         raise
 
 
-def _draw(bands: pd.DataFrame, agents: list[str], threshold: float | None, title: str) -> Figure:
-    """Build the figure: one line and shaded band per agent, plus an optional dashed threshold line."""
-    figure = Figure(figsize=(7.0, 4.5), layout="constrained")
-    axes = figure.add_subplot()
-    for index, agent in enumerate(agents):
+def _save_both(figure: Figure, out_dir: Path, stem: str) -> list[Path]:
+    """Write `<stem>.png` and `<stem>.svg` into out_dir, release the figure, and return both paths."""
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    paths = []
+    for file_format in ("png", "svg"):
+        path = out_dir / f"{stem}.{file_format}"
+        _save_atomic(figure, path, file_format)
+        paths.append(path)
+        # The first save placed every axes; keeping those positions spares a second layout pass.
+        figure.set_layout_engine("none")
+    figure.clear()
+    return paths
+
+
+def _finish(axes: Axes, xlabel: str, ylabel: str, title: str | None = None, legend: bool = True) -> None:
+    """Labels, light grid and a frameless legend shared by every panel."""
+    axes.set_xlabel(xlabel)
+    axes.set_ylabel(ylabel)
+    if title:
+        axes.set_title(title)
+    axes.grid(True, color=_GRID_COLOUR, linewidth=0.6)
+    if legend and axes.get_legend_handles_labels()[0]:
+        axes.legend(loc="best", fontsize="small", frameon=False)
+
+
+def _draw_bands(axes: Axes, bands: pd.DataFrame, styles: dict[str, tuple[str, str]]) -> None:
+    """One mean line and shaded band per agent of `bands` that has a style, in style order."""
+    for agent, (colour, marker) in styles.items():
         rows = bands[bands["agent"] == agent].sort_values("real_steps")
-        colour = PALETTE[index % len(PALETTE)]
+        rows = rows[rows["mean"].notna()]
+        if rows.empty:
+            continue
         axes.fill_between(rows["real_steps"], rows["low"], rows["high"], color=colour, alpha=0.18, linewidth=0)
         axes.plot(
             rows["real_steps"],
             rows["mean"],
             color=colour,
             linewidth=1.8,
-            marker=_MARKERS[index % len(_MARKERS)],
+            marker=marker,
             markersize=4,
             markevery=max(1, len(rows) // 10),
             label=agent,
         )
+
+
+def _draw_threshold_line(axes: Axes, threshold: float | None) -> None:
+    """Dashed horizontal line at the return threshold, when there is one."""
     if threshold is not None:
         axes.axhline(
-            threshold,
-            color=_THRESHOLD_COLOUR,
-            linestyle="--",
-            linewidth=1.2,
-            label=f"threshold {threshold:g}",
+            threshold, color=_THRESHOLD_COLOUR, linestyle="--", linewidth=1.2, label=f"threshold {threshold:g}"
         )
-    axes.set_xlabel("real environment steps")
-    axes.set_ylabel("mean greedy evaluation return")
-    axes.set_title(title)
-    axes.grid(True, color="#dddddd", linewidth=0.6)
-    axes.legend(loc="best", fontsize="small", frameon=False)
+
+
+def _draw(bands: pd.DataFrame, agents: list[str], threshold: float | None, title: str) -> Figure:
+    """Build the figure: one line and shaded band per agent, plus an optional dashed threshold line."""
+    figure = Figure(figsize=(7.0, 4.5), layout="constrained")
+    axes = figure.add_subplot()
+    _draw_bands(axes, bands, agent_styles(agents))
+    _draw_threshold_line(axes, threshold)
+    _finish(axes, "real environment steps", "mean greedy evaluation return", title)
     return figure
 
 
@@ -100,13 +155,266 @@ def plot_curves(
     env_bands = bands[bands["env"] == env]
     if env_bands.empty:
         raise ValueError(f"no curve bands for environment {env!r}")
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
     figure = _draw(env_bands, ordered_labels(env_bands["agent"], agent_order), threshold, title)
-    paths = []
-    for file_format in ("png", "svg"):
-        path = out_dir / f"curves_{safe_name(env)}.{file_format}"
-        _save_atomic(figure, path, file_format)
-        paths.append(path)
-    figure.clear()
-    return paths
+    return _save_both(figure, out_dir, f"curves_{safe_name(env)}")
+
+
+def plot_threshold(
+    km_steps: pd.DataFrame,
+    censored: pd.DataFrame,
+    env: str,
+    *,
+    agents: Sequence[str],
+    budget: int,
+    threshold_text: str,
+    out_dir: Path,
+    title: str,
+) -> list[Path]:
+    """Write `threshold_<env>.png/.svg`: Kaplan-Meier share of trials not yet at the threshold vs real steps.
+
+    Parameters
+    ----------
+    km_steps : DataFrame
+        Step-function vertices per agent with columns agent, time, survival, low, high, starting at
+        (0, 1) and ending at the last observed step; drawn as post steps with a shaded pointwise band.
+    censored : DataFrame
+        Columns agent, time, survival: where trials stopped without reaching the threshold (drawn as "+").
+    """
+    figure = Figure(figsize=(9.0, 4.5), layout="constrained")
+    axes = figure.add_subplot()
+    for agent, (colour, _) in agent_styles(agents).items():
+        rows = km_steps[km_steps["agent"] == agent]
+        if rows.empty:
+            continue
+        axes.fill_between(rows["time"], rows["low"], rows["high"], step="post", color=colour, alpha=0.1, linewidth=0)
+        axes.step(rows["time"], rows["survival"], where="post", color=colour, linewidth=1.8, label=agent)
+        marks = censored[censored["agent"] == agent]
+        axes.plot(marks["time"], marks["survival"], linestyle="none", marker="+", markersize=8, color=colour)
+    axes.axhline(0.5, color=_THRESHOLD_COLOUR, linestyle=":", linewidth=1.0, label="half of the trials")
+    axes.set_xlim(0, 1.02 * max(float(budget), float(km_steps["time"].max()) if len(km_steps) else 1.0))
+    axes.set_ylim(-0.02, 1.02)
+    _finish(axes, "real environment steps", f"share of trials not yet at\n{threshold_text}", title, legend=False)
+    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    return _save_both(figure, out_dir, f"threshold_{safe_name(env)}")
+
+
+def plot_model_error(
+    return_bands: pd.DataFrame,
+    error_bands: pd.DataFrame,
+    env: str,
+    *,
+    agents: Sequence[str],
+    threshold: float | None,
+    out_dir: Path,
+    title: str,
+) -> list[Path]:
+    """Write `model_error_<env>.png/.svg`: the return curves beside the learned model's error over real steps.
+
+    The right panel shows the mean total-variation distance of each agent's learned transition model to the
+    true table, with the band given in `error_bands`; agents without a model have no line there but keep their
+    colour.
+    """
+    figure = Figure(figsize=(12.0, 4.5), layout="constrained")
+    left, right = figure.subplots(1, 2, sharex=True)
+    styles = agent_styles(agents)
+    _draw_bands(left, return_bands, styles)
+    _draw_threshold_line(left, threshold)
+    _finish(left, "real environment steps", "mean greedy evaluation return", "return")
+    _draw_bands(
+        right, error_bands, {agent: style for agent, style in styles.items() if agent in set(error_bands["agent"])}
+    )
+    right.set_ylim(bottom=0.0)
+    _finish(right, "real environment steps", "model error (mean total-variation distance)", "learned model error")
+    figure.suptitle(title)
+    return _save_both(figure, out_dir, f"model_error_{safe_name(env)}")
+
+
+@dataclass(frozen=True)
+class BudgetFamily:
+    """Agent variants that differ only in one planning parameter, with their results per value.
+
+    `rows` has one row per variant with columns value, agent, auc_mean, auc_low, auc_high, median_steps,
+    median_low, median_high, planning_per_real, wall_us_per_real, wall_us_low, wall_us_high.
+    """
+
+    name: str
+    param: str
+    colour: str
+    marker: str
+    rows: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class BudgetReference:
+    """The baseline agent's AUC, median real steps to threshold and wall microseconds per real step."""
+
+    label: str
+    auc: float
+    median_steps: float
+    wall_us_per_real: float
+
+
+def _budget_axis(axes: Axes, values: np.ndarray) -> None:
+    """Log x axis, or symmetric log when 0 is among the values so that 0 gets its own tick at the left."""
+    positive = values[values > 0]
+    top = float(positive.max()) * 1.5 if positive.size else 1.0
+    if (values <= 0).any():
+        linthresh = float(positive.min()) if positive.size else 1.0
+        axes.set_xscale("symlog", linthresh=linthresh, linscale=0.6)
+        axes.set_xlim(float(values.min()) - 0.4 * linthresh, top)
+    else:
+        axes.set_xscale("log")
+        axes.set_xlim(float(positive.min()) / 1.5, top)
+    ticks = np.unique(values)
+    axes.set_xticks(ticks, [f"{tick:g}" for tick in ticks])
+    axes.minorticks_off()
+
+
+def _error_bar(axes: Axes, x: np.ndarray, columns: Sequence[np.ndarray], style: dict[str, object]) -> None:
+    """Points joined by a line with asymmetric error bars; NaN bounds draw no bar, inf bounds reach the top.
+
+    `columns` holds the estimate, the low bound and the high bound, each of shape (n,).
+    """
+    mean, low, high = (np.asarray(column, dtype=float) for column in columns)
+    finite = np.r_[mean[np.isfinite(mean)], high[np.isfinite(high)], 0.0]
+    upper = np.where(np.isinf(high), finite.max() * 1.08, high)
+    yerr = np.nan_to_num(np.vstack([np.clip(mean - low, 0, None), np.clip(upper - mean, 0, None)]))
+    axes.errorbar(x, mean, yerr=yerr, capsize=3, linewidth=1.6, markersize=5, **style)
+
+
+def _note_if_empty(axes: Axes, text: str) -> None:
+    """Write a short note in the middle of a panel that has nothing drawn."""
+    if not axes.lines or all(np.isnan(np.asarray(line.get_ydata(), dtype=float)).all() for line in axes.lines):
+        axes.text(0.5, 0.5, text, transform=axes.transAxes, ha="center", va="center", color=_THRESHOLD_COLOUR)
+
+
+def plot_budget(
+    families: Sequence[BudgetFamily],
+    env: str,
+    *,
+    reference: BudgetReference | None,
+    budget: int,
+    out_dir: Path,
+    title: str,
+) -> list[Path]:
+    """Write `budget_<env>.png/.svg`: what a planning budget buys (AUC, median steps) and what it costs.
+
+    Four panels against the planning parameter of each family: AUC with its interval, Kaplan-Meier median
+    real steps to threshold with its interval (no point where fewer than half the trials reached it), planning
+    updates per real step, and wall microseconds per real step with its interval. The baseline, when given,
+    is a dotted reference line. A budget of 0 sits at the left end of a symmetric-log axis.
+    """
+    if not families:
+        raise ValueError("plot_budget needs at least one family of variants")
+    figure = Figure(figsize=(11.0, 7.5), layout="constrained")
+    panels = figure.subplots(2, 2)
+    auc_axes, steps_axes, planning_axes, wall_axes = panels.ravel()
+    for family in families:
+        rows = family.rows.sort_values("value")
+        x = rows["value"].to_numpy(dtype=float)
+        style: dict[str, object] = {"color": family.colour, "marker": family.marker, "label": family.name}
+        _error_bar(auc_axes, x, [rows[f"auc_{part}"] for part in ("mean", "low", "high")], style)
+        _error_bar(steps_axes, x, [rows[f"median_{part}"] for part in ("steps", "low", "high")], style)
+        planning_axes.plot(x, rows["planning_per_real"].to_numpy(dtype=float), linewidth=1.6, markersize=5, **style)
+        _error_bar(wall_axes, x, [rows[c] for c in ("wall_us_per_real", "wall_us_low", "wall_us_high")], style)
+    _note_if_empty(steps_axes, "no median: no threshold, or fewer than half the trials reached it")
+    if reference is not None:
+        label = f"baseline {reference.label}"
+        for axes, value in (
+            (auc_axes, reference.auc),
+            (steps_axes, reference.median_steps),
+            (wall_axes, reference.wall_us_per_real),
+        ):
+            if math.isfinite(value):
+                axes.axhline(value, color=_THRESHOLD_COLOUR, linestyle=":", linewidth=1.1, label=label)
+    values = np.concatenate([family.rows["value"].to_numpy(dtype=float) for family in families])
+    xlabel = f"planning budget ({', '.join(sorted({family.param for family in families}))})"
+    for axes, ylabel, panel_title in (
+        (auc_axes, "AUC (time-averaged return)", "return over the budget"),
+        (steps_axes, "median real steps to threshold", "real steps to threshold"),
+        (planning_axes, "planning updates per real step", "planning compute"),
+        (wall_axes, "wall microseconds per real step", "wall time"),
+    ):
+        _budget_axis(axes, values)
+        _finish(axes, xlabel, ylabel, panel_title, legend=axes is auc_axes)
+    steps_axes.set_ylim(0, budget * 1.05)
+    planning_axes.set_ylim(bottom=0)
+    wall_axes.set_ylim(bottom=0)
+    figure.suptitle(title)
+    return _save_both(figure, out_dir, f"budget_{safe_name(env)}")
+
+
+def plot_frontier(
+    points: pd.DataFrame,
+    env: str,
+    *,
+    agents: Sequence[str],
+    budget: int,
+    out_dir: Path,
+    title: str,
+) -> list[Path]:
+    """Write `frontier_<env>.png/.svg`: median real steps to threshold against compute per real step.
+
+    `points` has one row per agent with updates_per_real, median_steps, median_low, median_high and on_frontier.
+    Variants no other variant beats (see `pareto_front` in report.py) are ringed and joined by a dashed
+    staircase; variants whose median was not reached within the budget sit above the budget line, hollow.
+    """
+    figure = Figure(figsize=(7.5, 5.0), layout="constrained")
+    axes = figure.add_subplot()
+    ceiling = budget * 1.12
+    for agent, (colour, marker) in agent_styles(agents).items():
+        row = points[points["agent"] == agent]
+        if row.empty:
+            continue
+        x = row["updates_per_real"].to_numpy(dtype=float)
+        median = row["median_steps"].to_numpy(dtype=float)
+        if np.isnan(median[0]):
+            axes.plot(
+                x,
+                [ceiling],
+                linestyle="none",
+                marker=marker,
+                markersize=8,
+                markerfacecolor="white",
+                markeredgecolor=colour,
+                label=f"{agent} (median not reached)",
+            )
+            continue
+        low, high = row["median_low"].to_numpy(dtype=float), row["median_high"].to_numpy(dtype=float)
+        upper = np.where(np.isinf(high), ceiling, high)
+        yerr = np.nan_to_num(np.vstack([np.clip(median - low, 0, None), np.clip(upper - median, 0, None)]))
+        axes.errorbar(
+            x, median, yerr=yerr, color=colour, marker=marker, markersize=7, capsize=3, linestyle="none", label=agent
+        )
+        if bool(row["on_frontier"].iloc[0]):
+            axes.plot(
+                x,
+                median,
+                linestyle="none",
+                marker="o",
+                markersize=16,
+                markerfacecolor="none",
+                markeredgecolor=_THRESHOLD_COLOUR,
+                markeredgewidth=1.2,
+            )
+    best = points[points["on_frontier"].astype(bool)].sort_values("updates_per_real")
+    if len(best) > 1:
+        axes.step(
+            best["updates_per_real"],
+            best["median_steps"],
+            where="post",
+            color=_THRESHOLD_COLOUR,
+            linestyle="--",
+            linewidth=1.0,
+            label="beaten by no other variant",
+        )
+    axes.axhline(budget, color=_THRESHOLD_COLOUR, linestyle=":", linewidth=1.0, label=f"budget ({budget:,} real steps)")
+    positive = points["updates_per_real"].to_numpy(dtype=float)
+    if (positive > 0).all():
+        axes.set_xscale("log")
+    else:
+        axes.set_xscale("symlog", linthresh=1.0)
+    axes.set_ylim(0, budget * 1.2)
+    _finish(axes, "updates per real step (real + planning + model, log scale)", "median real steps to threshold", title)
+    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    return _save_both(figure, out_dir, f"frontier_{safe_name(env)}")

@@ -1,19 +1,64 @@
-"""Write a study's report folder: curve figures, summary and per-trial CSVs, Markdown and terminal text."""
+"""Write a study's report folder: figures, CSV tables, a Markdown summary, an HTML page and terminal text.
+
+The numbers answer four questions per environment: how fast each agent learns (AUC, curves), how many real
+steps it needs to reach the threshold (Kaplan-Meier, censored trials kept), what planning saves and costs
+against the baseline (ratios, budget and frontier figures), and whether differences are real (Welch-Holm,
+probability of improvement, seeds advice). Work is vectorised over trials; loops run over environments and
+agent variants only, so studies of many seeds stay fast.
+"""
 
 from __future__ import annotations
 
+import json
+import math
 import os
+import re
 import threading
-from dataclasses import dataclass
+from collections.abc import Mapping
+from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
+from scipy import special
 
+from runner.analysis.bootstrap import keyed_rng, mean_and_interval
+from runner.analysis.compare import PAIRWISE_COLUMNS, pairwise_welch
 from runner.analysis.curves import curve_bands, trial_scores
-from runner.analysis.plots import plot_curves
+from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
+from runner.analysis.page import EnvPage, ReportTables, StudyRecords, glance_sentences, markdown_sections, write_page
+from runner.analysis.plots import (
+    BudgetFamily,
+    BudgetReference,
+    agent_styles,
+    plot_budget,
+    plot_curves,
+    plot_frontier,
+    plot_model_error,
+    plot_threshold,
+)
+from runner.analysis.power import ADVICE_COLUMNS, seeds_advice
 from runner.analysis.tables import ordered_labels, summary_table, to_markdown, to_terminal
+from runner.analysis.threshold import (
+    CROSSING_COLUMNS,
+    THRESHOLD_SUMMARY_COLUMNS,
+    kaplan_meier,
+    steps_to_threshold,
+    threshold_summary,
+)
 
-__all__ = ["REQUIRED_COLUMNS", "ReportOutput", "StudyFacts", "write_report"]
+__all__ = [
+    "ADVICE_SHARES",
+    "COMPUTE_COLUMNS",
+    "FRONTIER_COLUMNS",
+    "REQUIRED_COLUMNS",
+    "ReportOutput",
+    "StudyFacts",
+    "budget_families",
+    "compute_table",
+    "pareto_front",
+    "write_report",
+]
 
 REQUIRED_COLUMNS = (
     "env",
@@ -28,11 +73,47 @@ REQUIRED_COLUMNS = (
     "planning_updates",
     "wall_seconds",
 )
+# Seeds advice asks for AUC differences of these shares of the environment's observed return range
+# (max - min of every evaluation return stored for it): AUC is in return units, so a share of that range is
+# a difference in absolute units that stays meaningful whatever the reward scale of the environment.
+ADVICE_SHARES = (0.05, 0.1, 0.2)
+COMPUTE_COLUMNS = [
+    "env",
+    "agent",
+    "trials",
+    "updates_per_real",
+    "planning_per_real",
+    "wall_us_per_real",
+    "wall_us_low",
+    "wall_us_high",
+]
+FRONTIER_COLUMNS = [
+    "env",
+    "agent",
+    "kind",
+    "updates_per_real",
+    "planning_per_real",
+    "wall_us_per_real",
+    "reached_share",
+    "median_steps",
+    "median_low",
+    "median_high",
+    "on_frontier",
+]
+# A varied agent parameter whose name matches this is treated as a planning budget in the budget figure.
+_PLANNING_PARAM = re.compile(r"planning")
+_LABEL_PARAMS = re.compile(r"^(?P<base>.*?) \((?P<inner>[^()]*)\)$")
+_TRIAL_KEYS = ["env", "agent", "kind", "trial_id", "seed"]
 
 
 @dataclass(frozen=True)
 class StudyFacts:
-    """What the report needs to know about a study beyond its metric rows."""
+    """What the report needs to know about a study beyond its metric rows.
+
+    `consecutive` is how many evaluation points in a row the return must stay at or above the threshold;
+    `variant_params` maps an agent label to its parameters, used to find families that vary a planning
+    budget (labels such as "Dyna-Q (planning_steps=5)" are parsed when it is empty).
+    """
 
     name: str
     budget: int
@@ -43,14 +124,18 @@ class StudyFacts:
     confidence: float = 0.95
     n_resamples: int = 2000
     seed: int = 0
+    consecutive: int = 1
+    description: str = ""
+    variant_params: dict[str, dict] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)
 class ReportOutput:
-    """Files written by `write_report`, in writing order, and the summary text meant for the terminal."""
+    """Files written by `write_report` in writing order, the efficiency sentences, and the terminal text."""
 
     files: list[Path]
     terminal_text: str
+    headline: list[str] = field(default_factory=list)
 
 
 def _write_text_atomic(path: Path, text: str) -> Path:
@@ -66,21 +151,447 @@ def _write_text_atomic(path: Path, text: str) -> Path:
     return path
 
 
-def _sort_by_order(frame: pd.DataFrame, envs: list[str], agents: list[str], last: str) -> pd.DataFrame:
-    """Sort rows by the report's environment and agent order, then by the `last` column."""
+def _sort_by_order(frame: pd.DataFrame, envs: list[str], agents: list[str], last: str | None = None) -> pd.DataFrame:
+    """Sort rows by the report's environment and agent order, then by the `last` column when given."""
     env_rank = frame["env"].map({env: rank for rank, env in enumerate(envs)})
     agent_rank = frame["agent"].map({agent: rank for rank, agent in enumerate(agents)})
     keyed = frame.assign(_env_rank=env_rank, _agent_rank=agent_rank)
-    keyed = keyed.sort_values(["_env_rank", "_agent_rank", last], kind="stable")
+    keys = ["_env_rank", "_agent_rank", *([last] if last else [])]
+    keyed = keyed.sort_values(keys, kind="stable")
     return keyed.drop(columns=["_env_rank", "_agent_rank"]).reset_index(drop=True)
 
 
-def _markdown(table: pd.DataFrame, facts: StudyFacts, envs: list[str]) -> str:
-    """Compose the Markdown report: study facts, the AUC definition, then one table per environment."""
+# --- per-trial and per-variant compute -----------------------------------------------------------------------
+
+
+def _last_rows(frame: pd.DataFrame) -> pd.DataFrame:
+    """The last evaluation point of every trial (one row per trial), found without a per-trial loop."""
+    last = frame.groupby(["env", "agent", "trial_id"], sort=False, observed=True)["point"].idxmax()
+    columns = [
+        c
+        for c in (*_TRIAL_KEYS, "real_steps", "real_updates", "planning_updates", "model_updates", "wall_seconds")
+        if c in frame.columns
+    ]
+    return frame.loc[last.to_numpy(), columns].reset_index(drop=True)
+
+
+def compute_table(frame: pd.DataFrame, envs: list[str], agents: list[str], facts: StudyFacts) -> pd.DataFrame:
+    """Per (env, agent): updates and planning updates per real step, and wall microseconds per real step.
+
+    `updates_per_real` counts every update an agent makes per real step (real, planning and model updates),
+    so model-free agents sit at about 1 rather than 0; the wall time has a percentile bootstrap interval.
+    """
+    last = _last_rows(frame)
+    steps = last["real_steps"].to_numpy(dtype=float)
+    model = last["model_updates"].to_numpy(dtype=float) if "model_updates" in last else 0.0
+    total = last["real_updates"].to_numpy(dtype=float) + last["planning_updates"].to_numpy(dtype=float) + model
+    with np.errstate(divide="ignore", invalid="ignore"):
+        per_trial = last[["env", "agent"]].assign(
+            updates_per_real=np.where(steps > 0, total / steps, np.nan),
+            planning_per_real=np.where(steps > 0, last["planning_updates"].to_numpy(dtype=float) / steps, np.nan),
+            wall_us_per_real=np.where(steps > 0, 1e6 * last["wall_seconds"].to_numpy(dtype=float) / steps, np.nan),
+        )
+    rows = []
+    for (env, agent), group in per_trial.groupby(["env", "agent"], sort=False):
+        wall = group["wall_us_per_real"].dropna().to_numpy()
+        mean, low, high = (np.nan,) * 3
+        if wall.size:
+            mean, low, high = (
+                float(value)
+                for value in mean_and_interval(
+                    wall,
+                    confidence=facts.confidence,
+                    n_resamples=facts.n_resamples,
+                    rng=keyed_rng(facts.seed, "wall", str(env), str(agent)),
+                )
+            )
+        rows.append(
+            {
+                "env": env,
+                "agent": agent,
+                "trials": len(group),
+                "updates_per_real": float(group["updates_per_real"].mean()),
+                "planning_per_real": float(group["planning_per_real"].mean()),
+                "wall_us_per_real": mean,
+                "wall_us_low": low,
+                "wall_us_high": high,
+            }
+        )
+    return _sort_by_order(pd.DataFrame.from_records(rows, columns=COMPUTE_COLUMNS), envs, agents)
+
+
+# --- threshold, efficiency, comparisons, advice -------------------------------------------------------------
+
+
+def _threshold_label(facts: StudyFacts, env: str) -> str:
+    """Wording of one environment's threshold, including how long the return must stay above it."""
+    value = facts.thresholds.get(env)
+    if value is None:
+        return "the threshold"
+    held = f" held for {facts.consecutive} evaluations in a row" if facts.consecutive > 1 else ""
+    return f"a return of {value:g}{held}"
+
+
+def _efficiency(crossings: pd.DataFrame, facts: StudyFacts, envs: list[str], agents: list[str]) -> pd.DataFrame:
+    """Real-step ratios of every agent against the baseline, in report order (empty without a baseline)."""
+    if not facts.baseline or crossings.empty:
+        return pd.DataFrame(columns=EFFICIENCY_COLUMNS)
+    ratios = efficiency_ratios(
+        crossings, facts.baseline, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
+    )
+    return _sort_by_order(ratios, envs, agents) if len(ratios) else ratios
+
+
+def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts: StudyFacts) -> pd.DataFrame:
+    """Welch-Holm tests and probability of improvement on AUC for every pair of variants, env by env."""
+    parts = [
+        pairwise_welch(
+            scores, env, agents, "auc", confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
+        )
+        for env in envs
+    ]
+    parts = [part for part in parts if len(part)]
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=PAIRWISE_COLUMNS)
+
+
+def _advice(
+    frame: pd.DataFrame, scores: pd.DataFrame, envs: list[str], agents: list[str], facts: StudyFacts
+) -> pd.DataFrame:
+    """Seeds per agent needed to detect AUC differences of ADVICE_SHARES of each env's return range.
+
+    Each agent is compared with the baseline, or with the first agent of the env when the baseline is absent.
+    """
+    ranges = frame.groupby("env", sort=False)["eval_return"].agg(["min", "max"])
+    parts = []
+    for env in envs:
+        span = float(ranges.loc[env, "max"] - ranges.loc[env, "min"])
+        env_agents = ordered_labels(scores.loc[scores["env"] == env, "agent"], agents)
+        if not math.isfinite(span) or span <= 0 or len(env_agents) < 2:
+            continue
+        reference = facts.baseline if facts.baseline in env_agents else env_agents[0]
+        differences = [share * span for share in ADVICE_SHARES]
+        table = seeds_advice(scores, env, differences, baseline=reference, agent_order=agents)
+        shares = dict(zip(differences, ADVICE_SHARES, strict=True))
+        parts.append(table.assign(share_of_range=table["difference"].map(shares), return_range=span))
+    if not parts:
+        return pd.DataFrame(columns=[*ADVICE_COLUMNS, "share_of_range", "return_range"])
+    return pd.concat(parts, ignore_index=True)
+
+
+# --- figure data ----------------------------------------------------------------------------------------------
+
+
+def _km_band(survival: np.ndarray, se: np.ndarray, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+    """Pointwise interval of Kaplan-Meier survival on the complementary log-log scale (stays inside [0, 1])."""
+    z = special.ndtri((1.0 + confidence) / 2.0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        spread = z * se / (survival * np.abs(np.log(survival)))
+        low, high = survival ** np.exp(spread), survival ** np.exp(-spread)
+    usable = np.isfinite(low) & np.isfinite(high)
+    return np.where(usable, low, survival), np.where(usable, high, survival)
+
+
+def _km_figure_data(crossings: pd.DataFrame, env: str, confidence: float) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Step vertices (agent, time, survival, low, high) and censoring marks (agent, time, survival) of one env."""
+    curves, marks = [], []
+    for agent, group in crossings[crossings["env"] == env].groupby("agent", sort=False):
+        times, reached = group["steps"].to_numpy(dtype=float), group["reached"].to_numpy(dtype=bool)
+        km = kaplan_meier(times, reached)
+        survival, se = km["survival"].to_numpy(), km["greenwood_se"].to_numpy()
+        low, high = _km_band(survival, se, confidence)
+        end = float(times.max())
+        last = survival[-1] if survival.size else 1.0
+        curves.append(
+            pd.DataFrame(
+                {
+                    "agent": agent,
+                    "time": np.r_[0.0, km["time"].to_numpy(dtype=float), end],
+                    "survival": np.r_[1.0, survival, last],
+                    "low": np.r_[1.0, low, low[-1] if low.size else 1.0],
+                    "high": np.r_[1.0, high, high[-1] if high.size else 1.0],
+                }
+            )
+        )
+        censored = np.unique(times[~reached])
+        index = np.searchsorted(km["time"].to_numpy(dtype=float), censored, side="right") - 1
+        level = np.where(index >= 0, survival[np.maximum(index, 0)] if survival.size else 1.0, 1.0)
+        marks.append(pd.DataFrame({"agent": agent, "time": censored, "survival": level}))
+    empty = pd.DataFrame(columns=["agent", "time", "survival"])
+    return (
+        pd.concat(curves, ignore_index=True) if curves else empty.assign(low=[], high=[]),
+        pd.concat(marks, ignore_index=True) if marks else empty,
+    )
+
+
+def _model_error_bands(frame: pd.DataFrame, env: str, confidence: float) -> pd.DataFrame:
+    """Mean model total-variation error per agent and point with a normal band, for agents that have one.
+
+    The band is the mean plus or minus the normal quantile times the standard error over the trials with a
+    value at that point: it only guides the eye in a figure (no table reports it), and one grouped pass over
+    the rows keeps it cheap for thousands of trials. Columns as `curve_bands` (env, agent, point, real_steps,
+    mean, low, high, n_seeds).
+    """
+    if "model_tv_error" not in frame.columns:
+        return pd.DataFrame()
+    in_env = frame["env"] == env
+    has_error = frame.loc[in_env & frame["model_tv_error"].notna(), "agent"].unique()
+    if has_error.size == 0:
+        return pd.DataFrame()
+    rows = frame.loc[in_env & frame["agent"].isin(has_error), ["env", "agent", "point", "real_steps", "model_tv_error"]]
+    grouped = rows.groupby(["env", "agent", "point"], sort=True, observed=True)
+    bands = grouped["model_tv_error"].agg(["mean", "std", "count"]).join(grouped["real_steps"].first())
+    half = special.ndtri((1.0 + confidence) / 2.0) * bands["std"].fillna(0.0) / np.sqrt(bands["count"].clip(lower=1))
+    bands = bands.assign(low=bands["mean"] - half, high=bands["mean"] + half, n_seeds=bands["count"])
+    return bands.reset_index()[["env", "agent", "point", "real_steps", "mean", "low", "high", "n_seeds"]]
+
+
+def _label_params(agent: str) -> tuple[str, dict[str, object]]:
+    """Base label and the "name=value" parameters of a label such as "Dyna-Q (planning_steps=5)"."""
+    match = _LABEL_PARAMS.match(agent)
+    if not match:
+        return agent, {}
+    params: dict[str, object] = {}
+    for part in match["inner"].split(", "):
+        name, sep, value = part.partition("=")
+        if not sep:
+            return agent, {}
+        try:
+            params[name.strip()] = float(value)
+        except ValueError:
+            params[name.strip()] = value.strip()
+    return match["base"], params
+
+
+def _family_name(agent: str, param: str) -> str:
+    """The agent's label without the "param=value" part, naming the family it belongs to."""
+    base, params = _label_params(agent)
+    others = [
+        f"{name}={value:g}" if isinstance(value, float) else f"{name}={value}"
+        for name, value in params.items()
+        if name != param
+    ]
+    return f"{base} ({', '.join(others)})" if others else base
+
+
+def budget_families(
+    agents: list[str], kinds: Mapping[str, str], variant_params: Mapping[str, Mapping[str, object]]
+) -> list[tuple[str, str, list[tuple[float, str]]]]:
+    """Groups of variants that differ only in a planning parameter, as (param, family name, [(value, agent)]).
+
+    Parameters come from `variant_params` when it has an entry for the agent, else from the label's
+    "(name=value, ...)" suffix. A planning parameter is a numeric one whose name contains "planning"; a family
+    needs at least two distinct values. Families follow the order of their first member in `agents`.
+    """
+    groups: dict[tuple[str, str], list[tuple[float, str]]] = {}
+    for agent in agents:
+        base, parsed = _label_params(agent)
+        params = dict(variant_params.get(agent) or parsed)
+        identity = "" if agent in variant_params else base
+        for param, value in params.items():
+            if not _PLANNING_PARAM.search(param) or isinstance(value, bool) or not isinstance(value, int | float):
+                continue
+            others = json.dumps({k: v for k, v in params.items() if k != param}, sort_keys=True, default=str)
+            groups.setdefault((param, f"{kinds.get(agent, '')}|{identity}|{others}"), []).append((float(value), agent))
+    return [
+        (param, _family_name(members[0][1], param), members)
+        for (param, _), members in groups.items()
+        if len({value for value, _ in members}) >= 2
+    ]
+
+
+def pareto_front(compute: np.ndarray, steps: np.ndarray) -> np.ndarray:
+    """True for points that no other point beats: none needs no more compute and no more steps while needing
+    strictly less of at least one (so of two variants with the same median, only the cheaper one is marked).
+
+    Points with a NaN coordinate are never on the front and never beat another point.
+
+    Parameters
+    ----------
+    compute : ndarray, shape (n,)
+    steps : ndarray, shape (n,)
+
+    Returns
+    -------
+    ndarray of bool, shape (n,)
+    """
+    x, y = np.asarray(compute, dtype=float), np.asarray(steps, dtype=float)
+    valid = np.isfinite(x) & np.isfinite(y)
+    no_worse = (x[None, :] <= x[:, None]) & (y[None, :] <= y[:, None])
+    better = (x[None, :] < x[:, None]) | (y[None, :] < y[:, None])
+    beaten = (no_worse & better & valid[None, :]).any(axis=1)
+    return valid & ~beaten
+
+
+def _frontier(
+    compute: pd.DataFrame, summary: pd.DataFrame, tsummary: pd.DataFrame, envs: list[str], agents: list[str]
+) -> pd.DataFrame:
+    """Per (env, agent) with a threshold: compute per real step, KM median steps, and whether it is on the front."""
+    if tsummary.empty:
+        return pd.DataFrame(columns=FRONTIER_COLUMNS)
+    medians = tsummary[["env", "agent", "reached_share", "median_steps", "median_low", "median_high"]]
+    kinds = summary[["env", "agent", "kind"]]
+    joined = compute.merge(medians, on=["env", "agent"]).merge(kinds, on=["env", "agent"])
+    flags = pd.Series(False, index=joined.index)
+    for _, group in joined.groupby("env", sort=False):
+        flags[group.index] = pareto_front(group["updates_per_real"].to_numpy(), group["median_steps"].to_numpy())
+    return _sort_by_order(joined.assign(on_frontier=flags)[FRONTIER_COLUMNS], envs, agents)
+
+
+def _budget_rows(
+    members: list[tuple[float, str]], env: str, summary: pd.DataFrame, tsummary: pd.DataFrame, compute: pd.DataFrame
+) -> pd.DataFrame:
+    """One row per family member with its budget value, AUC, median steps and compute (see BudgetFamily)."""
+    base = pd.DataFrame({"value": [value for value, _ in members], "agent": [agent for _, agent in members]})
+    auc = summary.loc[summary["env"] == env, ["agent", "auc_mean", "auc_low", "auc_high"]]
+    steps_columns = ["agent", "median_steps", "median_low", "median_high"]
+    steps = (
+        tsummary.loc[tsummary["env"] == env, steps_columns] if len(tsummary) else pd.DataFrame(columns=steps_columns)
+    )
+    cost = compute.loc[
+        compute["env"] == env, ["agent", "planning_per_real", "wall_us_per_real", "wall_us_low", "wall_us_high"]
+    ]
+    joined = base.merge(auc, on="agent").merge(steps, on="agent", how="left").merge(cost, on="agent")
+    return joined.astype({c: float for c in ("median_steps", "median_low", "median_high")})
+
+
+# --- writing --------------------------------------------------------------------------------------------------
+
+
+@dataclass
+class _Figures:
+    """PNG paths of one environment's figures (None when the figure does not apply) and every file written."""
+
+    png: dict[str, Path | None] = field(default_factory=dict)
+    files: list[Path] = field(default_factory=list)
+
+    def add(self, key: str, paths: list[Path]) -> None:
+        """Record a written figure: its PNG (first path) for the page, every path for the file list."""
+        self.png[key] = paths[0]
+        self.files += paths
+
+
+def _env_figures(
+    env: str, agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: StudyFacts, out_dir: Path
+) -> _Figures:
+    """Write every figure of one environment."""
+    figures = _Figures(png=dict.fromkeys(("curves", "threshold", "model_error", "budget", "frontier")))
+    title = f"{facts.name}: {env}"
+    threshold = facts.thresholds.get(env)
+    env_bands = data.bands[data.bands["env"] == env]
+    figures.add(
+        "curves", plot_curves(env_bands, env, agent_order=agents, threshold=threshold, out_dir=out_dir, title=title)
+    )
+    if threshold is not None and len(data.crossings):
+        km_steps, censored = _km_figure_data(data.crossings, env, facts.confidence)
+        if len(km_steps):
+            figures.add(
+                "threshold",
+                plot_threshold(
+                    km_steps,
+                    censored,
+                    env,
+                    agents=agents,
+                    budget=facts.budget,
+                    threshold_text=_threshold_label(facts, env),
+                    out_dir=out_dir,
+                    title=title,
+                ),
+            )
+    errors = _model_error_bands(frame, env, facts.confidence)
+    if len(errors) and errors["mean"].notna().any():
+        figures.add(
+            "model_error",
+            plot_model_error(env_bands, errors, env, agents=agents, threshold=threshold, out_dir=out_dir, title=title),
+        )
+    styles = agent_styles(agents)
+    kinds = dict(zip(data.summary["agent"], data.summary["kind"], strict=True))
+    families = [
+        BudgetFamily(
+            name, param, *styles[members[0][1]], _budget_rows(members, env, data.summary, data.tsummary, data.compute)
+        )
+        for param, name, members in budget_families(agents, kinds, facts.variant_params)
+    ]
+    families = [family for family in families if len(family.rows) >= 2]
+    if families:
+        figures.add(
+            "budget",
+            plot_budget(
+                families,
+                env,
+                reference=_reference(env, agents, data, facts),
+                budget=facts.budget,
+                out_dir=out_dir,
+                title=title,
+            ),
+        )
+    points = data.frontier[data.frontier["env"] == env]
+    if len(points) and points["median_steps"].notna().any():
+        figures.add(
+            "frontier", plot_frontier(points, env, agents=agents, budget=facts.budget, out_dir=out_dir, title=title)
+        )
+    return figures
+
+
+def _reference(env: str, agents: list[str], data: ReportTables, facts: StudyFacts) -> BudgetReference | None:
+    """The baseline's numbers in one environment for the budget figure, or None without a baseline there."""
+    if facts.baseline not in agents:
+        return None
+
+    def value(table: pd.DataFrame, column: str) -> float:
+        if table.empty:
+            return math.nan
+        rows = table.loc[(table["env"] == env) & (table["agent"] == facts.baseline), column]
+        return float(rows.iloc[0]) if len(rows) else math.nan
+
+    return BudgetReference(
+        label=str(facts.baseline),
+        auc=value(data.summary, "auc_mean"),
+        median_steps=value(data.tsummary, "median_steps"),
+        wall_us_per_real=value(data.compute, "wall_us_per_real"),
+    )
+
+
+def _analyse(frame: pd.DataFrame, facts: StudyFacts, envs: list[str], agents: list[str]) -> ReportTables:
+    """Every table of the report, computed once and shared by the CSV, Markdown, figures and page."""
+    bands = curve_bands(frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed)
+    scores = trial_scores(frame)
+    summary = summary_table(
+        scores,
+        agent_order=agents,
+        env_order=envs,
+        confidence=facts.confidence,
+        n_resamples=facts.n_resamples,
+        seed=facts.seed,
+    )
+    crossings = steps_to_threshold(frame, facts.thresholds, facts.consecutive)
+    if len(crossings):
+        crossings = _sort_by_order(crossings, envs, agents, "seed")
+        tsummary = _sort_by_order(threshold_summary(crossings, facts.confidence), envs, agents)
+    else:
+        crossings = pd.DataFrame(columns=CROSSING_COLUMNS)
+        tsummary = pd.DataFrame(columns=THRESHOLD_SUMMARY_COLUMNS)
+    compute = compute_table(frame, envs, agents, facts)
+    return ReportTables(
+        bands=bands,
+        scores=scores,
+        summary=summary,
+        crossings=crossings,
+        tsummary=tsummary,
+        efficiency=_efficiency(crossings, facts, envs, agents),
+        comparisons=_comparisons(scores, envs, agents, facts),
+        advice=_advice(frame, scores, envs, agents, facts),
+        compute=compute,
+        frontier=_frontier(compute, summary, tsummary, envs, agents),
+    )
+
+
+def _markdown(data: ReportTables, facts: StudyFacts, envs: list[str], headline: list[str], glance: list[str]) -> str:
+    """Compose the Markdown report: study facts, headline, then per environment every table, then advice."""
     baseline = f"`{facts.baseline}`" if facts.baseline else "none declared"
-    lines = [
-        f"# {facts.name}",
-        "",
+    lines = [f"# {facts.name}", ""]
+    if facts.description:
+        lines += [facts.description, ""]
+    lines += [
         f"Real-step budget per trial: {facts.budget}.",
         "",
         f"Baseline agent: {baseline}.",
@@ -88,20 +599,46 @@ def _markdown(table: pd.DataFrame, facts: StudyFacts, envs: list[str]) -> str:
         "AUC is the time-averaged greedy evaluation return over the real-step budget; intervals are "
         f"{facts.confidence:.0%} percentile bootstrap intervals over seeds ({facts.n_resamples} resamples).",
     ]
+    if headline or glance:
+        lines += ["", "## Headline", "", *(f"- {sentence}" for sentence in [*headline, *glance])]
     for env in envs:
         lines += ["", f"## {env}", ""]
         threshold = facts.thresholds.get(env)
         if threshold is not None:
-            lines += [f"Return threshold: {threshold:g}.", ""]
-        lines.append(to_markdown(table[table["env"] == env].drop(columns=["env"])).rstrip("\n"))
+            held = f", held for {facts.consecutive} evaluations in a row" if facts.consecutive > 1 else ""
+            lines += [f"Return threshold: {threshold:g}{held}.", ""]
+        lines.append(to_markdown(data.summary[data.summary["env"] == env].drop(columns=["env"])).rstrip("\n"))
+        for view in markdown_sections(data, facts, env):
+            lines += ["", f"### {view.title}", "", to_markdown(view.frame()).rstrip("\n"), "", view.note]
+    for view in markdown_sections(data, facts, None):
+        lines += ["", f"## {view.title}", "", to_markdown(view.frame()).rstrip("\n"), "", view.note]
     return "\n".join(lines) + "\n"
 
 
-def write_report(frame: pd.DataFrame, facts: StudyFacts, out_dir: Path) -> ReportOutput:
-    """Write figures, `summary.csv`, `summary.md`, `trial_scores.csv` and `curves.csv` into `out_dir`.
+def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_dir: Path) -> list[Path]:
+    """Write every CSV of the report in a fixed order."""
+    tables = {
+        "summary.csv": data.summary,
+        "trial_scores.csv": _sort_by_order(data.scores, envs, agents, "seed"),
+        "curves.csv": _sort_by_order(data.bands, envs, agents, "point"),
+        "steps_to_threshold.csv": data.crossings,
+        "threshold_summary.csv": data.tsummary,
+        "efficiency.csv": data.efficiency,
+        "comparisons.csv": data.comparisons,
+        "seeds_advice.csv": data.advice,
+        "frontier.csv": data.frontier,
+    }
+    return [_write_text_atomic(out_dir / name, table.to_csv(index=False)) for name, table in tables.items()]
 
-    Every file is replaced atomically. Environments and agents missing from the declared orders are
-    appended after the declared ones.
+
+def write_report(
+    frame: pd.DataFrame, facts: StudyFacts, out_dir: Path, records: StudyRecords | None = None
+) -> ReportOutput:
+    """Write figures, CSV tables, `summary.md` and the self-contained `report.html` into `out_dir`.
+
+    `records` (runs, failures, missing and undeclared trials from the store) only feed the HTML page. Every
+    file is replaced atomically. Environments and agents missing from the declared orders are appended after
+    the declared ones. Trials that never reach a threshold stay in every threshold table as censored.
     """
     if frame.empty:
         raise ValueError("no stored metric rows to report")
@@ -110,34 +647,31 @@ def write_report(frame: pd.DataFrame, facts: StudyFacts, out_dir: Path) -> Repor
         raise ValueError(f"results frame lacks columns: {', '.join(missing)}")
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    envs = ordered_labels(frame["env"], facts.env_order)
-    agents = ordered_labels(frame["agent"], facts.agent_order)
-    bands = curve_bands(frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed)
-    scores = trial_scores(frame)
-    table = summary_table(
-        scores,
-        agent_order=agents,
-        env_order=envs,
-        confidence=facts.confidence,
-        n_resamples=facts.n_resamples,
-        seed=facts.seed,
-    )
+    envs = ordered_labels(pd.unique(frame["env"]), facts.env_order)
+    agents = ordered_labels(pd.unique(frame["agent"]), facts.agent_order)
+    data = _analyse(frame, facts, envs, agents)
+    labels = {env: _threshold_label(facts, env) for env in envs}
+    headline = efficiency_sentences(data.efficiency, labels) if len(data.efficiency) else []
     files: list[Path] = []
+    pages = []
     for env in envs:
-        files += plot_curves(
-            bands,
-            env,
-            agent_order=agents,
-            threshold=facts.thresholds.get(env),
-            out_dir=out_dir,
-            title=f"{facts.name}: {env}",
+        env_agents = ordered_labels(data.summary.loc[data.summary["env"] == env, "agent"], agents)
+        figures = _env_figures(env, env_agents, data, frame, facts, out_dir)
+        files += figures.files
+        pages.append(
+            EnvPage(
+                env=env,
+                threshold_text=labels[env] if facts.thresholds.get(env) is not None else None,
+                figures=figures.png,
+            )
         )
-    files.append(_write_text_atomic(out_dir / "summary.csv", table.to_csv(index=False)))
-    files.append(_write_text_atomic(out_dir / "summary.md", _markdown(table, facts, envs)))
-    ordered_scores = _sort_by_order(scores, envs, agents, "seed")
-    files.append(_write_text_atomic(out_dir / "trial_scores.csv", ordered_scores.to_csv(index=False)))
-    ordered_bands = _sort_by_order(bands, envs, agents, "point")
-    files.append(_write_text_atomic(out_dir / "curves.csv", ordered_bands.to_csv(index=False)))
+    files += _write_tables(data, envs, agents, out_dir)
+    glance = glance_sentences(data.tsummary, pages)
+    files.append(_write_text_atomic(out_dir / "summary.md", _markdown(data, facts, envs, headline, glance)))
+    files.append(
+        write_page(out_dir, facts=facts, data=data, envs=pages, headline=headline, records=records or StudyRecords())
+    )
     header = f"{facts.name} (budget {facts.budget} real steps, baseline: {facts.baseline or 'none declared'})"
-    terminal_text = f"{header}\n\n{to_terminal(table)}"
-    return ReportOutput(files=files, terminal_text=terminal_text)
+    lead = "\n".join(headline) + "\n\n" if headline else ""
+    terminal_text = f"{lead}{header}\n\n{to_terminal(data.summary)}"
+    return ReportOutput(files=files, terminal_text=terminal_text, headline=headline)

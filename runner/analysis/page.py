@@ -1,0 +1,609 @@
+"""The report's display tables (shared by Markdown and HTML) and its single self-contained HTML page.
+
+The page embeds every figure as a base64 PNG and carries its own style, so it can be mailed or archived and
+still reads offline. It is rendered from a jinja2 template with autoescaping, never assembled from strings.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+import math
+import os
+import threading
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import jinja2
+import pandas as pd
+
+from runner.analysis.tables import format_interval, format_number
+
+if TYPE_CHECKING:
+    from runner.analysis.report import StudyFacts
+
+__all__ = [
+    "CAUTION",
+    "FAILURE_COLUMNS",
+    "RUN_COLUMNS",
+    "TRIAL_COLUMNS",
+    "EnvPage",
+    "ReportTables",
+    "StudyRecords",
+    "TableView",
+    "advice_note",
+    "advice_view",
+    "comparisons_view",
+    "efficiency_view",
+    "env_views",
+    "frontier_view",
+    "glance_sentences",
+    "markdown_sections",
+    "render_page",
+    "summary_view",
+    "threshold_view",
+    "write_page",
+]
+
+CAUTION = (
+    "Results in simulation do not make a policy safe on a real system. Real deployments defer to the "
+    "domain's own safety practice and rules."
+)
+# Rows shown per table on the page and in the Markdown; longer tables are cut with a note (the CSVs hold all).
+_PAGE_ROWS = 200
+_TEMPLATE = "report.html.j2"
+_WIDE_COLUMNS = frozenset({"note", "message", "command", "platform", "versions"})
+RUN_COLUMNS = [
+    "run_id",
+    "started",
+    "finished",
+    "outcome",
+    "command",
+    "study_file",
+    "study_text",
+    "study_hash",
+    "versions",
+    "platform",
+    "jobs",
+]
+FAILURE_COLUMNS = ["env", "agent", "seed", "trial_id", "run_id", "error_type", "message", "at", "stored_later"]
+TRIAL_COLUMNS = ["env", "agent", "seed", "trial_id"]
+
+
+def _empty(columns: Sequence[str]) -> pd.DataFrame:
+    """An empty frame with the given columns."""
+    return pd.DataFrame(columns=list(columns))
+
+
+@dataclass(frozen=True)
+class ReportTables:
+    """Every computed table of a report, shared by the CSV files, the Markdown, the figures and the page."""
+
+    bands: pd.DataFrame
+    scores: pd.DataFrame
+    summary: pd.DataFrame
+    crossings: pd.DataFrame
+    tsummary: pd.DataFrame
+    efficiency: pd.DataFrame
+    comparisons: pd.DataFrame
+    advice: pd.DataFrame
+    compute: pd.DataFrame
+    frontier: pd.DataFrame
+
+
+@dataclass(frozen=True)
+class StudyRecords:
+    """What the store knows besides metric rows: runs (provenance), failures, missing and undeclared trials.
+
+    runs: run_id, started, finished, outcome, command, study_file, study_text, study_hash, versions (JSON text),
+    platform, jobs. failures: env, agent, seed, trial_id, run_id, error_type, message, at, stored_later.
+    missing and undeclared: env, agent, seed, trial_id.
+    """
+
+    runs: pd.DataFrame = field(default_factory=lambda: _empty(RUN_COLUMNS))
+    failures: pd.DataFrame = field(default_factory=lambda: _empty(FAILURE_COLUMNS))
+    missing: pd.DataFrame = field(default_factory=lambda: _empty(TRIAL_COLUMNS))
+    undeclared: pd.DataFrame = field(default_factory=lambda: _empty(TRIAL_COLUMNS))
+
+
+@dataclass(frozen=True)
+class EnvPage:
+    """One environment's section: its name, threshold wording and PNG paths of its figures (None if absent)."""
+
+    env: str
+    threshold_text: str | None
+    figures: dict[str, Path | None]
+
+
+@dataclass(frozen=True)
+class TableView:
+    """A table ready to show: text cells, which columns are numbers (right-aligned), and a note under it."""
+
+    headers: list[str]
+    rows: list[list[str]]
+    numeric: list[bool]
+    note: str = ""
+    title: str = ""
+
+    @property
+    def wide(self) -> list[bool]:
+        """Columns of running text (notes, messages, commands) that get room to wrap on the page."""
+        return [header in _WIDE_COLUMNS for header in self.headers]
+
+    def frame(self) -> pd.DataFrame:
+        """The cells as a frame of strings (for the Markdown renderer)."""
+        return pd.DataFrame(self.rows, columns=self.headers, dtype=object)
+
+
+_Column = tuple[str, bool, Callable[[pd.Series], str]]
+
+
+def _view(table: pd.DataFrame, columns: Sequence[_Column], note: str = "", title: str = "") -> TableView:
+    """Apply each column's formatter to the first _PAGE_ROWS rows; a note says how many more the CSV holds."""
+    rows = [[render(row) for _, _, render in columns] for _, row in table.head(_PAGE_ROWS).iterrows()]
+    if len(table) > _PAGE_ROWS:
+        extra = f"{len(table) - _PAGE_ROWS} more rows are not shown here; the CSV files and the store hold them all."
+        note = f"{note} {extra}".strip()
+    return TableView([h for h, _, _ in columns], rows, [n for _, n, _ in columns], note, title)
+
+
+def _steps(value: float) -> str:
+    """Real steps as a grouped integer; NaN reads "not reached", infinity "unbounded"."""
+    if pd.isna(value):
+        return "not reached"
+    if math.isinf(float(value)):
+        return "unbounded"
+    return f"{float(value):,.0f}"
+
+
+def _steps_interval(estimate: float, low: float, high: float) -> str:
+    """Steps with their interval, e.g. "1,200 [1,000, 1,600]"; bounds that could not be found read "n/a"."""
+    bounds = ["n/a" if pd.isna(bound) else _steps(bound) for bound in (low, high)]
+    return f"{_steps(estimate)} [{bounds[0]}, {bounds[1]}]"
+
+
+def _p_value(value: float) -> str:
+    """A p-value with three decimals, "<0.001" below that, "n/a" when undefined."""
+    if pd.isna(value):
+        return "n/a"
+    return "<0.001" if value < 0.001 else f"{value:.3f}"
+
+
+def _number(value: object) -> str:
+    """A number to about three significant digits, "n/a" when missing."""
+    return "n/a" if pd.isna(value) else format_number(float(value))  # type: ignore[arg-type]
+
+
+def summary_view(rows: pd.DataFrame) -> TableView:
+    """AUC and final return with intervals, planning ratio and wall time per agent of one environment."""
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("seeds", True, lambda r: str(int(r["seeds"]))),
+        ("AUC mean [low, high]", True, lambda r: format_interval(r["auc_mean"], r["auc_low"], r["auc_high"])),
+        (
+            "final return mean [low, high]",
+            True,
+            lambda r: format_interval(r["final_mean"], r["final_low"], r["final_high"]),
+        ),
+        ("planning updates per real step", True, lambda r: _number(r["planning_per_real"])),
+        ("wall seconds per trial", True, lambda r: _number(r["wall_seconds"])),
+    ]
+    note = "AUC: the time-averaged greedy evaluation return over the real-step budget, in return units."
+    return _view(rows, columns, note, "Summary")
+
+
+def threshold_view(rows: pd.DataFrame, confidence: float) -> TableView:
+    """Share of trials that reached the threshold and Kaplan-Meier quartiles of real steps, per agent."""
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("trials", True, lambda r: str(int(r["trials"]))),
+        ("reached", True, lambda r: f"{int(r['reached'])} ({float(r['reached_share']):.0%})"),
+        (
+            "median real steps [low, high]",
+            True,
+            lambda r: _steps_interval(r["median_steps"], r["median_low"], r["median_high"]),
+        ),
+        ("25% of trials by", True, lambda r: _steps_interval(r["q25_steps"], r["q25_low"], r["q25_high"])),
+        ("75% of trials by", True, lambda r: _steps_interval(r["q75_steps"], r["q75_low"], r["q75_high"])),
+    ]
+    note = (
+        "Kaplan-Meier estimates: a trial that never reached the threshold counts as censored at its last step, "
+        f'never dropped. Intervals are {confidence:.0%} (complementary log-log). "not reached": fewer than that '
+        'share of trials is estimated to get there within the budget; "unbounded": the data set no upper end.'
+    )
+    return _view(rows, columns, note, "Real steps to threshold")
+
+
+def efficiency_view(rows: pd.DataFrame) -> TableView:
+    """Baseline median over agent median of real steps to threshold, with its paired-bootstrap interval."""
+
+    def ratio(r: pd.Series) -> str:
+        if pd.isna(r["ratio"]):
+            return "n/a"
+        return format_interval(r["ratio"], r["low"], r["high"]) if not pd.isna(r["low"]) else _number(r["ratio"])
+
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("baseline", False, lambda r: str(r["baseline"])),
+        ("real-step ratio [low, high]", True, ratio),
+        ("agent median steps", True, lambda r: _steps(r["agent_median"])),
+        ("baseline median steps", True, lambda r: _steps(r["baseline_median"])),
+        (
+            "reached (agent / baseline / paired seeds)",
+            True,
+            lambda r: f"{int(r['agent_reached'])} / {int(r['baseline_reached'])} / {int(r['paired_seeds'])}",
+        ),
+        ("note", False, lambda r: str(r["note"]) if isinstance(r["note"], str) else ""),
+    ]
+    note = (
+        "A ratio above 1 means the agent needed fewer real steps than the baseline; an interval that includes 1 "
+        "shows no clear difference. Seeds are resampled in pairs (both agents' trials of a seed together)."
+    )
+    return _view(rows, columns, note, "Real steps against the baseline")
+
+
+def comparisons_view(rows: pd.DataFrame, confidence: float) -> TableView:
+    """Welch-Holm tests and probability of improvement on AUC for every pair of agents of one environment."""
+    alpha = 1.0 - confidence
+    columns: list[_Column] = [
+        ("agent A", False, lambda r: str(r["agent_a"])),
+        ("agent B", False, lambda r: str(r["agent_b"])),
+        ("mean AUC A", True, lambda r: _number(r["mean_a"])),
+        ("mean AUC B", True, lambda r: _number(r["mean_b"])),
+        ("A - B", True, lambda r: _number(r["difference"])),
+        ("Welch t (df)", True, lambda r: "n/a" if pd.isna(r["t"]) else f"{r['t']:.2f} ({r['df']:.1f})"),
+        ("p", True, lambda r: _p_value(r["p_value"])),
+        ("Holm p", True, lambda r: _p_value(r["p_holm"])),
+        (
+            "P(A > B) [low, high]",
+            True,
+            lambda r: format_interval(r["probability_of_improvement"], r["poi_low"], r["poi_high"]),
+        ),
+        (
+            f"differs at {alpha:.0%}",
+            False,
+            lambda r: "n/a" if pd.isna(r["p_holm"]) else ("yes" if r["p_holm"] < alpha else "no"),
+        ),
+    ]
+    note = (
+        "Welch's t-test on AUC (unequal variances), Holm-adjusted over the pairs of this environment so the chance "
+        f"of any false alarm stays at {alpha:.0%}. P(A > B): chance that a random trial of A scores a higher AUC "
+        "than one of B (ties count half), with a bootstrap interval; 0.5 means no tendency either way."
+    )
+    return _view(rows, columns, note, "Are the differences real? (AUC)")
+
+
+def frontier_view(rows: pd.DataFrame) -> TableView:
+    """Compute per real step against median real steps to threshold, and which variants no other beats."""
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("updates per real step", True, lambda r: _number(r["updates_per_real"])),
+        ("planning updates per real step", True, lambda r: _number(r["planning_per_real"])),
+        ("wall µs per real step", True, lambda r: _number(r["wall_us_per_real"])),
+        (
+            "median real steps [low, high]",
+            True,
+            lambda r: _steps_interval(r["median_steps"], r["median_low"], r["median_high"]),
+        ),
+        ("beaten by no other", False, lambda r: "yes" if bool(r["on_frontier"]) else ""),
+    ]
+    note = (
+        "Updates per real step count real, planning and model updates. A variant is marked when no other needs "
+        "no more real steps (median) and no more compute while needing less of one; variants whose median was not "
+        "reached are not ranked. Point estimates: read the intervals before calling one variant better."
+    )
+    return _view(rows, columns, note, "Compute against real steps")
+
+
+def advice_note(rows: pd.DataFrame, power: float = 0.8, alpha: float = 0.05) -> str:
+    """How the seeds advice was computed, naming the shares of the return range that were asked for."""
+    shares = sorted({float(share) for share in rows["share_of_range"]}) if len(rows) else []
+    listed = ", ".join(f"{share:.0%}" for share in shares) or "chosen shares"
+    return (
+        f"Differences to detect are {listed} of each environment's return range (highest minus lowest evaluation "
+        "return stored for it), so they read in return units like the AUC itself, whatever the reward scale. "
+        f"Seeds needed: the smallest equal number per agent for a two-sided two-sample t-test at {alpha:.0%} to "
+        f"detect that difference in mean AUC with {power:.0%} power, from the pilot spreads of this study; those "
+        "spreads are themselves uncertain with few seeds, so read the numbers as a guide."
+    )
+
+
+def advice_view(rows: pd.DataFrame, *, with_env: bool = True, title: str = "Seeds advice") -> TableView:
+    """Seeds per agent needed to detect chosen AUC differences against the reference agent."""
+
+    def needed(r: pd.Series) -> str:
+        if pd.isna(r["seeds_needed"]):
+            return "n/a" if pd.isna(r["sd_a"]) or pd.isna(r["sd_b"]) else "more than 10,000"
+        return str(int(r["seeds_needed"]))
+
+    columns: list[_Column] = [("environment", False, lambda r: str(r["env"]))] if with_env else []
+    columns += [
+        ("agent", False, lambda r: str(r["agent_a"])),
+        ("against", False, lambda r: str(r["agent_b"])),
+        ("pilot seeds", True, lambda r: f"{int(r['n_a'])} / {int(r['n_b'])}"),
+        ("observed AUC difference", True, lambda r: _number(r["observed_difference"])),
+        (
+            "difference to detect",
+            True,
+            lambda r: f"{_number(r['difference'])} ({float(r['share_of_range']):.0%} of range)",
+        ),
+        ("seeds needed per agent", True, needed),
+        ("power with pilot seeds", True, lambda r: "n/a" if pd.isna(r["power_now"]) else f"{r['power_now']:.0%}"),
+    ]
+    return _view(rows, columns, advice_note(rows) if with_env else "", title)
+
+
+def _env_rows(table: pd.DataFrame, env: str) -> pd.DataFrame:
+    """Rows of one environment (an empty table stays empty)."""
+    return table[table["env"] == env] if len(table) else table
+
+
+def env_views(data: ReportTables, facts: StudyFacts, env: str) -> dict[str, TableView | None]:
+    """Every table of one environment keyed by its place on the page (None when it does not apply)."""
+    views: dict[str, TableView | None] = {"summary": summary_view(_env_rows(data.summary, env))}
+    tsummary = _env_rows(data.tsummary, env)
+    views["threshold"] = threshold_view(tsummary, facts.confidence) if len(tsummary) else None
+    efficiency = _env_rows(data.efficiency, env)
+    views["efficiency"] = efficiency_view(efficiency) if len(efficiency) else None
+    comparisons = _env_rows(data.comparisons, env)
+    views["comparisons"] = comparisons_view(comparisons, facts.confidence) if len(comparisons) else None
+    frontier = _env_rows(data.frontier, env)
+    views["frontier"] = frontier_view(frontier) if len(frontier) else None
+    return views
+
+
+def markdown_sections(data: ReportTables, facts: StudyFacts, env: str | None) -> list[TableView]:
+    """Tables for the Markdown report: one environment's extra tables, or (env None) the seeds advice."""
+    if env is None:
+        return [advice_view(data.advice)] if len(data.advice) else []
+    views = env_views(data, facts, env)
+    return [view for key, view in views.items() if key != "summary" and view is not None]
+
+
+def _records_views(records: StudyRecords) -> dict[str, TableView]:
+    """Failures, missing and undeclared trials as tables."""
+    trial: list[_Column] = [
+        ("environment", False, lambda r: str(r["env"])),
+        ("agent", False, lambda r: str(r["agent"])),
+        ("seed", True, lambda r: "" if pd.isna(r["seed"]) else str(int(r["seed"]))),
+        ("trial id", False, lambda r: str(r["trial_id"])),
+    ]
+    failures: list[_Column] = [
+        (
+            "trial",
+            False,
+            lambda r: (
+                f"{r['env']} / {r['agent']} / seed {r['seed']}"
+                if isinstance(r["env"], str)
+                else f"trial {r['trial_id']} (no longer declared)"
+            ),
+        ),
+        ("error type", False, lambda r: str(r["error_type"])),
+        ("message", False, lambda r: str(r["message"])),
+        ("when", False, lambda r: str(r["at"])),
+        ("run", True, lambda r: str(r["run_id"])),
+        ("stored later", False, lambda r: "yes" if bool(r["stored_later"]) else "no"),
+    ]
+    return {
+        "failures": _view(records.failures, failures, title="Failures"),
+        "missing": _view(records.missing, trial, title="Missing trials"),
+        "undeclared": _view(records.undeclared, trial, title="Stored but undeclared trials"),
+    }
+
+
+def _runs(runs: pd.DataFrame) -> list[dict[str, object]]:
+    """Each run's provenance as a title and (label, value) pairs, oldest first, at most _PAGE_ROWS runs."""
+    described = []
+    for _, run in runs.tail(_PAGE_ROWS).iterrows():
+        outcome = "unfinished" if pd.isna(run["outcome"]) else str(run["outcome"])
+        described.append(
+            {
+                "title": f"Run {run['run_id']}: {outcome}",
+                "items": [
+                    ("started", str(run["started"])),
+                    ("finished", "not recorded" if pd.isna(run["finished"]) else str(run["finished"])),
+                    ("command", str(run["command"])),
+                    ("processes", str(run["jobs"])),
+                    ("study file", str(run["study_file"])),
+                    ("study hash", str(run["study_hash"])),
+                    ("platform", str(run["platform"])),
+                    ("versions", _versions(run["versions"])),
+                ],
+            }
+        )
+    return described
+
+
+def glance_sentences(tsummary: pd.DataFrame, pages: Sequence[EnvPage]) -> list[str]:
+    """One sentence per environment with a threshold: each agent's median real steps to it, fastest first."""
+    sentences = []
+    for page in pages:
+        rows = _env_rows(tsummary, page.env)
+        if page.threshold_text is None or rows.empty:
+            continue
+        parts = []
+        for _, row in rows.sort_values("median_steps", na_position="last", kind="stable").iterrows():
+            if pd.isna(row["median_steps"]):
+                parts.append(
+                    f"{row['agent']} not within the budget ({int(row['reached'])} of {int(row['trials'])} "
+                    "trials reached it)"
+                )
+            elif pd.isna(row["median_low"]) and pd.isna(row["median_high"]):
+                parts.append(f"{row['agent']} {_steps(row['median_steps'])}")
+            else:
+                parts.append(
+                    f"{row['agent']} {_steps_interval(row['median_steps'], row['median_low'], row['median_high'])}"
+                )
+        sentences.append(f"On {page.env}, median real steps to reach {page.threshold_text}: {'; '.join(parts)}.")
+    return sentences
+
+
+def _versions(text: object) -> str:
+    """Software versions of a run as "name version, ..." from their stored JSON text."""
+    try:
+        versions = json.loads(str(text))
+    except json.JSONDecodeError:
+        return str(text)
+    if not isinstance(versions, dict):
+        return str(text)
+    return ", ".join(f"{name} {version}" for name, version in sorted(versions.items()))
+
+
+def _data_uri(path: Path | None) -> str | None:
+    """A PNG file as a base64 data URI, so the page needs no other file."""
+    if path is None:
+        return None
+    return "data:image/png;base64," + base64.b64encode(Path(path).read_bytes()).decode("ascii")
+
+
+_FIGURE_TEXT = {
+    "curves": (
+        "Learning curves",
+        "Mean greedy evaluation return against real environment steps; shaded: bootstrap interval over seeds.",
+    ),
+    "threshold": (
+        "Time to threshold",
+        "Share of trials that have not yet reached the threshold (Kaplan-Meier, with a pointwise interval); "
+        "+ marks trials that stopped without reaching it. Lower and further left is better.",
+    ),
+    "budget": (
+        "Planning budget: what it buys and what it costs",
+        "Top: AUC and median real steps to threshold against the planning budget (log axis; 0 at the left end), "
+        "with intervals. Bottom: planning updates and wall microseconds per real step. Dotted: the baseline.",
+    ),
+    "frontier": (
+        "Real steps against compute",
+        "Median real steps to threshold against all updates per real step (log axis). Ringed variants are "
+        "beaten by no other (none needs no more steps and no more compute); hollow markers above the budget "
+        "line did not reach a median.",
+    ),
+    "model_error": (
+        "Learned model error",
+        "Left: the return curves again. Right: mean total-variation distance of each learned model to the true "
+        "transitions, over the pairs it has tried; the band is the mean plus or minus the normal quantile times "
+        "its standard error over trials.",
+    ),
+}
+
+
+def _figure(key: str, path: Path | None, env: str) -> dict[str, str] | None:
+    """Template data of one figure, or None when the figure was not drawn."""
+    uri = _data_uri(path)
+    if uri is None:
+        return None
+    title, caption = _FIGURE_TEXT[key]
+    return {"title": title, "caption": caption, "src": uri, "alt": f"{title} for {env}", "file": Path(path).name}
+
+
+def _env_context(page: EnvPage, index: int, data: ReportTables, facts: StudyFacts) -> dict[str, object]:
+    """Template data of one environment: figures and tables in reading order."""
+    views = env_views(data, facts, page.env)
+    figures = {key: _figure(key, path, page.env) for key, path in page.figures.items()}
+    blocks = [
+        ("figure", figures.get("curves")),
+        ("table", views["summary"]),
+        ("figure", figures.get("threshold")),
+        ("table", views["threshold"]),
+        ("table", views["efficiency"]),
+        ("table", views["comparisons"]),
+        ("figure", figures.get("budget")),
+        ("figure", figures.get("frontier")),
+        ("table", views["frontier"]),
+        ("figure", figures.get("model_error")),
+    ]
+    return {
+        "name": page.env,
+        "anchor": f"env-{index}",
+        "threshold": page.threshold_text,
+        "blocks": [{"kind": kind, "item": item} for kind, item in blocks if item is not None],
+    }
+
+
+def _headline_note(facts: StudyFacts, headline: list[str]) -> str:
+    """Why there are no real-step ratios, when there are none."""
+    if headline:
+        return ""
+    if not facts.baseline:
+        return "No real-step ratios: the study declares no baseline agent."
+    if all(value is None for value in facts.thresholds.values()):
+        return "No real-step ratios: no environment declares a return threshold."
+    return "No real-step ratios could be formed (the baseline has no trials in an environment with a threshold)."
+
+
+def _study_texts(runs: pd.DataFrame) -> list[dict[str, str]]:
+    """Each distinct study file text the runs used, newest first, with its hash and file name."""
+    texts = []
+    for _, run in runs.iloc[::-1].drop_duplicates("study_hash").iterrows():
+        texts.append(
+            {
+                "hash": str(run["study_hash"]),
+                "file": str(run["study_file"]),
+                "text": str(run["study_text"]),
+                "run": str(run["run_id"]),
+            }
+        )
+    return texts
+
+
+def render_page(
+    *,
+    facts: StudyFacts,
+    data: ReportTables,
+    envs: Sequence[EnvPage],
+    headline: list[str],
+    records: StudyRecords,
+) -> str:
+    """The report page as HTML text."""
+    environment = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(Path(__file__).parent / "templates"),
+        autoescape=jinja2.select_autoescape(default=True, default_for_string=True),
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+    record_views = _records_views(records)
+    thresholds = [
+        {"env": page.env, "text": "none declared" if page.threshold_text is None else page.threshold_text}
+        for page in envs
+    ]
+    return environment.get_template(_TEMPLATE).render(
+        facts=facts,
+        thresholds=thresholds,
+        headline=headline,
+        headline_note=_headline_note(facts, headline),
+        caution=CAUTION,
+        envs=[_env_context(page, index, data, facts) for index, page in enumerate(envs)],
+        advice=[
+            advice_view(group, with_env=False, title=str(env)) for env, group in data.advice.groupby("env", sort=False)
+        ],
+        advice_note=advice_note(data.advice),
+        records=record_views,
+        counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs")},
+        runs=_runs(records.runs),
+        glance=glance_sentences(data.tsummary, envs),
+        study_texts=_study_texts(records.runs),
+    )
+
+
+def write_page(
+    out_dir: Path,
+    *,
+    facts: StudyFacts,
+    data: ReportTables,
+    envs: Sequence[EnvPage],
+    headline: list[str],
+    records: StudyRecords,
+) -> Path:
+    """Write `report.html` into out_dir atomically and return its path."""
+    text = render_page(facts=facts, data=data, envs=envs, headline=headline, records=records)
+    path = Path(out_dir) / "report.html"
+    temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
+    try:
+        temp_path.write_text(text, encoding="utf-8")
+        os.replace(temp_path, path)
+    except BaseException:
+        temp_path.unlink(missing_ok=True)
+        raise
+    return path
