@@ -20,10 +20,25 @@ from runner.errors import ConfigError, EnvironmentSourceError, UnknownKindError
 from runner.params import Param, check_value
 from runner.yaml_source import KeyPath, SourceText, format_path, read_yaml
 
-__all__ = ["AgentVariant", "EnvironmentDecl", "Evaluation", "Study", "load_study"]
+__all__ = ["AgentVariant", "Analysis", "EnvironmentDecl", "Evaluation", "Study", "load_study"]
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
-_TOP_KEYS = ("study", "description", "seeds", "real_steps", "evaluation", "environments", "agents", "baseline")
+_TOP_KEYS = (
+    "study",
+    "description",
+    "seeds",
+    "real_steps",
+    "evaluation",
+    "analysis",
+    "environments",
+    "agents",
+    "baseline",
+)
+_ANALYSIS_SCHEMA = (
+    Param("consecutive", "int", 1, "evaluation points in a row the return must stay at the threshold", low=1),
+    Param("resamples", "int", 2000, "bootstrap resamples behind every interval", low=100, high=1_000_000),
+    Param("confidence", "float", 0.95, "confidence level of every interval", low=0.5, high=1.0, high_open=True),
+)
 _EVAL_KEYS = ("every", "episodes", "step_cap", "training_window")
 _ENV_KEYS = ("label", "gym", "grid", "entry", "options", "step_limit", "threshold")
 _GRID_KEYS = ("map", *GRID_PARAMS, "changes")
@@ -47,6 +62,15 @@ class Evaluation:
     episodes: int
     step_cap: int | None
     training_window: int
+
+
+@dataclass(frozen=True)
+class Analysis:
+    """How results are analysed: the threshold rule and the intervals."""
+
+    consecutive: int = 1
+    resamples: int = 2000
+    confidence: float = 0.95
 
 
 @dataclass(frozen=True)
@@ -82,6 +106,7 @@ class Study:
     seeds: tuple[int, ...]
     real_steps: int
     evaluation: Evaluation
+    analysis: Analysis
     environments: tuple[EnvironmentDecl, ...]
     agents: tuple[AgentVariant, ...]
     baseline: str | None
@@ -105,6 +130,7 @@ def load_study(path: str | Path) -> Study:
     seeds = _seeds(src, _require(src, data, ("seeds",)))
     real_steps = _positive_int(src, ("real_steps",), _require(src, data, ("real_steps",)))
     evaluation = _evaluation(src, data.get("evaluation"), real_steps)
+    analysis = _analysis(src, data.get("analysis"))
     environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
     agents = _agents(src, _require(src, data, ("agents",)))
     baseline = _baseline(src, data.get("baseline"), agents)
@@ -117,6 +143,7 @@ def load_study(path: str | Path) -> Study:
         seeds=seeds,
         real_steps=real_steps,
         evaluation=evaluation,
+        analysis=analysis,
         environments=environments,
         agents=agents,
         baseline=baseline,
@@ -192,6 +219,19 @@ def _evaluation(src: SourceText, value: Any, real_steps: int) -> Evaluation:
     step_cap = None if cap is None else _positive_int(src, (*path, "step_cap"), cap)
     window = _positive_int(src, (*path, "training_window"), data.get("training_window", 10))
     return Evaluation(every, episodes, step_cap, window)
+
+
+def _analysis(src: SourceText, value: Any) -> Analysis:
+    path: KeyPath = ("analysis",)
+    data = _mapping(src, path, value if value is not None else {})
+    _no_unknown_keys(src, data, path, tuple(p.name for p in _ANALYSIS_SCHEMA))
+    resolved = {}
+    for param in _ANALYSIS_SCHEMA:
+        try:
+            resolved[param.name] = check_value(param, data.get(param.name, param.default))
+        except ValueError as err:
+            raise src.error((*path, param.name), str(err)) from None
+    return Analysis(**resolved)
 
 
 def _environments(src: SourceText, value: Any, evaluation: Evaluation, real_steps: int) -> tuple[EnvironmentDecl, ...]:

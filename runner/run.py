@@ -41,6 +41,9 @@ def study_facts(study: Study) -> dict:
         "thresholds": {e.label: e.threshold for e in study.environments},
         "env_order": [e.label for e in study.environments],
         "agent_order": [a.label for a in study.agents],
+        "consecutive": study.analysis.consecutive,
+        "resamples": study.analysis.resamples,
+        "confidence": study.analysis.confidence,
     }
 
 

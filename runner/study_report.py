@@ -68,6 +68,8 @@ def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple
         env_order=facts["env_order"],
         agent_order=facts["agent_order"],
         consecutive=int(facts.get("consecutive", 1)),
+        confidence=float(facts.get("confidence", 0.95)),
+        n_resamples=int(facts.get("resamples", 2000)),
         description=str(facts.get("description") or ""),
         variant_params=params,
     )

@@ -142,6 +142,16 @@ _CASES = [
         "expected a number in [0, 1], got 1.5",
     ),
     # agents
+    Case(
+        "analysis-consecutive-zero",
+        _TOP + "analysis:\n  consecutive: 0\n",
+        5,
+        "analysis.consecutive",
+        "expected a whole number in [1, inf), got 0",
+    ),
+    Case(
+        "analysis-unknown-key", _TOP + "analysis: {resample: 10}\n", 4, "analysis.resample", "did you mean 'resamples'?"
+    ),
     Case("agent-kind-typo", _HEAD + "agents:\n  - kind: dyna\n", 7, "agents[0].kind", "did you mean 'dyna_q'"),
     Case(
         "alpha-out-of-range",
