@@ -42,6 +42,7 @@ def study_facts(study: Study) -> dict:
         "env_order": [e.label for e in study.environments],
         "agent_order": [a.label for a in study.agents],
         "consecutive": study.analysis.consecutive,
+        "changes": {e.label: [c["at"] for c in e.spec.get("changes", [])] for e in study.environments},
         "resamples": study.analysis.resamples,
         "confidence": study.analysis.confidence,
     }

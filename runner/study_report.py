@@ -68,6 +68,7 @@ def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple
         env_order=facts["env_order"],
         agent_order=facts["agent_order"],
         consecutive=int(facts.get("consecutive", 1)),
+        changes={env: list(steps) for env, steps in facts.get("changes", {}).items()},
         confidence=float(facts.get("confidence", 0.95)),
         n_resamples=int(facts.get("resamples", 2000)),
         description=str(facts.get("description") or ""),

@@ -18,6 +18,8 @@ AGENTS = Registry(
         "rmax": "runner.agents.rmax:RMax",
         "prioritized_sweeping": "runner.agents.prioritized_sweeping:PrioritizedSweeping",
         "negamax_search": "runner.agents.self_play:NegamaxSearch",
+        "uct_search": "runner.agents.tree_search:UCTSearch",
+        "puct_search": "runner.agents.tree_search:PUCTSearch",
     },
 )
 

@@ -43,8 +43,12 @@ PALETTE = (
     "#6b4a1f",
     "#9cb83a",
     "#5f6b73",
+    "#d1495b",
+    "#00798c",
+    "#c9a227",
+    "#3d3b8e",
 )
-_MARKERS = ("o", "s", "^", "D", "v", "P", "X")
+_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "h", "<", ">", "*")
 _THRESHOLD_COLOUR = "#333333"
 _GRID_COLOUR = "#dddddd"
 _DPI = 120
@@ -128,12 +132,16 @@ def _draw_threshold_line(axes: Axes, threshold: float | None) -> None:
         )
 
 
-def _draw(bands: pd.DataFrame, agents: list[str], threshold: float | None, title: str) -> Figure:
-    """Build the figure: one line and shaded band per agent, plus an optional dashed threshold line."""
+def _draw(
+    bands: pd.DataFrame, agents: list[str], threshold: float | None, title: str, changes: Sequence[int] = ()
+) -> Figure:
+    """Build the figure: one line and shaded band per agent, a dashed threshold line, dotted change events."""
     figure = Figure(figsize=(7.0, 4.5), layout="constrained")
     axes = figure.add_subplot()
     _draw_bands(axes, bands, agent_styles(agents))
     _draw_threshold_line(axes, threshold)
+    for i, step in enumerate(changes):
+        axes.axvline(step, color="#555555", linestyle=":", linewidth=1.2, label="the map changes" if i == 0 else None)
     _finish(axes, "real environment steps", "mean greedy evaluation return", title)
     return figure
 
@@ -146,16 +154,18 @@ def plot_curves(
     threshold: float | None,
     out_dir: Path,
     title: str,
+    changes: Sequence[int] = (),
 ) -> list[Path]:
     """Write `curves_<env>.png` and `.svg` for one environment and return their paths.
 
-    Shaded areas are the bootstrap bands from `curve_bands`; figures are built without pyplot, so no
-    global figure state is touched and nothing stays open after the call.
+    Shaded areas are the bootstrap bands from `curve_bands`; dotted vertical lines mark the real steps after which
+    a changing environment switched maps. Figures are built without pyplot, so no global figure state is
+    touched and nothing stays open after the call.
     """
     env_bands = bands[bands["env"] == env]
     if env_bands.empty:
         raise ValueError(f"no curve bands for environment {env!r}")
-    figure = _draw(env_bands, ordered_labels(env_bands["agent"], agent_order), threshold, title)
+    figure = _draw(env_bands, ordered_labels(pd.unique(env_bands["agent"]), agent_order), threshold, title, changes)
     return _save_both(figure, out_dir, f"curves_{safe_name(env)}")
 
 

@@ -123,6 +123,7 @@ class StudyFacts:
     agent_order: list[str]
     confidence: float = 0.95
     n_resamples: int = 2000
+    changes: dict[str, list[int]] = field(default_factory=dict)
     seed: int = 0
     consecutive: int = 1
     description: str = ""
@@ -479,7 +480,16 @@ def _env_figures(
     threshold = facts.thresholds.get(env)
     env_bands = data.bands[data.bands["env"] == env]
     figures.add(
-        "curves", plot_curves(env_bands, env, agent_order=agents, threshold=threshold, out_dir=out_dir, title=title)
+        "curves",
+        plot_curves(
+            env_bands,
+            env,
+            agent_order=agents,
+            threshold=threshold,
+            out_dir=out_dir,
+            title=title,
+            changes=facts.changes.get(env, ()),
+        ),
     )
     if threshold is not None and len(data.crossings):
         km_steps, censored = _km_figure_data(data.crossings, env, facts.confidence)
