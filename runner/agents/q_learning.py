@@ -4,7 +4,7 @@ import numpy as np
 from numba import njit
 
 from runner.agents.base import TabularAgent
-from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
+from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q, model_free_counter_problems
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 
 __all__ = ["QLearning"]
@@ -41,13 +41,7 @@ class QLearning(TabularAgent):
         return [p["alpha"], p["gamma"], p["epsilon"]]
 
     def counter_problems(self, real_steps):
-        c = self.counters()
-        problems = super().counter_problems(real_steps)
-        if c["real_updates"] != real_steps:
-            problems.append(f"real_updates {c['real_updates']} != real steps {real_steps}")
-        if c["planning_updates"] or c["model_updates"]:
-            problems.append(f"a model-free agent counted planning or model updates: {c}")
-        return problems
+        return super().counter_problems(real_steps) + model_free_counter_problems(self.counters(), real_steps)
 
     act_kernel = staticmethod(q_learning_act)
     observe_kernel = staticmethod(q_learning_observe)

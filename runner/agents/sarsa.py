@@ -4,7 +4,7 @@ import numpy as np
 from numba import njit
 
 from runner.agents.base import TabularAgent
-from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
+from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q, model_free_counter_problems
 from runner.agents.kernels import epsilon_greedy
 
 __all__ = ["ExpectedSarsa", "Sarsa"]
@@ -88,13 +88,7 @@ class _OnPolicyTD(TabularAgent):
         return [p["alpha"], p["gamma"], p["epsilon"]]
 
     def counter_problems(self, real_steps):
-        c = self.counters()
-        problems = super().counter_problems(real_steps)
-        if c["real_updates"] != real_steps:
-            problems.append(f"real_updates {c['real_updates']} != real steps {real_steps}")
-        if c["planning_updates"] or c["model_updates"]:
-            problems.append(f"a model-free agent counted planning or model updates: {c}")
-        return problems
+        return super().counter_problems(real_steps) + model_free_counter_problems(self.counters(), real_steps)
 
 
 class Sarsa(_OnPolicyTD):

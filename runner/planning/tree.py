@@ -34,6 +34,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from runner.agents.kernels import argmax_random_tie
 from runner.streams import below, uniform
 
 __all__ = [
@@ -281,29 +282,10 @@ def model_step(model, table, state, action, unvisited, stream):
     )
 
 
-@njit(cache=True, inline="always")
-def _argmax_random_tie(values, stream):
-    """Index of the largest value; ties uniformly at random."""
-    best = values[0]
-    count = 1
-    choice = 0
-    for i in range(1, values.shape[0]):
-        v = values[i]
-        if v > best:
-            best = v
-            count = 1
-            choice = i
-        elif v == best:
-            count += 1
-            if below(stream, count) == 0:
-                choice = i
-    return choice
-
-
 @njit(cache=True)
 def most_visited(tree, node, stream):
     """The action with the most visits at a node (ties at random): the search's choice."""
-    return _argmax_random_tie(tree[_EDGE_VISITS][node], stream)
+    return argmax_random_tie(tree[_EDGE_VISITS][node], stream)
 
 
 @njit(cache=True)
@@ -390,7 +372,7 @@ def _rollout(q, model, table, settings, state, steps, stream):
     discount = 1.0
     s = state
     for _ in range(steps):
-        a = _argmax_random_tie(q[s], stream) if greedy else below(stream, n_actions)
+        a = argmax_random_tie(q[s], stream) if greedy else below(stream, n_actions)
         s2, r, ended, unknown = _draw(
             offsets,
             cdf,
