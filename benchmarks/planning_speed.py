@@ -79,12 +79,12 @@ class Figure:
     """One measured rate: the best of the repetitions, with the work and time behind it."""
 
     what: str
-    updates: int
+    work: int
     seconds: float
 
     @property
     def rate(self) -> float:
-        return self.updates / self.seconds
+        return self.work / self.seconds
 
 
 def pin_to_one_core() -> str:
@@ -113,7 +113,7 @@ def cpu_model() -> str:
 
 
 def best_of(what: str, run: Any) -> Figure:
-    """Call `run()` (which returns the number of planning updates it made) REPEATS times; keep the fastest."""
+    """Call `run()` (which returns the work it did: updates, simulations...) REPEATS times; keep the fastest."""
     best: Figure | None = None
     for _ in range(REPEATS):
         start = time.perf_counter()
@@ -382,7 +382,7 @@ def main(argv: list[str] | None = None) -> int:
     print(f"{'what':<{width}}  {'figure':>10}  unit                 {'updates':>11}  {'best s':>8}")
     print("-" * (width + 58))
     for f in figures:
-        print(f"{f.what:<{width}}  {f.rate / 1e6:>10.3f}  M planning updates/s {f.updates:>11,}  {f.seconds:>8.4f}")
+        print(f"{f.what:<{width}}  {f.rate / 1e6:>10.3f}  M planning updates/s {f.work:>11,}  {f.seconds:>8.4f}")
     print()
     print(f"1a: {kernel_note}")
     print(f"1b: {trial_note}")

@@ -357,13 +357,13 @@ def item_planning(ctx: Context) -> None:
     ratio = tool.rate / plain.rate
     say(f"1 Dyna-Q n={DYNA_N}, Example 8.1 maze, {pinned}")
     say(
-        f"    tool: run_trial(spec, 'compiled'), {sizes.dyna_steps:,} real steps, {tool.updates:,} planning updates "
+        f"    tool: run_trial(spec, 'compiled'), {sizes.dyna_steps:,} real steps, {tool.work:,} planning updates "
         f"in {tool.seconds:.4f} s (best of 3), evaluation only at steps 0 and {sizes.dyna_steps:,}; "
         f"final greedy return {last['rows']['eval_return'][-1]:.1f}"
     )
     say(
         f"    plain Python: planning_speed.plain_dyna_q (lists and a dict, table stepping), {sizes.dyna_plain_steps:,}"
-        f" real steps, {plain.updates:,} planning updates in {plain.seconds:.4f} s (best of 3)"
+        f" real steps, {plain.work:,} planning updates in {plain.seconds:.4f} s (best of 3)"
     )
     ctx.rows.append(
         Row(

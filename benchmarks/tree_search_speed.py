@@ -20,16 +20,19 @@ smaller).
 from __future__ import annotations
 
 import argparse
-import os
 import platform
 import sys
-import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 import numba
 import numpy as np
+
+try:
+    from planning_speed import Figure, best_of, cpu_model, pin_to_one_core
+except ImportError:  # imported as part of a package rather than run as a script
+    from benchmarks.planning_speed import Figure, best_of, cpu_model, pin_to_one_core
 
 from runner.agents import AGENTS
 from runner.agents.tree_search import PUCTSearch, UCTSearch
@@ -68,56 +71,6 @@ class Sizes:
 
 FULL = Sizes(fill_steps=3_000, searches=3_000, trial_steps=5_000)
 QUICK = Sizes(fill_steps=1_000, searches=300, trial_steps=500)
-
-
-@dataclass(frozen=True)
-class Figure:
-    """One measured rate: the best of the repetitions, with the work and time behind it."""
-
-    what: str
-    simulations: int
-    seconds: float
-
-    @property
-    def rate(self) -> float:
-        return self.simulations / self.seconds
-
-
-def pin_to_one_core() -> str:
-    """Restrict the process to its first allowed CPU so every figure is a one-core figure; say what happened."""
-    if not hasattr(os, "sched_setaffinity"):
-        return "not pinned (os.sched_setaffinity is unavailable on this platform)"
-    allowed = sorted(os.sched_getaffinity(0))
-    try:
-        os.sched_setaffinity(0, {allowed[0]})
-    except OSError as err:
-        return f"not pinned ({err})"
-    return f"pinned to CPU {allowed[0]} with os.sched_setaffinity (of {len(allowed)} allowed: {allowed})"
-
-
-def cpu_model() -> str:
-    """The CPU model name from /proc/cpuinfo, or what the platform module knows."""
-    try:
-        with open("/proc/cpuinfo", encoding="utf-8") as f:
-            for line in f:
-                if line.startswith("model name"):
-                    return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or "unknown"
-
-
-def best_of(what: str, run: Any) -> Figure:
-    """Call `run()` (which returns the simulations it made) REPEATS times; keep the fastest."""
-    best: Figure | None = None
-    for _ in range(REPEATS):
-        start = time.perf_counter()
-        simulations = run()
-        seconds = time.perf_counter() - start
-        if best is None or seconds < best.seconds:
-            best = Figure(what, int(simulations), seconds)
-    assert best is not None
-    return best
 
 
 def maze_agent(cls: type, params: dict, fill_steps: int, seed: int) -> tuple[Any, GridWorld]:
@@ -252,7 +205,7 @@ def main(argv: list[str] | None = None) -> int:
     print("-" * (width + 48))
     for f in figures:
         verdict = "PASS" if f.rate >= TARGET_PER_SECOND else "MISS"
-        print(f"{f.what:<{width}}  {f.rate:>13,.0f}  {f.simulations:>11,}  {f.seconds:>8.4f}  {verdict}")
+        print(f"{f.what:<{width}}  {f.rate:>13,.0f}  {f.work:>11,}  {f.seconds:>8.4f}  {verdict}")
     print()
     for f, note in zip(figures, notes, strict=True):
         print(f"{f.what.split()[0]:<3}: {note}")
