@@ -269,4 +269,12 @@ def _list(what: str | None) -> int:
         print("\ngrid map cells:")
         for cell, meaning in CELL_MEANINGS.items():
             print(f"  {cell}  {meaning}")
+        print(
+            "\ngrid keys: map, slip, step_reward, goal_reward, hazard_penalty, hazard_ends, and changes: "
+            "[{at: REAL_STEP, map: ...}] to replace the map after that many real steps"
+        )
+        print(
+            "\nbuilt-in game: entry runner.envs.takeaway:TakeAwayGame with options heaps, opponent (random or "
+            "optimal), illegal_reward, start (heaps or random); agents that search game rules (negamax_search) need it"
+        )
     return 0
