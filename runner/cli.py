@@ -109,6 +109,9 @@ def main(argv: list[str] | None = None) -> int:
     except _USER_ERRORS as err:
         print(f"stepmeter: error: {err}", file=sys.stderr)
         return 2
+    except KeyboardInterrupt:
+        print("stepmeter: stopped; finished trials are kept", file=sys.stderr)
+        return 130
     except BrokenPipeError:
         return 1
 

@@ -133,7 +133,6 @@ def _run_locked(
         platform=platform_text(),
         jobs=n_jobs,
     )
-    warm_up([(t.spec, options.trial_path) for t in todo])
     progress = Progress(len(todo))
 
     def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
@@ -148,6 +147,7 @@ def _run_locked(
 
     outcome = "aborted"
     try:
+        warm_up([(t.spec, options.trial_path) for t in todo])
         run_parallel(todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster)
         outcome = "failures" if summary.failed else "complete"
     except KeyboardInterrupt:

@@ -6,6 +6,7 @@ load them instead of compiling them again.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import signal
 import threading
@@ -47,6 +48,20 @@ def _ignore_interrupts() -> None:
         return
     if signal.getsignal(signal.SIGINT) is not signal.SIG_IGN:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
+@contextlib.contextmanager
+def _workers_ignore_interrupts() -> Iterator[None]:
+    """Start worker processes with Ctrl-C ignored (an ignored signal survives their start), so a Ctrl-C while
+    they import reaches only this process, which stops the pool and keeps the finished trials."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 def execute_trial(
@@ -105,6 +120,7 @@ def run_parallel(
     if jobs == 1:
         outcomes = (execute_trial(t.trial_id, t.spec, path, time_limit) for t in trials)
     else:
-        outcomes = Parallel(n_jobs=jobs, return_as="generator_unordered")(tasks)
+        with _workers_ignore_interrupts():
+            outcomes = Parallel(n_jobs=jobs, return_as="generator_unordered")(tasks)
     for outcome in outcomes:
         on_outcome(by_id[outcome.trial_id], outcome)
