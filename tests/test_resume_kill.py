@@ -21,10 +21,11 @@ _REAL_STEPS = 6000
 _EVERY = 1000
 _POINTS = _REAL_STEPS // _EVERY + 1
 
-# 4 agent variants x 10 seeds = 40 trials of about 0.05-0.3 s each on the step-by-step gymnasium path.
+# 4 agent variants x 30 seeds = 120 trials of about 0.05-0.3 s each on the step-by-step gymnasium path: enough
+# work that six kills, each after a few more trials are stored, all land before the study is done.
 _STUDY = f"""\
 study: {_NAME}
-seeds: 10
+seeds: 30
 real_steps: {_REAL_STEPS}
 evaluation: {{every: {_EVERY}, episodes: 3}}
 environments:
@@ -44,7 +45,7 @@ agents:
   - {{label: ce, kind: certainty_equivalence}}
 baseline: q
 """
-_TRIALS = 40
+_TRIALS = 120
 
 # Kinds of kill, in order: "early" lands at a random moment of the first seconds (imports, lock, declaring,
 # warm-up, worker start, first trials); "mid" lands while trials compute, a moment after some were stored;
