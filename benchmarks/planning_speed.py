@@ -345,10 +345,10 @@ def measure_plain(sizes: Sizes, seed: int) -> tuple[Figure, Figure, str]:
 # --- report -------------------------------------------------------------------------------------------
 
 
-def command_line(quick: bool) -> str:
-    """The command that reproduces this run."""
+def command_line(quick: bool, script: str = "planning_speed.py") -> str:
+    """The command that reproduces a run of one of the benchmark scripts."""
     root = Path(__file__).resolve().parent.parent
-    return f"cd {root} && PYTHONPATH={root} python benchmarks/planning_speed.py" + (" --quick" if quick else "")
+    return f"cd {root} && PYTHONPATH={root} python benchmarks/{script}" + (" --quick" if quick else "")
 
 
 def main(argv: list[str] | None = None) -> int:

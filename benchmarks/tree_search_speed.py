@@ -23,16 +23,15 @@ import argparse
 import platform
 import sys
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numba
 import numpy as np
 
 try:
-    from planning_speed import Figure, best_of, cpu_model, pin_to_one_core
+    from planning_speed import Figure, best_of, command_line, cpu_model, pin_to_one_core
 except ImportError:  # imported as part of a package rather than run as a script
-    from benchmarks.planning_speed import Figure, best_of, cpu_model, pin_to_one_core
+    from benchmarks.planning_speed import Figure, best_of, command_line, cpu_model, pin_to_one_core
 
 from runner.agents import AGENTS
 from runner.agents.tree_search import PUCTSearch, UCTSearch
@@ -158,12 +157,6 @@ def measure_trial(sizes: Sizes, seed: int) -> tuple[Figure, str]:
     return figure, note
 
 
-def command_line(quick: bool) -> str:
-    """The command that reproduces this run."""
-    root = Path(__file__).resolve().parent.parent
-    return f"cd {root} && PYTHONPATH={root} python benchmarks/tree_search_speed.py" + (" --quick" if quick else "")
-
-
 def main(argv: list[str] | None = None) -> int:
     """Measure, then print the machine, the table and the target check."""
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
@@ -213,7 +206,7 @@ def main(argv: list[str] | None = None) -> int:
     print(f"target: >= {TARGET_PER_SECOND:,} simulations/s on one core")
     misses = [f.what for f in figures if f.rate < TARGET_PER_SECOND]
     print(f"overall: {'PASS' if not misses else 'MISS (' + '; '.join(misses) + ')'}")
-    print(f"reproduce: {command_line(args.quick)}")
+    print(f"reproduce: {command_line(args.quick, 'tree_search_speed.py')}")
     return 0
 
 

@@ -10,7 +10,7 @@ from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import Param
 from runner.streams import below
 
-__all__ = ["DynaQ"]
+__all__ = ["DynaQ", "last_outcome_arrays", "record_last_outcome"]
 
 _ALPHA, _GAMMA, _EPSILON, _PLANNING = 0, 1, 2, 3
 _Q, _NEXT, _REWARD, _TERMINAL, _SEEN, _SEEN_LIST, _N_SEEN = range(7)
@@ -45,11 +45,23 @@ def dyna_q_plan(arrays, hyper, counters, n_updates, rng):
     counters[1] += n_updates
 
 
+def last_outcome_arrays(n_states: int, n_actions: int, initial_q: float) -> tuple[np.ndarray, ...]:
+    """Q-table plus the last-outcome model: next state, reward and ended flag per pair, and the pairs seen so far
+    (flags, a list in the order first seen, its length). Dyna-Q+ and prioritized sweeping extend this tuple."""
+    return (
+        np.full((n_states, n_actions), initial_q, dtype=np.float64),
+        np.zeros((n_states, n_actions), dtype=np.int64),
+        np.zeros((n_states, n_actions), dtype=np.float64),
+        np.zeros((n_states, n_actions), dtype=np.uint8),
+        np.zeros((n_states, n_actions), dtype=np.uint8),
+        np.zeros(n_states * n_actions, dtype=np.int64),
+        np.zeros(1, dtype=np.int64),
+    )
+
+
 @njit(cache=True)
-def dyna_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
-    """Direct update, model update (last outcome seen), then the planning budget."""
-    q_learning_update(arrays[_Q], state, action, reward, next_state, terminated, hyper[_ALPHA], hyper[_GAMMA])
-    counters[0] += 1
+def record_last_outcome(arrays, state, action, reward, next_state, terminated):
+    """Remember the latest outcome of a (state, action) pair, listing the pair the first time it is seen."""
     arrays[_NEXT][state, action] = next_state
     arrays[_REWARD][state, action] = reward
     arrays[_TERMINAL][state, action] = 1 if terminated else 0
@@ -57,6 +69,14 @@ def dyna_q_observe(arrays, hyper, counters, state, action, reward, next_state, t
         arrays[_SEEN][state, action] = 1
         arrays[_SEEN_LIST][arrays[_N_SEEN][0]] = state * arrays[_Q].shape[1] + action
         arrays[_N_SEEN][0] += 1
+
+
+@njit(cache=True)
+def dyna_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
+    """Direct update, model update (last outcome seen), then the planning budget."""
+    q_learning_update(arrays[_Q], state, action, reward, next_state, terminated, hyper[_ALPHA], hyper[_GAMMA])
+    counters[0] += 1
+    record_last_outcome(arrays, state, action, reward, next_state, terminated)
     counters[2] += 1
     dyna_q_plan(arrays, hyper, counters, np.int64(hyper[_PLANNING]), rng)
 
@@ -96,15 +116,7 @@ class DynaQ(TabularAgent):
     )
 
     def make_arrays(self, n_states, n_actions):
-        return (
-            np.full((n_states, n_actions), self._params["initial_q"], dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.int64),
-            np.zeros((n_states, n_actions), dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.uint8),
-            np.zeros((n_states, n_actions), dtype=np.uint8),
-            np.zeros(n_states * n_actions, dtype=np.int64),
-            np.zeros(1, dtype=np.int64),
-        )
+        return last_outcome_arrays(n_states, n_actions, self._params["initial_q"])
 
     def make_hyper(self):
         p = self._params

@@ -10,7 +10,7 @@ from numba import njit
 
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
-from runner.agents.dyna_q import dyna_q_model_error
+from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import Param
 from runner.streams import below
@@ -28,18 +28,6 @@ def dyna_q_plus_act(arrays, hyper, state, rng):
 
 
 @njit(cache=True)
-def _enter(arrays, state, action, next_state, reward, terminated):
-    n_actions = arrays[_Q].shape[1]
-    arrays[_NEXT][state, action] = next_state
-    arrays[_REWARD][state, action] = reward
-    arrays[_TERMINAL][state, action] = 1 if terminated else 0
-    if arrays[_SEEN][state, action] == 0:
-        arrays[_SEEN][state, action] = 1
-        arrays[_SEEN_LIST][arrays[_N_SEEN][0]] = state * n_actions + action
-        arrays[_N_SEEN][0] += 1
-
-
-@njit(cache=True)
 def dyna_q_plus_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
     """Direct update, model update (untried actions of a new state as zero-reward self-loops), then planning
     with the bonus kappa * sqrt(real steps since the pair was last tried)."""
@@ -53,8 +41,8 @@ def dyna_q_plus_observe(arrays, hyper, counters, state, action, reward, next_sta
         arrays[_STATE_KNOWN][state] = 1
         for other in range(q.shape[1]):
             if arrays[_SEEN][state, other] == 0 and other != action:
-                _enter(arrays, state, other, state, 0.0, False)
-    _enter(arrays, state, action, next_state, reward, terminated)
+                record_last_outcome(arrays, state, other, 0.0, state, False)
+    record_last_outcome(arrays, state, action, reward, next_state, terminated)
     arrays[_LAST_TRIED][state, action] = clock[0]
     counters[2] += 1
     n_updates = np.int64(hyper[_PLANNING])
@@ -89,13 +77,7 @@ class DynaQPlus(TabularAgent):
 
     def make_arrays(self, n_states, n_actions):
         return (
-            np.full((n_states, n_actions), self._params["initial_q"], dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.int64),
-            np.zeros((n_states, n_actions), dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.uint8),
-            np.zeros((n_states, n_actions), dtype=np.uint8),
-            np.zeros(n_states * n_actions, dtype=np.int64),
-            np.zeros(1, dtype=np.int64),
+            *last_outcome_arrays(n_states, n_actions, self._params["initial_q"]),
             np.zeros((n_states, n_actions), dtype=np.int64),
             np.zeros(n_states, dtype=np.uint8),
             np.zeros(1, dtype=np.int64),

@@ -9,7 +9,7 @@ from numba import njit
 
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
-from runner.agents.dyna_q import dyna_q_model_error
+from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import Param
 
@@ -100,13 +100,7 @@ def prioritized_sweeping_observe(arrays, hyper, counters, state, action, reward,
     n_actions = q.shape[1]
     alpha, gamma, theta = hyper[_ALPHA], hyper[_GAMMA], hyper[_THETA]
     pair = state * n_actions + action
-    arrays[_NEXT][state, action] = next_state
-    arrays[_REWARD][state, action] = reward
-    arrays[_TERMINAL][state, action] = 1 if terminated else 0
-    if arrays[_SEEN][state, action] == 0:
-        arrays[_SEEN][state, action] = 1
-        arrays[_SEEN_LIST][arrays[_N_SEEN][0]] = pair
-        arrays[_N_SEEN][0] += 1
+    record_last_outcome(arrays, state, action, reward, next_state, terminated)
     if not terminated:
         preds, n_pred = arrays[_PRED], arrays[_N_PRED]
         known = False
@@ -164,13 +158,7 @@ class PrioritizedSweeping(TabularAgent):
     def make_arrays(self, n_states, n_actions):
         pairs = n_states * n_actions
         return (
-            np.full((n_states, n_actions), self._params["initial_q"], dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.int64),
-            np.zeros((n_states, n_actions), dtype=np.float64),
-            np.zeros((n_states, n_actions), dtype=np.uint8),
-            np.zeros((n_states, n_actions), dtype=np.uint8),
-            np.zeros(pairs, dtype=np.int64),
-            np.zeros(1, dtype=np.int64),
+            *last_outcome_arrays(n_states, n_actions, self._params["initial_q"]),
             np.zeros((n_states, min(self._params["max_predecessors"], pairs)), dtype=np.int64),
             np.zeros(n_states, dtype=np.int64),
             np.zeros(pairs, dtype=np.int64),
