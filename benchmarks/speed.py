@@ -7,26 +7,26 @@ ratio, the target, PASS/MISS):
    `run_trial(spec, "compiled")` on one core, beside the plain-Python Dyna-Q of `planning_speed.py`;
 2. Q-learning real steps per second on gymnasium's FrozenLake8x8-v1 through `run_trial` on the compiled path and
    on the gymnasium path, beside a plain per-step Python Q-learning stepping `gymnasium.make(...)`;
-3. the bundled demo study `configs/warehouse.yaml` end to end (`stepmeter run --jobs 1` in a subprocess, so
-   import and start-up count) against a plain per-step Python implementation of the same study, run on a
-   subset and scaled linearly per trial to the whole study;
-4. parallel scaling: `stepmeter run --jobs 1` against `--jobs 2` on the demo study and on a 200-seed variant;
-5. `stepmeter report` on a synthetic study of 10,000 trials x 200 evaluation points made by a real run through
+3. the bundled demo experiment `configs/warehouse.yaml` end to end (`stepmeter run --jobs 1` in a subprocess, so
+   import and start-up count) against a plain per-step Python implementation of the same experiment, run on a
+   subset and scaled linearly per trial to the whole experiment;
+4. parallel scaling: `stepmeter run --jobs 1` against `--jobs 2` on the demo experiment and on a 200-seed variant;
+5. `stepmeter report` on a synthetic experiment of 10,000 trials x 200 evaluation points made by a real run through
    the real store: wall seconds and peak memory;
 6. the machine, the software versions, the date and the command that reproduces the output.
 
-Why: stepmeter is only useful if a study's figures come back fast enough to iterate on, and if they stay cheap
-as studies grow; each figure has a target, and the plain-Python figures show what the compiled paths buy.
+Why: stepmeter is only useful if an experiment's figures come back fast enough to iterate on, and if they stay cheap
+as experiments grow; each figure has a target, and the plain-Python figures show what the compiled paths buy.
 
 Every one-core figure runs pinned to one CPU with `os.sched_setaffinity` (the pin is lifted afterwards, and
-item 4 and the synthetic study let the subprocesses use every allowed core). Numba compile time is left out of
+item 4 and the synthetic experiment let the subprocesses use every allowed core). Numba compile time is left out of
 every figure: each compiled path is warmed first, which also fills numba's on-disk cache (runner/__pycache__)
 that the `stepmeter` subprocesses load. In-process figures are the best of 3 repetitions, subprocess figures
 the best of 2 (1 with `--quick`). After each item the script prints how much CPU other processes on the
 machine took meanwhile (from /proc/stat), because such work slows every figure and the parallel ones most.
 Randomness comes only from seeded numpy Generators. This script prints figures; it asserts nothing. Run from
 the repository root with `PYTHONPATH=. python benchmarks/speed.py` (`--quick` for a run about ten times smaller,
-`--only 1,3` for some items, `--keep` to keep the synthetic study).
+`--only 1,3` for some items, `--keep` to keep the synthetic experiment).
 """
 
 from __future__ import annotations
@@ -61,30 +61,30 @@ except ImportError:  # run as `python -m benchmarks.speed` from the repository r
     from benchmarks.planning_speed import DYNA_MAZE, best_of, cpu_model, plain_dyna_q, trial_spec
 
 from runner.agents.q_learning import QLearning
-from runner.config import load_study
+from runner.config import load_experiment
 from runner.envs.grid import GridWorld
 from runner.plan import SPEC_FORMAT
 from runner.trial import run_trial
 
 ROOT = Path(__file__).resolve().parent.parent
-DEMO_STUDY = ROOT / "configs" / "warehouse.yaml"
+DEMO_EXPERIMENT = ROOT / "configs" / "warehouse.yaml"
 ALPHA, GAMMA, EPSILON = 0.1, 0.95, 0.1
-"""Hyperparameters of items 1 and 2 (those of planning_speed.py and of the demo study)."""
+"""Hyperparameters of items 1 and 2 (those of planning_speed.py and of the demo experiment)."""
 
 DYNA_N = 50
 LAKE_ID = "FrozenLake8x8-v1"
 LAKE_ENV = {"source": "gym", "id": LAKE_ID, "options": {}, "step_limit": None}
-LAKE_STEP_CAP = 200  # FrozenLake8x8-v1's registered max_episode_steps, which a study would use as step_cap
+LAKE_STEP_CAP = 200  # FrozenLake8x8-v1's registered max_episode_steps, which an experiment would use as step_cap
 
 TARGET_PLANNING = 8e6  # item 1: planning updates/s on one core
 TARGET_LAKE = 2e6  # item 2: real steps/s on one core, compiled path
-TARGET_STUDY_SPEEDUP = 20.0  # item 3: tool at least this many times faster than plain Python
+TARGET_EXPERIMENT_SPEEDUP = 20.0  # item 3: tool at least this many times faster than plain Python
 TARGET_SCALING = 1.8  # item 4: 2 processes at least this many times faster than 1
 TARGET_REPORT_SECONDS = 60.0  # item 5
 TARGET_REPORT_BYTES = 2 * 1024**3  # item 5: 2 GiB peak resident memory
 
 SYNTH_MAP = "S..#\n.#..\n...G"
-"""The synthetic study's small grid map (12 cells; the shortest path takes 5 moves)."""
+"""The synthetic experiment's small grid map (12 cells; the shortest path takes 5 moves)."""
 
 
 @dataclass(frozen=True)
@@ -99,8 +99,8 @@ class Sizes:
     lake_plain_steps: int  # item 2: real steps of each timed plain-Python Q-learning run
     plain_seeds: int  # item 3: seeds per agent variant run in plain Python
     plain_fraction: int  # item 3: plain Python runs 1/plain_fraction of the real-step budget
-    scaling_seeds: int  # item 4: seeds of the larger variant of the demo study
-    synth_seeds: int  # item 5: seeds per agent variant of the synthetic study (5 variants)
+    scaling_seeds: int  # item 4: seeds of the larger variant of the demo experiment
+    synth_seeds: int  # item 5: seeds per agent variant of the synthetic experiment (5 variants)
     runs: int  # repetitions of each timed subprocess (best kept)
 
 
@@ -296,14 +296,16 @@ def run_stepmeter(args: list[str], wrapper: list[str] | None = None) -> tuple[fl
     return seconds, done.stdout
 
 
-def time_study_run(ctx: Context, study: Path, jobs: int, keep: Path | None = None) -> float:
-    """Wall seconds of one `stepmeter run STUDY --jobs J --no-report` into a fresh results folder.
+def time_experiment_run(ctx: Context, experiment: Path, jobs: int, keep: Path | None = None) -> float:
+    """Wall seconds of one `stepmeter run EXPERIMENT --jobs J --no-report` into a fresh results folder.
 
     The results go to `keep` when it is given (and stay there); otherwise they are deleted afterwards.
     """
     results = keep if keep is not None else Path(tempfile.mkdtemp(prefix="results-", dir=ctx.scratch))
     try:
-        seconds, _ = run_stepmeter(["run", str(study), "--jobs", str(jobs), "--no-report", "--results", str(results)])
+        seconds, _ = run_stepmeter(
+            ["run", str(experiment), "--jobs", str(jobs), "--no-report", "--results", str(results)]
+        )
     finally:
         if keep is None:
             shutil.rmtree(results, ignore_errors=True)
@@ -311,15 +313,17 @@ def time_study_run(ctx: Context, study: Path, jobs: int, keep: Path | None = Non
 
 
 def ensure_warm(ctx: Context) -> None:
-    """Run the demo study once, untimed, so numba's disk cache holds every kernel the timed runs load."""
+    """Run the demo experiment once, untimed, so numba's disk cache holds every kernel the timed runs load."""
     if ctx.warm:
         return
     results = Path(tempfile.mkdtemp(prefix="warm-", dir=ctx.scratch))
     try:
-        seconds, _ = run_stepmeter(["run", str(DEMO_STUDY), "--jobs", "1", "--no-report", "--results", str(results)])
+        seconds, _ = run_stepmeter(
+            ["run", str(DEMO_EXPERIMENT), "--jobs", "1", "--no-report", "--results", str(results)]
+        )
     finally:
         shutil.rmtree(results, ignore_errors=True)
-    say(f"    (warm-up: one untimed run of the demo study took {seconds:.2f} s; numba's disk cache is now warm)")
+    say(f"    (warm-up: one untimed run of the demo experiment took {seconds:.2f} s; numba's disk cache is now warm)")
     ctx.warm = True
 
 
@@ -473,7 +477,7 @@ def item_lake(ctx: Context) -> None:
     )
 
 
-# --- item 3: the demo study, tool against plain Python ---------------------------------------------------
+# --- item 3: the demo experiment, tool against plain Python ---------------------------------------------------
 
 
 class PlainEnv:
@@ -707,13 +711,13 @@ def plain_trial(
     return rows
 
 
-def item_demo_study(ctx: Context) -> None:
-    """The demo study end to end through `stepmeter run --jobs 1`, against plain Python scaled from a subset."""
+def item_demo_experiment(ctx: Context) -> None:
+    """The demo experiment end to end through `stepmeter run --jobs 1`, against plain Python scaled from a subset."""
     from runner.analysis.frames import load_results  # only this item reads a store in-process
 
     sizes = ctx.sizes
-    study = load_study(DEMO_STUDY)
-    (env_decl,) = study.environments
+    experiment = load_experiment(DEMO_EXPERIMENT)
+    (env_decl,) = experiment.environments
     spec = env_decl.spec
     grid = GridWorld(
         spec["map"],
@@ -724,17 +728,19 @@ def item_demo_study(ctx: Context) -> None:
         hazard_ends=spec["hazard_ends"],
     )
     env = PlainEnv(grid, spec["step_limit"])
-    ev = study.evaluation
-    plain_steps = study.real_steps // sizes.plain_fraction
+    ev = experiment.evaluation
+    plain_steps = experiment.real_steps // sizes.plain_fraction
     plain_steps -= plain_steps % ev.every
-    seeds = study.seeds[: sizes.plain_seeds]
+    seeds = experiment.seeds[: sizes.plain_seeds]
     results = Path(tempfile.mkdtemp(prefix="demo-", dir=ctx.scratch))
     with one_core() as pinned:
         ensure_warm(ctx)
-        best = min(time_study_run(ctx, DEMO_STUDY, 1, keep=results if k == 0 else None) for k in range(sizes.runs))
+        best = min(
+            time_experiment_run(ctx, DEMO_EXPERIMENT, 1, keep=results if k == 0 else None) for k in range(sizes.runs)
+        )
         plain_seconds: dict[str, list[float]] = {}
         plain_rows: dict[str, list[list[list[float]]]] = {}
-        for agent in study.agents:
+        for agent in experiment.agents:
             for seed in seeds:
                 start = time.perf_counter()
                 rows = plain_trial(
@@ -750,25 +756,26 @@ def item_demo_study(ctx: Context) -> None:
                 )
                 plain_seconds.setdefault(agent.label, []).append(time.perf_counter() - start)
                 plain_rows.setdefault(agent.label, []).append(rows)
-    frame = load_results(results / study.name)
+    frame = load_results(results / experiment.name)
     shutil.rmtree(results, ignore_errors=True)
 
-    n_seeds = len(study.seeds)
-    step_scale = study.real_steps / plain_steps
+    n_seeds = len(experiment.seeds)
+    step_scale = experiment.real_steps / plain_steps
     scaled_total = 0.0
-    say(f"3 demo study {DEMO_STUDY.relative_to(ROOT)} ({study.name}), {pinned}")
+    say(f"3 demo experiment {DEMO_EXPERIMENT.relative_to(ROOT)} ({experiment.name}), {pinned}")
     say(
-        f"    tool: `stepmeter run {DEMO_STUDY.relative_to(ROOT)} --jobs 1 --no-report --results <fresh temp dir>` "
-        f"in a subprocess: {len(study.agents)} variants x {n_seeds} seeds x {study.real_steps:,} real steps, "
+        f"    tool: `stepmeter run {DEMO_EXPERIMENT.relative_to(ROOT)} --jobs 1 --no-report "
+        f"--results <fresh temp dir>` in a subprocess: {len(experiment.agents)} variants x {n_seeds} seeds x "
+        f"{experiment.real_steps:,} real steps, "
         f"{best:.2f} s wall (best of {sizes.runs}; import, start-up, kernel loading and store writes included)"
     )
     subset = f"{len(seeds)} of {n_seeds} seeds per variant"
-    if plain_steps != study.real_steps:
-        subset += f", the first {plain_steps:,} of {study.real_steps:,} real steps"
+    if plain_steps != experiment.real_steps:
+        subset += f", the first {plain_steps:,} of {experiment.real_steps:,} real steps"
     say(f"    plain Python: same map (GridWorld's P table), same protocol, run on {subset}; per trial:")
-    width = max(len(a.label) for a in study.agents)
+    width = max(len(a.label) for a in experiment.agents)
     n_pairs = env.n_states * env.n_actions
-    for agent in study.agents:
+    for agent in experiment.agents:
         per_trial = sum(plain_seconds[agent.label]) / len(plain_seconds[agent.label])
         scaled = per_trial * step_scale * n_seeds
         scaled_total += scaled
@@ -786,21 +793,21 @@ def item_demo_study(ctx: Context) -> None:
             line += f"; VI sweeps per real step: plain {plain_sweeps:.2f}, tool {tool_sweeps:.2f} (same seeds)"
         say(line)
     how = f"scaled linearly per trial from {subset} to {n_seeds} seeds" + (
-        f" and x {step_scale:g} in real steps" if plain_steps != study.real_steps else ""
+        f" and x {step_scale:g} in real steps" if plain_steps != experiment.real_steps else ""
     )
-    say(f"    plain Python study total: {scaled_total:.1f} s ({how}; compute only, no start-up)")
+    say(f"    plain Python experiment total: {scaled_total:.1f} s ({how}; compute only, no start-up)")
     say("    (the environment streams differ between the two, so returns agree in distribution, not exactly)")
     speedup = scaled_total / best
     ctx.rows.append(
         Row(
             "3",
-            "demo study end to end, stepmeter run --jobs 1, 1 core",
+            "demo experiment end to end, stepmeter run --jobs 1, 1 core",
             f"{best:.2f}",
             "s wall",
             f"{scaled_total:.0f} (scaled)",
             f"{speedup:.0f}x",
-            f">= {TARGET_STUDY_SPEEDUP:g}x faster",
-            verdict(speedup >= TARGET_STUDY_SPEEDUP),
+            f">= {TARGET_EXPERIMENT_SPEEDUP:g}x faster",
+            verdict(speedup >= TARGET_EXPERIMENT_SPEEDUP),
         )
     )
 
@@ -809,19 +816,19 @@ def item_demo_study(ctx: Context) -> None:
 
 
 def larger_demo(ctx: Context, seeds: int) -> Path:
-    """The demo study's YAML with `seeds: N` and another study name, written to the scratch folder."""
-    text = DEMO_STUDY.read_text(encoding="utf-8")
+    """The demo experiment's YAML with `seeds: N` and another experiment name, written to the scratch folder."""
+    text = DEMO_EXPERIMENT.read_text(encoding="utf-8")
     text, n_seeds = re.subn(r"(?m)^seeds:\s*\d+", f"seeds: {seeds}", text)
-    text, n_names = re.subn(r"(?m)^study:\s*(\S+)", rf"study: \g<1>-{seeds}seeds", text)
+    text, n_names = re.subn(r"(?m)^experiment:\s*(\S+)", rf"experiment: \g<1>-{seeds}seeds", text)
     if n_seeds != 1 or n_names != 1:
-        raise RuntimeError(f"could not rewrite the seeds and study lines of {DEMO_STUDY}")
+        raise RuntimeError(f"could not rewrite the seeds and experiment lines of {DEMO_EXPERIMENT}")
     path = ctx.scratch / f"warehouse-{seeds}seeds.yaml"
     path.write_text(text, encoding="utf-8")
     return path
 
 
 def item_scaling(ctx: Context) -> None:
-    """`stepmeter run --jobs 1` against `--jobs 2` on the demo study and on a larger variant of it."""
+    """`stepmeter run --jobs 1` against `--jobs 2` on the demo experiment and on a larger variant of it."""
     sizes = ctx.sizes
     ensure_warm(ctx)
     cpus = allowed_cpus()
@@ -830,16 +837,23 @@ def item_scaling(ctx: Context) -> None:
         f"4 parallel scaling, not pinned (CPUs allowed: {cpus}); best of {sizes.runs} per figure, "
         "--jobs 1 and --jobs 2 runs alternated"
     )
-    demo = load_study(DEMO_STUDY)
+    demo = load_experiment(DEMO_EXPERIMENT)
     n_variants = len(demo.agents)
-    for label, study, seeds in (("demo", DEMO_STUDY, len(demo.seeds)), ("larger", larger, sizes.scaling_seeds)):
+    for label, experiment, seeds in (
+        ("demo", DEMO_EXPERIMENT, len(demo.seeds)),
+        ("larger", larger, sizes.scaling_seeds),
+    ):
         one = two = math.inf
         for _ in range(sizes.runs):  # alternate, so a burst of other work on the machine hits both alike
-            one = min(one, time_study_run(ctx, study, 1))
-            two = min(two, time_study_run(ctx, study, 2))
+            one = min(one, time_experiment_run(ctx, experiment, 1))
+            two = min(two, time_experiment_run(ctx, experiment, 2))
         ratio = one / two
         trials = f"{seeds * n_variants} trials"
-        name = f"demo study ({seeds} seeds, {trials})" if label == "demo" else f"demo study, seeds: {seeds} ({trials})"
+        name = (
+            f"demo experiment ({seeds} seeds, {trials})"
+            if label == "demo"
+            else f"demo experiment, seeds: {seeds} ({trials})"
+        )
         say(f"    {name}: --jobs 1 {one:.2f} s, --jobs 2 {two:.2f} s, speed-up {ratio:.2f}x")
         ctx.rows.append(
             Row(
@@ -857,15 +871,15 @@ def item_scaling(ctx: Context) -> None:
         say("    (fewer than 2 CPUs are allowed, so --jobs 2 cannot be faster here)")
 
 
-# --- item 5: the report of a large stored study ------------------------------------------------------------
+# --- item 5: the report of a large stored experiment ------------------------------------------------------------
 
 
-def synthetic_study_text(name: str, seeds: int) -> str:
-    """A study of 5 agent variants x `seeds` seeds x 200 evaluation points on a small grid map."""
+def synthetic_experiment_text(name: str, seeds: int) -> str:
+    """An experiment of 5 agent variants x `seeds` seeds x 200 evaluation points on a small grid map."""
     grid = "\n".join(f"        {line}" for line in SYNTH_MAP.splitlines())
     return f"""\
-# Synthetic study written by benchmarks/speed.py to time `stepmeter report` on many stored rows.
-study: {name}
+# Synthetic experiment written by benchmarks/speed.py to time `stepmeter report` on many stored rows.
+experiment: {name}
 description: Many short trials with many evaluation points, to time the report.
 seeds: {seeds}
 real_steps: 1990
@@ -917,24 +931,24 @@ def peak_memory_run(args: list[str]) -> tuple[float, int | None, str]:
 
 
 def item_report(ctx: Context) -> None:
-    """Make a large study through a real `stepmeter run`, then time `stepmeter report` on it and its memory."""
+    """Make a large experiment through a real `stepmeter run`, then time `stepmeter report` on it and its memory."""
     seeds = ctx.sizes.synth_seeds
     trials = 5 * seeds
     name = f"synthetic-{trials}-trials"
     root = Path(tempfile.mkdtemp(prefix="stepmeter-synthetic-"))
-    study_file = root / f"{name}.yaml"
-    study_file.write_text(synthetic_study_text(name, seeds), encoding="utf-8")
+    experiment_file = root / f"{name}.yaml"
+    experiment_file.write_text(synthetic_experiment_text(name, seeds), encoding="utf-8")
     folder = root / "results" / name
     say(f"5 report at scale: {trials:,} trials x 200 evaluation points = {trials * 200:,} metric rows")
     try:
         ensure_warm(ctx)
         generate, _ = run_stepmeter(
-            ["run", str(study_file), "--jobs", "2", "--no-report", "--results", str(root / "results")]
+            ["run", str(experiment_file), "--jobs", "2", "--no-report", "--results", str(root / "results")]
         )
         store_bytes = folder_bytes(folder)
         say(
-            f"    generated through the real store by `stepmeter run {study_file.name} --jobs 2 --no-report` in "
-            f"{generate:.1f} s; study folder {folder} holds {store_bytes / 2**20:.1f} MiB"
+            f"    generated through the real store by `stepmeter run {experiment_file.name} --jobs 2 --no-report` in "
+            f"{generate:.1f} s; experiment folder {folder} holds {store_bytes / 2**20:.1f} MiB"
         )
         seconds, peak, how = peak_memory_run(["report", str(folder)])
         peak_text = "unknown" if peak is None else f"{peak / 2**20:.0f} MiB"
@@ -945,7 +959,9 @@ def item_report(ctx: Context) -> None:
         else:
             shutil.rmtree(root, ignore_errors=True)
             say(f"    deleted {root} (pass --keep to keep it)")
-    ctx.rows.append(Row("5", f"make the {trials:,}-trial study, stepmeter run --jobs 2", f"{generate:.1f}", "s wall"))
+    ctx.rows.append(
+        Row("5", f"make the {trials:,}-trial experiment, stepmeter run --jobs 2", f"{generate:.1f}", "s wall")
+    )
     ctx.rows.append(
         Row(
             "5",
@@ -973,7 +989,7 @@ def item_report(ctx: Context) -> None:
 ITEMS: dict[int, Callable[[Context], None]] = {
     1: item_planning,
     2: item_lake,
-    3: item_demo_study,
+    3: item_demo_experiment,
     4: item_scaling,
     5: item_report,
 }
@@ -1019,13 +1035,13 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="everything about 10x smaller (smoke run)")
     parser.add_argument("--only", type=parse_only, default=None, help="run only these items, e.g. 1,3 (default all)")
-    parser.add_argument("--keep", action="store_true", help="keep item 5's synthetic study (deleted by default)")
+    parser.add_argument("--keep", action="store_true", help="keep item 5's synthetic experiment (deleted by default)")
     parser.add_argument("--seed", type=int, default=0, help="seed of every numpy Generator used (default 0)")
     args = parser.parse_args(argv)
     items = args.only or sorted(ITEMS)
     sizes = QUICK if args.quick else FULL
 
-    say("stepmeter speed: compiled paths, whole studies, parallel scaling and the report, against targets")
+    say("stepmeter speed: compiled paths, whole experiments, parallel scaling and the report, against targets")
     say(f"date     : {datetime.now().astimezone().isoformat(timespec='seconds')}")
     say(
         f"cpu      : {cpu_model()}; {len(allowed_cpus())} cores allowed {allowed_cpus()}; "

@@ -9,7 +9,7 @@ __all__ = ["__version__", "load_results"]
 
 
 def load_results(path):
-    """Load a stored study as one tidy pandas DataFrame (one row per trial and evaluation point)."""
+    """Load a stored experiment as one tidy pandas DataFrame (one row per trial and evaluation point)."""
     from runner.analysis.frames import load_results as _load
 
     return _load(path)

@@ -14,9 +14,10 @@ import numpy as np
 
 from runner.agents import AGENTS, TabularAgent, agent_class
 from runner.envs.sources import build_env, env_sizes
+from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS
 from runner.planning.negamax import solve_negamax
 from runner.streams import new_stream
-from runner.trial import METRIC_COLUMNS, run_trial
+from runner.trial import run_trial
 
 __all__ = ["ContractError", "agent_checks", "check_agent", "check_environment", "environment_checks"]
 
@@ -185,7 +186,7 @@ def _check_counters_add_up(cls: type[TabularAgent], params: dict) -> None:
 
 
 def _check_trial_rows_reproducible(cls: type[TabularAgent], params: dict) -> None:
-    columns = [c for c in METRIC_COLUMNS if c != "wall_seconds"]
+    columns = [c for c in METRIC_COLUMNS if c not in TIMING_COLUMNS]
     kind, task = _kind_name(cls), _task(cls, SLIPPERY)
     for path in ("compiled", "gymnasium"):
         first = run_trial(_trial_spec(kind, params, task, seed=9), path).rows

@@ -12,14 +12,14 @@ from runner.errors import (
     ClusterError,
     ConfigError,
     EnvironmentSourceError,
+    ExperimentBusyError,
     StoreError,
-    StudyBusyError,
     UnknownKindError,
 )
 
 __all__ = ["main"]
 
-_USER_ERRORS = (ClusterError, ConfigError, EnvironmentSourceError, StoreError, StudyBusyError, UnknownKindError)
+_USER_ERRORS = (ClusterError, ConfigError, EnvironmentSourceError, StoreError, ExperimentBusyError, UnknownKindError)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -30,10 +30,10 @@ def _parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"stepmeter {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    run = sub.add_parser("run", help="run a study's trials (skipping stored ones), then write its report")
-    run.add_argument("study", help="the study YAML file")
+    run = sub.add_parser("run", help="run an experiment's trials (skipping stored ones), then write its report")
+    run.add_argument("experiment", help="the experiment YAML file")
     run.add_argument("--jobs", type=int, default=None, help="worker processes (default: all cores)")
-    run.add_argument("--results", default="results", help="folder that holds study results (default: results)")
+    run.add_argument("--results", default="results", help="folder that holds experiment results (default: results)")
     run.add_argument("--no-report", action="store_true", help="do not write the report at the end")
     run.add_argument(
         "--path",
@@ -50,7 +50,7 @@ def _parser() -> argparse.ArgumentParser:
         metavar="SECONDS",
         help="store a trial as failed when it runs longer than this many wall seconds (default: no limit)",
     )
-    run.add_argument("--start-over", action="store_true", help="delete the study's stored results first")
+    run.add_argument("--start-over", action="store_true", help="delete the experiment's stored results first")
     run.add_argument("--failed-only", action="store_true", help="run only trials that failed before")
     run.add_argument(
         "--cluster",
@@ -61,14 +61,14 @@ def _parser() -> argparse.ArgumentParser:
     )
 
     rerun = sub.add_parser("rerun", help="re-run stored trials and check that their rows come out bit for bit")
-    rerun.add_argument("folder", help="the study's results folder, e.g. results/warehouse-spills")
+    rerun.add_argument("folder", help="the experiment's results folder, e.g. results/warehouse-spills")
     rerun.add_argument("trial_ids", nargs="*", metavar="TRIAL_ID", help="trial ids (or unique prefixes)")
     rerun.add_argument("--sample", type=int, default=None, metavar="K", help="check K stored trials at random")
     rerun.add_argument("--all", action="store_true", help="check every stored trial")
     rerun.add_argument("--seed", type=int, default=0, help="seed of the random sample (default 0)")
 
-    seeds = sub.add_parser("seeds", help="how many seeds a study needs to detect given AUC differences")
-    seeds.add_argument("folder", help="a stored (pilot) study's results folder")
+    seeds = sub.add_parser("seeds", help="how many seeds an experiment needs to detect given AUC differences")
+    seeds.add_argument("folder", help="a stored (pilot) experiment's results folder")
     seeds.add_argument(
         "--difference",
         type=float,
@@ -79,12 +79,15 @@ def _parser() -> argparse.ArgumentParser:
     seeds.add_argument("--alpha", type=float, default=0.05, help="significance level (default 0.05)")
     seeds.add_argument("--power", type=float, default=0.8, help="wanted power (default 0.8)")
 
-    check = sub.add_parser("check", help="validate a study and print how many trials it declares")
-    check.add_argument("study", help="the study YAML file")
+    check = sub.add_parser("check", help="validate an experiment and print how many trials it declares")
+    check.add_argument("experiment", help="the experiment YAML file")
 
-    report = sub.add_parser("report", help="write figures and tables of a stored study")
-    report.add_argument("folder", help="the study's results folder, e.g. results/warehouse-spills")
+    report = sub.add_parser("report", help="write figures and tables of a stored experiment")
+    report.add_argument("folder", help="the experiment's results folder, e.g. results/warehouse-spills")
     report.add_argument("--out", default=None, help="where to write (default: FOLDER/report)")
+
+    migrate = sub.add_parser("migrate", help="carry a results folder of the previous release over to this one")
+    migrate.add_argument("folder", help="the results folder, e.g. results/warehouse-spills")
 
     listing = sub.add_parser("list", help="list agent kinds with their parameters, and environment sources")
     listing.add_argument("what", nargs="?", choices=("agents", "environments"), default=None)
@@ -105,6 +108,8 @@ def main(argv: list[str] | None = None) -> int:
             return _rerun(args)
         if args.command == "seeds":
             return _seeds(args)
+        if args.command == "migrate":
+            return _migrate(Path(args.folder))
         return _list(args.what)
     except _USER_ERRORS as err:
         print(f"stepmeter: error: {err}", file=sys.stderr)
@@ -116,8 +121,16 @@ def main(argv: list[str] | None = None) -> int:
         return 1
 
 
+def _migrate(folder: Path) -> int:
+    from runner.store import DB_NAME, migrate_store
+
+    previous, trials = migrate_store(folder)
+    print(f"{folder / DB_NAME}: {trials} trials carried over from {previous.name} (kept as it was)")
+    return 0
+
+
 def _run(args: argparse.Namespace) -> int:
-    from runner.run import RunOptions, run_study
+    from runner.run import RunOptions, run_experiment
 
     if args.jobs is not None and args.jobs < 1:
         print(f"stepmeter: error: --jobs: expected a whole number >= 1, got {args.jobs}", file=sys.stderr)
@@ -133,7 +146,7 @@ def _run(args: argparse.Namespace) -> int:
         failed_only=args.failed_only,
         cluster=args.cluster,
     )
-    summary = run_study(args.study, results_root=args.results, options=options, command=" ".join(sys.argv))
+    summary = run_experiment(args.experiment, results_root=args.results, options=options, command=" ".join(sys.argv))
     if summary.interrupted:
         print(
             f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "
@@ -194,7 +207,7 @@ def _seeds(args: argparse.Namespace) -> int:
         return 2
     print(
         f"seeds per agent for a two-sided two-sample t-test on AUC at alpha {args.alpha:g} and power {args.power:g}, "
-        "from this study's spread between seeds (a guide: few pilot seeds give uncertain spreads)"
+        "from this experiment's spread between seeds (a guide: few pilot seeds give uncertain spreads)"
     )
     for env in facts["env_order"]:
         advice = seeds_advice(
@@ -220,31 +233,31 @@ def _seeds(args: argparse.Namespace) -> int:
 
 
 def _check(args: argparse.Namespace) -> int:
-    from runner.config import load_study
+    from runner.config import load_experiment
     from runner.plan import plan_trials
 
-    study = load_study(args.study)
-    trials = plan_trials(study)
+    experiment = load_experiment(args.experiment)
+    trials = plan_trials(experiment)
     counts = Counter((t.env_label, t.agent_label) for t in trials)
     print(
-        f"{study.file}: study {study.name!r} is valid: {len(study.environments)} environments x "
-        f"{len(study.agents)} agent variants x {len(study.seeds)} seeds = {len(trials)} trials of "
-        f"{study.real_steps} real steps"
+        f"{experiment.file}: experiment {experiment.name!r} is valid: {len(experiment.environments)} environments x "
+        f"{len(experiment.agents)} agent variants x {len(experiment.seeds)} seeds = {len(trials)} trials of "
+        f"{experiment.real_steps} real steps"
     )
-    width = max(len(a.label) for a in study.agents)
-    for env in study.environments:
+    width = max(len(a.label) for a in experiment.agents)
+    for env in experiment.environments:
         threshold = "none" if env.threshold is None else f"{env.threshold:g}"
         print(f"  {env.label}  (threshold {threshold}; evaluation episodes cut at {env.step_cap} steps)")
-        for agent in study.agents:
+        for agent in experiment.agents:
             print(f"    {agent.label:<{width}}  {counts[(env.label, agent.label)]} trials")
-    print(f"baseline: {study.baseline or 'none'}")
+    print(f"baseline: {experiment.baseline or 'none'}")
     return 0
 
 
 def _report(folder: Path, out: str | None) -> int:
-    from runner.study_report import report_study
+    from runner.experiment_report import report_experiment
 
-    output, note = report_study(folder, out)
+    output, note = report_experiment(folder, out)
     print(output.terminal_text)
     print(note)
     where = output.files[0].parent if output.files else folder

@@ -20,23 +20,25 @@ from numba import literally, njit, objmode, typeof, types
 from numba.extending import overload
 
 from runner.agents import agent_class
+from runner.metrics import (
+    CPU_SECONDS,
+    ENV_PHASE,
+    EPISODES,
+    EVAL_RETURN,
+    MODEL_REWARD_ERROR,
+    MODEL_TV_ERROR,
+    MODEL_UPDATES,
+    PLANNING_UPDATES,
+    REAL_STEPS,
+    REAL_UPDATES,
+    REWARD_EARNED,
+    TRAIN_RETURN,
+    WALL_SECONDS,
+)
 from runner.streams import uniform
 
 __all__ = ["run_kind_trial", "run_table_trial", "sample_outcome", "sample_start"]
 
-(
-    REAL_STEPS,
-    EPISODES,
-    EVAL_RETURN,
-    TRAIN_RETURN,
-    REAL_UPDATES,
-    PLANNING_UPDATES,
-    MODEL_UPDATES,
-    MODEL_TV_ERROR,
-    MODEL_REWARD_ERROR,
-    ENV_PHASE,
-    WALL,
-) = range(11)
 
 
 def agent_act(kind, arrays, hyper, state, stream):
@@ -139,6 +141,13 @@ def _clock():
 
 
 @njit(cache=True)
+def _cpu_clock():
+    with objmode(now="float64"):
+        now = time.process_time()
+    return now
+
+
+@njit(cache=True)
 def _evaluate(kind, arrays, hyper, table, step_cap, episodes, env_stream, policy_stream):
     start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
     n_actions = arrays[0].shape[1]
@@ -178,8 +187,8 @@ def run_table_trial(
     episode_returns,
     episode_lengths,
 ):
-    """Run the trial of agent kind `kind`; fill `rows` (n_points x 11, the columns of METRIC_COLUMNS) and the
-    episode arrays.
+    """Run the trial of agent kind `kind`; fill `rows` (n_points x the columns of
+    `runner.metrics.METRIC_COLUMNS`) and the episode arrays.
 
     `tables` holds one table per phase of the environment, each (start_cdf, offsets, cdf, next_state, reward,
     terminated, step_limit); the environment moves to phase k + 1 once `change_steps[k]` real steps are done
@@ -192,6 +201,8 @@ def run_table_trial(
     q = arrays[0]
     n_actions = q.shape[1]
     started = _clock()
+    cpu_started = _cpu_clock()
+    earned = 0.0
     n_episodes = 0
     point = 0
     s = sample_start(start_cdf, env_stream)
@@ -211,6 +222,7 @@ def run_table_trial(
             done = terminated[j]
             agent_observe(literally(kind), arrays, hyper, counters, s, a, reward[j], s2, done, agent_stream)
             episode_return += reward[j]
+            earned += reward[j]
             episode_length += 1
             s = s2
             if done or (step_limit > 0 and episode_length >= step_limit):
@@ -222,6 +234,7 @@ def run_table_trial(
                 s = sample_start(start_cdf, env_stream)
         if step % every == 0:
             rows[point, REAL_STEPS] = step
+            rows[point, REWARD_EARNED] = earned
             rows[point, EPISODES] = n_episodes
             rows[point, EVAL_RETURN] = _evaluate(
                 kind, arrays, hyper, table, step_cap, eval_episodes, eval_env_stream, eval_stream
@@ -238,7 +251,8 @@ def run_table_trial(
             rows[point, MODEL_TV_ERROR] = tv
             rows[point, MODEL_REWARD_ERROR] = reward_error
             rows[point, ENV_PHASE] = phase
-            rows[point, WALL] = _clock() - started
+            rows[point, WALL_SECONDS] = _clock() - started
+            rows[point, CPU_SECONDS] = _cpu_clock() - cpu_started
             point += 1
     return n_episodes
 

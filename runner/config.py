@@ -1,4 +1,4 @@
-"""Study files: validate a YAML study into frozen objects before any work is scheduled.
+"""Experiment files: validate a YAML experiment into frozen objects before any work is scheduled.
 
 Every error names the file, the line and the key path and says what was expected and what came.
 """
@@ -20,11 +20,11 @@ from runner.errors import ConfigError, EnvironmentSourceError, UnknownKindError
 from runner.params import Param, check_value
 from runner.yaml_source import KeyPath, SourceText, format_path, read_yaml
 
-__all__ = ["AgentVariant", "Analysis", "EnvironmentDecl", "Evaluation", "Study", "load_study"]
+__all__ = ["AgentVariant", "Analysis", "EnvironmentDecl", "Evaluation", "Experiment", "load_experiment"]
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 _TOP_KEYS = (
-    "study",
+    "experiment",
     "description",
     "seeds",
     "real_steps",
@@ -75,7 +75,7 @@ class Analysis:
 
 @dataclass(frozen=True)
 class EnvironmentDecl:
-    """One environment of the study: its label, resolved spec and performance threshold."""
+    """One environment of the experiment: its label, resolved spec and performance threshold."""
 
     label: str
     spec: dict[str, Any]
@@ -95,8 +95,8 @@ class AgentVariant:
 
 
 @dataclass(frozen=True)
-class Study:
-    """A validated study."""
+class Experiment:
+    """A validated experiment."""
 
     name: str
     description: str
@@ -112,17 +112,17 @@ class Study:
     baseline: str | None
 
 
-def load_study(path: str | Path) -> Study:
-    """Read and validate a study file; raise ConfigError with file, line and key path on any problem."""
+def load_experiment(path: str | Path) -> Experiment:
+    """Read and validate an experiment file; raise ConfigError with file, line and key path on any problem."""
     src = read_yaml(path)
     data = src.data
     if not isinstance(data, dict):
-        raise src.error((), f"expected a mapping of study keys ({', '.join(_TOP_KEYS)}), got {_kind(data)}")
+        raise src.error((), f"expected a mapping of experiment keys ({', '.join(_TOP_KEYS)}), got {_kind(data)}")
     _no_unknown_keys(src, data, (), _TOP_KEYS)
-    name = _require(src, data, ("study",))
+    name = _require(src, data, ("experiment",))
     if not isinstance(name, str) or not _NAME.match(name):
         raise src.error(
-            ("study",), f"expected a name of letters, digits, '-', '_' or '.' (at most 64, no '/'), got {name!r}"
+            ("experiment",), f"expected a name of letters, digits, '-', '_' or '.' (at most 64, no '/'), got {name!r}"
         )
     description = data.get("description", "")
     if not isinstance(description, str):
@@ -134,7 +134,7 @@ def load_study(path: str | Path) -> Study:
     environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
     agents = _agents(src, _require(src, data, ("agents",)))
     baseline = _baseline(src, data.get("baseline"), agents)
-    return Study(
+    return Experiment(
         name=name,
         description=description,
         file=src.file,

@@ -4,15 +4,15 @@ __all__ = [
     "ClusterError",
     "ConfigError",
     "EnvironmentSourceError",
+    "ExperimentBusyError",
     "StoreError",
-    "StudyBusyError",
     "TrialTimeout",
     "UnknownKindError",
 ]
 
 
 class ConfigError(ValueError):
-    """A study file is malformed; the message names file, line, key path and what was expected."""
+    """An experiment file is malformed; the message names file, line, key path and what was expected."""
 
 
 class UnknownKindError(LookupError):
@@ -31,8 +31,8 @@ class ClusterError(RuntimeError):
     """The cluster backend is not installed or its scheduler cannot be reached."""
 
 
-class StudyBusyError(RuntimeError):
-    """Another run holds the study's lock; the message names its process."""
+class ExperimentBusyError(RuntimeError):
+    """Another run holds the experiment's lock; the message names its process."""
 
 
 class TrialTimeout(TimeoutError):

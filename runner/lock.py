@@ -1,4 +1,4 @@
-"""One writer per study: a lock file held with an OS-level lock for as long as a run writes to the store.
+"""One writer per experiment: a lock file held with an OS-level lock for as long as a run writes to the store.
 
 The kernel releases the lock when its process dies, however it dies, so a lock file left by a killed run is
 recognised as stale (it can be locked again) and cleared.
@@ -12,23 +12,23 @@ import socket
 from datetime import UTC, datetime
 from pathlib import Path
 
-from runner.errors import StudyBusyError
+from runner.errors import ExperimentBusyError
 
-__all__ = ["LOCK_NAME", "StudyLock"]
+__all__ = ["LOCK_NAME", "ExperimentLock"]
 
 LOCK_NAME = "run.lock"
 
 
-class StudyLock:
-    """Hold `results/<study>/run.lock`; `stale_owner` says whose lock was cleared, if any."""
+class ExperimentLock:
+    """Hold `results/<experiment>/run.lock`; `stale_owner` says whose lock was cleared, if any."""
 
     def __init__(self, folder: str | Path) -> None:
         self.path = Path(folder) / LOCK_NAME
         self.stale_owner: str | None = None
         self._handle = None
 
-    def acquire(self) -> StudyLock:
-        """Take the lock or raise StudyBusyError naming the process that holds it."""
+    def acquire(self) -> ExperimentLock:
+        """Take the lock or raise ExperimentBusyError naming the process that holds it."""
         self.path.parent.mkdir(parents=True, exist_ok=True)
         handle = open(self.path, "a+", encoding="utf-8")  # noqa: SIM115 - held open while the run lasts
         try:
@@ -37,8 +37,8 @@ class StudyLock:
             handle.seek(0)
             owner = handle.read().strip() or "an unknown process"
             handle.close()
-            raise StudyBusyError(
-                f"{self.path.parent}: another stepmeter run is writing this study ({owner}); "
+            raise ExperimentBusyError(
+                f"{self.path.parent}: another stepmeter run is writing this experiment ({owner}); "
                 "wait for it to finish or stop it, then run again"
             ) from None
         handle.seek(0)
@@ -63,7 +63,7 @@ class StudyLock:
         self._handle.close()
         self._handle = None
 
-    def __enter__(self) -> StudyLock:
+    def __enter__(self) -> ExperimentLock:
         return self.acquire()
 
     def __exit__(self, *exc: object) -> None:

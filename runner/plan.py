@@ -1,4 +1,4 @@
-"""Expand a study into trial specs; a trial's id is a hash of its canonical spec.
+"""Expand an experiment into trial specs; a trial's id is a hash of its canonical spec.
 
 Labels are not part of the spec, so renaming an agent or adding another changes no trial id, and the
 same experiment is never run twice.
@@ -11,7 +11,7 @@ import json
 from dataclasses import dataclass
 from typing import Any
 
-from runner.config import Study
+from runner.config import Experiment
 
 __all__ = ["SPEC_FORMAT", "PlannedTrial", "canonical_json", "plan_trials", "trial_id"]
 
@@ -31,7 +31,7 @@ def trial_id(spec: dict[str, Any]) -> str:
 
 @dataclass(frozen=True)
 class PlannedTrial:
-    """One trial to run: its id, its spec (what defines the experiment) and its labels in the study."""
+    """One trial to run: its id, its spec (what defines the experiment) and its labels in the experiment."""
 
     trial_id: str
     spec: dict[str, Any]
@@ -40,19 +40,19 @@ class PlannedTrial:
     seed: int
 
 
-def plan_trials(study: Study) -> list[PlannedTrial]:
-    """Every (environment, agent variant, seed) of the study, environments first, then agents, then seeds."""
-    ev = study.evaluation
+def plan_trials(experiment: Experiment) -> list[PlannedTrial]:
+    """Every (environment, agent variant, seed) of the experiment, environments first, then agents, then seeds."""
+    ev = experiment.evaluation
     trials = []
-    for env in study.environments:
-        for agent in study.agents:
-            for seed in study.seeds:
+    for env in experiment.environments:
+        for agent in experiment.agents:
+            for seed in experiment.seeds:
                 spec = {
                     "format": SPEC_FORMAT,
                     "env": env.spec,
                     "agent": {"kind": agent.kind, "params": agent.params},
                     "seed": seed,
-                    "real_steps": study.real_steps,
+                    "real_steps": experiment.real_steps,
                     "evaluation": {
                         "every": ev.every,
                         "episodes": ev.episodes,

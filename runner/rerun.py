@@ -11,14 +11,14 @@ import numpy as np
 
 from runner.analysis.frames import open_store
 from runner.errors import StoreError
+from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS
 from runner.provenance import platform_text, versions
 from runner.schedule import warm_up
-from runner.trial import METRIC_COLUMNS, run_trial
+from runner.trial import run_trial
 
 __all__ = ["RerunCheck", "compare_rows", "rerun_trials", "select_trials"]
 
 _ID = re.compile(r"^[0-9a-f]{4,16}$")
-TIMING_COLUMNS = ("wall_seconds",)
 
 
 @dataclass

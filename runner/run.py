@@ -8,15 +8,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TextIO
 
-from runner.config import Study, load_study
-from runner.lock import StudyLock
+from runner.config import Experiment, load_experiment
+from runner.lock import ExperimentLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
 from runner.provenance import platform_text, versions
 from runner.schedule import TrialOutcome, run_parallel, warm_up
-from runner.store import Store, remove_store, study_dir
+from runner.store import Store, experiment_dir, remove_store
 
-__all__ = ["RunOptions", "RunSummary", "run_study", "study_facts"]
+__all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
 
 
 @dataclass
@@ -31,20 +31,20 @@ class RunSummary:
     interrupted: bool = False
 
 
-def study_facts(study: Study) -> dict:
-    """The facts the report needs, stored with the study so a report never re-reads the YAML."""
+def experiment_facts(experiment: Experiment) -> dict:
+    """The facts the report needs, stored with the experiment so a report never re-reads the YAML."""
     return {
-        "name": study.name,
-        "description": study.description,
-        "real_steps": study.real_steps,
-        "baseline": study.baseline,
-        "thresholds": {e.label: e.threshold for e in study.environments},
-        "env_order": [e.label for e in study.environments],
-        "agent_order": [a.label for a in study.agents],
-        "consecutive": study.analysis.consecutive,
-        "changes": {e.label: [c["at"] for c in e.spec.get("changes", [])] for e in study.environments},
-        "resamples": study.analysis.resamples,
-        "confidence": study.analysis.confidence,
+        "name": experiment.name,
+        "description": experiment.description,
+        "real_steps": experiment.real_steps,
+        "baseline": experiment.baseline,
+        "thresholds": {e.label: e.threshold for e in experiment.environments},
+        "env_order": [e.label for e in experiment.environments],
+        "agent_order": [a.label for a in experiment.agents],
+        "consecutive": experiment.analysis.consecutive,
+        "changes": {e.label: [c["at"] for c in e.spec.get("changes", [])] for e in experiment.environments},
+        "resamples": experiment.analysis.resamples,
+        "confidence": experiment.analysis.confidence,
     }
 
 
@@ -58,7 +58,7 @@ def default_jobs() -> int:
 
 @dataclass(frozen=True)
 class RunOptions:
-    """How to run a study: processes, trial path, per-trial wall limit, and which trials."""
+    """How to run an experiment: processes, trial path, per-trial wall limit, and which trials."""
 
     jobs: int | None = None
     trial_path: str = "auto"
@@ -68,7 +68,7 @@ class RunOptions:
     cluster: str | None = None
 
 
-def run_study(
+def run_experiment(
     path: str | Path,
     *,
     results_root: str | Path = "results",
@@ -78,23 +78,23 @@ def run_study(
 ) -> RunSummary:
     """Run every declared trial that is not stored yet; finished trials are committed one by one.
 
-    Only one run may write a study at a time (`StudyLock`); a second one is refused.
+    Only one run may write an experiment at a time (`ExperimentLock`); a second one is refused.
     """
     out = stream or sys.stdout
-    study = load_study(path)
-    trials = plan_trials(study)
-    folder = study_dir(results_root, study.name)
-    with StudyLock(folder) as lock:
+    experiment = load_experiment(path)
+    trials = plan_trials(experiment)
+    folder = experiment_dir(results_root, experiment.name)
+    with ExperimentLock(folder) as lock:
         if lock.stale_owner:
             print(f"cleared a stale lock left by a run that no longer exists ({lock.stale_owner})", file=out)
         if options.start_over:
             remove_store(folder)
         with Store(folder, create=True) as store:
-            return _run_locked(study, trials, store, folder, path, options, command, out)
+            return _run_locked(experiment, trials, store, folder, path, options, command, out)
 
 
 def _run_locked(
-    study: Study,
+    experiment: Experiment,
     trials: list[PlannedTrial],
     store: Store,
     folder: Path,
@@ -103,7 +103,7 @@ def _run_locked(
     command: str,
     out: TextIO,
 ) -> RunSummary:
-    store.declare(study_facts(study), trials)
+    store.declare(experiment_facts(experiment), trials)
     stored = store.stored_ids()
     todo = [t for t in trials if t.trial_id not in stored]
     if options.failed_only:
@@ -114,7 +114,7 @@ def _run_locked(
     where = f"the cluster at {options.cluster}" if options.cluster else f"{n_jobs} process{'es' if n_jobs > 1 else ''}"
     which = "previously failed trials" if options.failed_only else "to run"
     print(
-        f"study {study.name}: {len(trials)} trials declared, {summary.already_stored} already stored, "
+        f"experiment {experiment.name}: {len(trials)} trials declared, {summary.already_stored} already stored, "
         f"{len(todo)} {which} on {where}",
         file=out,
     )
@@ -126,9 +126,9 @@ def _run_locked(
         check_reachable(options.cluster)
     run_id = store.begin_run(
         command=command or " ".join(sys.argv),
-        study_file=str(Path(path).resolve()),
-        study_text=study.text,
-        study_hash=study.text_hash,
+        experiment_file=str(Path(path).resolve()),
+        experiment_text=experiment.text,
+        experiment_hash=experiment.text_hash,
         versions=versions(),
         platform=platform_text(),
         jobs=n_jobs,

@@ -1,8 +1,8 @@
-"""The study store: one SQLite database per study under results/<study>/.
+"""The experiment store: one SQLite database per experiment under results/<experiment>/.
 
-Tables: `meta` (the current study's facts as JSON), `runs` (provenance of each invocation), `trials`
+Tables: `meta` (the current experiment's facts as JSON), `runs` (provenance of each invocation), `trials`
 (finished trials with their canonical spec), `metrics` (one row per trial and evaluation point),
-`declared` (the trials the study file currently declares) and `failures`. A finished trial is written in
+`declared` (the trials the experiment file currently declares) and `failures`. A finished trial is written in
 one transaction, so a trial is either fully stored or absent. Only the parent process writes.
 """
 
@@ -12,6 +12,7 @@ import json
 import shutil
 import sqlite3
 from collections.abc import Iterable
+from contextlib import closing
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -19,20 +20,21 @@ from typing import Any
 import numpy as np
 
 from runner.errors import StoreError
+from runner.metrics import INT_COLUMNS, METRIC_COLUMNS
 from runner.plan import PlannedTrial
-from runner.trial import METRIC_COLUMNS
 
-__all__ = ["DB_NAME", "SCHEMA_VERSION", "Store", "remove_store", "study_dir"]
+__all__ = ["DB_NAME", "INT_COLUMNS", "SCHEMA_VERSION", "Store", "experiment_dir", "remove_store"]
 
-DB_NAME = "study.sqlite"
-SCHEMA_VERSION = 3
-INT_COLUMNS = {"real_steps", "episodes", "real_updates", "planning_updates", "model_updates", "env_phase"}
+DB_NAME = "experiment.sqlite"
+SCHEMA_VERSION = 4
+_PREVIOUS_SCHEMA_VERSION = 3
+"""Stores of version 3 hold the same tables under another file name; `migrate_store` copies them over."""
 
 _SCHEMA = f"""
 CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS runs (
     run_id INTEGER PRIMARY KEY, started TEXT NOT NULL, finished TEXT, outcome TEXT,
-    command TEXT NOT NULL, study_file TEXT NOT NULL, study_text TEXT NOT NULL, study_hash TEXT NOT NULL,
+    command TEXT NOT NULL, experiment_file TEXT NOT NULL, experiment_text TEXT NOT NULL, experiment_hash TEXT NOT NULL,
     versions TEXT NOT NULL, platform TEXT NOT NULL, jobs INTEGER NOT NULL
 );
 CREATE TABLE IF NOT EXISTS trials (
@@ -56,17 +58,17 @@ CREATE TABLE IF NOT EXISTS failures (
 """
 
 
-def study_dir(results_root: str | Path, study_name: str) -> Path:
-    """results/<study>; the name was validated to hold no path separators."""
+def experiment_dir(results_root: str | Path, experiment_name: str) -> Path:
+    """results/<experiment>; the name was validated to hold no path separators."""
     root = Path(results_root).resolve()
-    target = (root / study_name).resolve()
+    target = (root / experiment_name).resolve()
     if target.parent != root:
-        raise StoreError(f"study name {study_name!r} would leave the results folder {root}")
+        raise StoreError(f"experiment name {experiment_name!r} would leave the results folder {root}")
     return target
 
 
 def remove_store(folder: str | Path) -> None:
-    """Delete a study's database and report so the study starts over (the lock file stays)."""
+    """Delete an experiment's database and report so the experiment starts over (the lock file stays)."""
     folder = Path(folder)
     for name in (DB_NAME, f"{DB_NAME}-wal", f"{DB_NAME}-shm"):
         (folder / name).unlink(missing_ok=True)
@@ -75,19 +77,81 @@ def remove_store(folder: str | Path) -> None:
         shutil.rmtree(report)
 
 
+def _previous_release_store(folder: Path) -> Path | None:
+    """A database of the previous release in `folder` (another file name, store version 3), if there is one."""
+    if not folder.is_dir():
+        return None
+    for candidate in sorted(folder.glob("*.sqlite")):
+        if candidate.name == DB_NAME or candidate.is_symlink():
+            continue
+        try:
+            with closing(sqlite3.connect(f"file:{candidate}?mode=ro", uri=True)) as conn:
+                row = conn.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
+        except sqlite3.DatabaseError:
+            continue
+        if row is not None and row[0] == str(_PREVIOUS_SCHEMA_VERSION):
+            return candidate
+    return None
+
+
+def migrate_store(folder: str | Path) -> tuple[Path, int]:
+    """Copy a previous-release store of `folder` into a store of this release; return the old file and trials.
+
+    The tables keep their columns in the same order (only names changed), so rows are copied by position;
+    metric columns that the previous release did not record (see `runner.metrics`) stay empty (NaN).
+    The old file is left in place; the new store is written to a temporary name and renamed when complete.
+    """
+    folder = Path(folder)
+    previous = _previous_release_store(folder)
+    if previous is None:
+        raise StoreError(f"{folder}: no store of the previous stepmeter release to migrate")
+    target = folder / DB_NAME
+    if target.exists():
+        raise StoreError(f"{target}: already exists; remove it first to migrate {previous.name} again")
+    partial = folder / f".{DB_NAME}.migrating"
+    partial.unlink(missing_ok=True)
+    try:
+        with closing(sqlite3.connect(f"file:{partial}", uri=True)) as conn:
+            conn.executescript(_SCHEMA)
+            conn.execute("ATTACH DATABASE ? AS old", (f"file:{previous}?mode=ro",))
+            for table in ("runs", "trials", "declared", "failures"):
+                conn.execute(f"INSERT INTO main.{table} SELECT * FROM old.{table}")
+            kept = [r[1] for r in conn.execute("PRAGMA old.table_info(metrics)")]
+            names = ", ".join(kept)
+            conn.execute(f"INSERT INTO main.metrics ({names}) SELECT {names} FROM old.metrics")
+            conn.execute("INSERT INTO main.meta SELECT * FROM old.meta WHERE key != 'schema_version'")
+            conn.execute("INSERT INTO main.meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+            conn.commit()
+            trials = int(conn.execute("SELECT count(*) FROM main.trials").fetchone()[0])
+            conn.execute("DETACH DATABASE old")
+        partial.replace(target)
+    except sqlite3.DatabaseError as err:
+        partial.unlink(missing_ok=True)
+        raise StoreError(f"{previous}: could not be migrated ({err})") from None
+    return previous, trials
+
+
 def _now() -> str:
     return datetime.now(UTC).isoformat(timespec="seconds")
 
 
 class Store:
-    """Read and write one study database."""
+    """Read and write one experiment database."""
 
     def __init__(self, folder: str | Path, *, create: bool = False) -> None:
         self.folder = Path(folder)
         self.path = self.folder / DB_NAME
         if not self.path.exists():
+            previous = _previous_release_store(self.folder)
+            if previous is not None:
+                raise StoreError(
+                    f"{previous}: a store of the previous stepmeter release; run `stepmeter migrate {self.folder}` "
+                    "to carry its trials over (the old file is kept)"
+                )
             if not create:
-                raise StoreError(f"{self.folder}: no stepmeter study here (missing {DB_NAME}); run the study first")
+                raise StoreError(
+                    f"{self.folder}: no stepmeter experiment here (missing {DB_NAME}); run the experiment first"
+                )
             self.folder.mkdir(parents=True, exist_ok=True)
         try:
             self.conn = sqlite3.connect(self.path, timeout=30.0)
@@ -105,7 +169,7 @@ class Store:
             found = "no version" if version is None else f"store version {version[0]}"
             raise StoreError(
                 f"{self.path}: written by another stepmeter release ({found}, this one reads {SCHEMA_VERSION}); "
-                "run the study again with --start-over, or use the release that wrote it"
+                "run the experiment again with --start-over, or use the release that wrote it"
             )
 
     def close(self) -> None:
@@ -122,9 +186,9 @@ class Store:
         self,
         *,
         command: str,
-        study_file: str,
-        study_text: str,
-        study_hash: str,
+        experiment_file: str,
+        experiment_text: str,
+        experiment_hash: str,
         versions: dict[str, str],
         platform: str,
         jobs: int,
@@ -132,14 +196,14 @@ class Store:
         """Record the provenance of this invocation and return its run id."""
         with self.conn:
             cur = self.conn.execute(
-                "INSERT INTO runs (started, command, study_file, study_text, study_hash, versions, platform, jobs)"
-                " VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                "INSERT INTO runs (started, command, experiment_file, experiment_text, experiment_hash, versions,"
+                " platform, jobs) VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
                 (
                     _now(),
                     command,
-                    study_file,
-                    study_text,
-                    study_hash,
+                    experiment_file,
+                    experiment_text,
+                    experiment_hash,
                     json.dumps(versions, sort_keys=True),
                     platform,
                     jobs,
@@ -153,7 +217,7 @@ class Store:
             self.conn.execute("UPDATE runs SET finished=?, outcome=? WHERE run_id=?", (_now(), outcome, run_id))
 
     def declare(self, facts: dict[str, Any], trials: Iterable[PlannedTrial]) -> None:
-        """Replace the study's facts and its declared trials with those of the current study file."""
+        """Replace the experiment's facts and its declared trials with those of the current experiment file."""
         with self.conn:
             self.conn.execute("INSERT OR REPLACE INTO meta VALUES ('facts', ?)", (json.dumps(facts),))
             self.conn.execute("DELETE FROM declared")
@@ -174,10 +238,10 @@ class Store:
             )
 
     def facts(self) -> dict[str, Any]:
-        """The study's facts as stored by the latest run."""
+        """The experiment's facts as stored by the latest run."""
         row = self.conn.execute("SELECT value FROM meta WHERE key='facts'").fetchone()
         if row is None:
-            raise StoreError(f"{self.path}: no study has been declared in this store")
+            raise StoreError(f"{self.path}: no experiment has been declared in this store")
         return json.loads(row[0])
 
     def stored_ids(self) -> set[str]:
@@ -230,7 +294,7 @@ class Store:
             self.conn.executemany(f"INSERT INTO metrics VALUES ({placeholders})", zip(*columns, strict=True))
 
     def write_failure(self, trial_id: str, run_id: int, error_type: str, message: str, traceback: str) -> None:
-        """Record a failed trial; the study goes on."""
+        """Record a failed trial; the experiment goes on."""
         with self.conn:
             self.conn.execute(
                 "INSERT INTO failures (trial_id, run_id, error_type, message, traceback, at) VALUES (?, ?, ?, ?, ?, ?)",

@@ -23,26 +23,11 @@ from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, env_sizes
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
+from runner.metrics import METRIC_COLUMNS
 from runner.seeding import TrialStreams, trial_streams
 from runner.streams import new_stream
 
 __all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
-
-METRIC_COLUMNS = (
-    "real_steps",
-    "episodes",
-    "eval_return",
-    "train_return",
-    *COUNTER_NAMES,
-    "model_tv_error",
-    "model_reward_error",
-    "env_phase",
-    "wall_seconds",
-)
-"""Columns of a metric row, in order; `wall_seconds` is the only timing column. The model errors (mean
-total-variation distance of the agent's learned transition model to the true table, mean absolute reward error,
-over the pairs it has tried) are NaN for model-free agents and for environments with no known table.
-`env_phase` counts the environment's changes so far (a grid map whose walls move at given real steps)."""
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
 """`auto` takes the compiled path whenever the environment is table-backed."""
@@ -188,10 +173,13 @@ def _run_gymnasium(
     recent: deque[float] = deque(maxlen=ev["training_window"])
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
     phase = 0
+    earned = 0.0
     start = time.perf_counter()
+    cpu_start = time.process_time()
 
     def record(point: int, steps: int) -> None:
         rows["real_steps"][point] = steps
+        rows["reward_earned"][point] = earned
         rows["episodes"][point] = len(returns)
         rows["eval_return"][point] = evaluate_greedy(
             agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation
@@ -203,6 +191,7 @@ def _run_gymnasium(
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
         rows["env_phase"][point] = phase
         rows["wall_seconds"][point] = time.perf_counter() - start
+        rows["cpu_seconds"][point] = time.process_time() - cpu_start
 
     try:
         record(0, 0)
@@ -220,6 +209,7 @@ def _run_gymnasium(
             next_state = int(next_state)
             agent.observe(state, action, float(reward), next_state, bool(terminated))
             episode_return += float(reward)
+            earned += float(reward)
             episode_length += 1
             state = next_state
             if terminated or truncated:

@@ -64,9 +64,9 @@ def read_yaml(path: str | Path) -> SourceText:
     try:
         text = Path(path).read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise ConfigError(f"{name}: no such study file") from None
+        raise ConfigError(f"{name}: no such experiment file") from None
     except (OSError, UnicodeDecodeError) as err:
-        raise ConfigError(f"{name}: cannot read the study file ({err})") from None
+        raise ConfigError(f"{name}: cannot read the experiment file ({err})") from None
     try:
         node = yaml.compose(text, Loader=yaml.SafeLoader)
         data = yaml.safe_load(text)

@@ -6,7 +6,7 @@ import pytest
 
 from runner.analysis.curves import trial_scores
 from runner.analysis.plots import PALETTE, plot_curves, safe_name
-from runner.analysis.report import StudyFacts, write_report
+from runner.analysis.report import ExperimentFacts, write_report
 from runner.analysis.tables import (
     SUMMARY_COLUMNS,
     format_interval,
@@ -59,9 +59,9 @@ def _frame(seed: int = 0) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _facts(**overrides) -> StudyFacts:
+def _facts(**overrides) -> ExperimentFacts:
     values = {
-        "name": "synthetic study",
+        "name": "synthetic experiment",
         "budget": _BUDGET,
         "baseline": "q-learning",
         "thresholds": {"FrozenLake-v1 4x4": 0.7, "CliffWalking-v1": None},
@@ -70,7 +70,7 @@ def _facts(**overrides) -> StudyFacts:
         "n_resamples": 500,
     }
     values.update(overrides)
-    return StudyFacts(**values)
+    return ExperimentFacts(**values)
 
 
 def test_write_report_writes_every_file(tmp_path):

@@ -6,14 +6,14 @@ import subprocess
 import sys
 from pathlib import Path
 
-from study_texts import EXAMPLE_STUDY
+from experiment_texts import EXAMPLE_EXPERIMENT
 
 from runner.agents import AGENTS
 
 _REPO = Path(__file__).resolve().parents[1]
 
 _BROKEN = """\
-study: broken
+experiment: broken
 seeds: 2
 real_steps: 1000
 environments:
@@ -24,10 +24,10 @@ agents:
       alpha: 1.5
 """
 
-_VALID = EXAMPLE_STUDY
+_VALID = EXAMPLE_EXPERIMENT
 
 _TINY = """\
-study: tiny
+experiment: tiny
 seeds: 2
 real_steps: 400
 evaluation: {every: 100, episodes: 2}
@@ -59,7 +59,7 @@ def _stepmeter(*args: str, cwd: Path) -> subprocess.CompletedProcess:
     )
 
 
-def test_check_broken_study_prints_one_error_line(tmp_path):
+def test_check_broken_experiment_prints_one_error_line(tmp_path):
     (tmp_path / "broken.yaml").write_text(_BROKEN, encoding="utf-8")
     result = _stepmeter("check", "broken.yaml", cwd=tmp_path)
     assert result.returncode == 2
@@ -69,7 +69,7 @@ def test_check_broken_study_prints_one_error_line(tmp_path):
     assert "Traceback" not in result.stderr + result.stdout
 
 
-def test_check_valid_study_lists_variants_with_trial_counts(tmp_path):
+def test_check_valid_experiment_lists_variants_with_trial_counts(tmp_path):
     (tmp_path / "smoke.yaml").write_text(_VALID, encoding="utf-8")
     result = _stepmeter("check", "smoke.yaml", cwd=tmp_path)
     assert result.returncode == 0, result.stderr
@@ -88,7 +88,7 @@ def test_list_names_every_agent_kind_and_planning_steps(tmp_path):
     assert "planning_steps" in result.stdout
 
 
-def test_report_on_folder_without_study_is_one_error_line(tmp_path):
+def test_report_on_folder_without_experiment_is_one_error_line(tmp_path):
     folder = tmp_path / "empty"
     folder.mkdir()
     result = _stepmeter("report", "empty", cwd=tmp_path)
@@ -96,7 +96,7 @@ def test_report_on_folder_without_study_is_one_error_line(tmp_path):
     lines = result.stderr.splitlines()
     assert len(lines) == 1
     assert lines[0].startswith("stepmeter: error: empty")
-    assert "study.sqlite" in lines[0]
+    assert "experiment.sqlite" in lines[0]
     assert list(folder.iterdir()) == []  # nothing was created
 
 
@@ -109,7 +109,7 @@ def test_run_stores_reports_and_skips_stored_trials(tmp_path):
     assert first.returncode == 0, first.stderr
     assert "4 trials declared, 0 already stored, 4 to run" in first.stdout
     folder = results / "tiny"
-    assert (folder / "study.sqlite").is_file()
+    assert (folder / "experiment.sqlite").is_file()
     assert list((folder / "report").glob("curves_*.png"))
     assert (folder / "report" / "summary.md").is_file()
 

@@ -17,15 +17,16 @@ import pytest
 
 import runner
 from runner.analysis.frames import load_failures, missing_trials
+from runner.metrics import TIMING_COLUMNS
 from runner.rerun import rerun_trials
-from runner.run import RunOptions, run_study
+from runner.run import RunOptions, run_experiment
 
 pytestmark = pytest.mark.slow
 
 _REPO = Path(__file__).resolve().parents[1]
 
 _SMALL = """\
-study: spread
+experiment: spread
 seeds: 3
 real_steps: 600
 evaluation: {every: 200, episodes: 3}
@@ -48,7 +49,7 @@ baseline: q
 
 # 4 agent variants x 8 seeds = 32 trials of about 0.05-0.3 s each on the gymnasium path: several seconds on 2 workers.
 _LONG = """\
-study: longer
+experiment: longer
 seeds: 8
 real_steps: 6000
 evaluation: {every: 1000, episodes: 3}
@@ -121,7 +122,7 @@ def unreachable(tmp_path_factory):
 
 
 def _frame(folder: Path) -> pd.DataFrame:
-    return runner.load_results(folder).drop(columns="wall_seconds")
+    return runner.load_results(folder).drop(columns=list(TIMING_COLUMNS))
 
 
 def _stored(db: Path) -> int:
@@ -139,26 +140,28 @@ def _stored(db: Path) -> int:
 
 @pytest.mark.usefixtures("unreachable")
 def test_a_cluster_run_stores_the_same_rows_as_a_local_run(tmp_path, cluster):
-    study = tmp_path / "spread.yaml"
-    study.write_text(_SMALL, encoding="utf-8")
-    local = run_study(study, results_root=tmp_path / "local", options=RunOptions(jobs=1))
-    remote = run_study(study, results_root=tmp_path / "remote", options=RunOptions(cluster=cluster.scheduler_address))
+    experiment = tmp_path / "spread.yaml"
+    experiment.write_text(_SMALL, encoding="utf-8")
+    local = run_experiment(experiment, results_root=tmp_path / "local", options=RunOptions(jobs=1))
+    remote = run_experiment(
+        experiment, results_root=tmp_path / "remote", options=RunOptions(cluster=cluster.scheduler_address)
+    )
     assert (local.ran, local.failed) == (18, [])
     assert (remote.ran, remote.failed) == (18, [])
     pd.testing.assert_frame_equal(_frame(tmp_path / "remote" / "spread"), _frame(tmp_path / "local" / "spread"))
     paths = []
     for root in ("local", "remote"):
-        with sqlite3.connect(tmp_path / root / "spread" / "study.sqlite") as conn:
+        with sqlite3.connect(tmp_path / root / "spread" / "experiment.sqlite") as conn:
             paths.append(conn.execute("SELECT trial_id, trial_path FROM trials ORDER BY trial_id").fetchall())
         conn.close()
     assert paths[0] == paths[1]
 
 
 def test_a_killed_worker_costs_no_trial_and_stores_none_twice(tmp_path, cluster):
-    study = tmp_path / "longer.yaml"
-    study.write_text(_LONG, encoding="utf-8")
+    experiment = tmp_path / "longer.yaml"
+    experiment.write_text(_LONG, encoding="utf-8")
     folder = tmp_path / "results" / "longer"
-    db = folder / "study.sqlite"
+    db = folder / "experiment.sqlite"
     client = distributed.Client(cluster.scheduler_address)
     try:
         before = client.run(os.getpid)
@@ -179,8 +182,8 @@ def test_a_killed_worker_costs_no_trial_and_stores_none_twice(tmp_path, cluster)
         killer = threading.Thread(target=kill_a_busy_worker)
         killer.start()
         out = io.StringIO()
-        summary = run_study(
-            study,
+        summary = run_experiment(
+            experiment,
             results_root=tmp_path / "results",
             options=RunOptions(cluster=cluster.scheduler_address, trial_path="gymnasium"),
             stream=out,
@@ -229,7 +232,7 @@ def test_an_unreachable_scheduler_is_one_error_line_and_exit_2(unreachable):
 def test_an_unreachable_scheduler_leaves_no_run_recorded_as_complete(unreachable):
     code, *_ = unreachable.finish()
     assert code == 2
-    db = unreachable.folder / "results" / "spread" / "study.sqlite"
+    db = unreachable.folder / "results" / "spread" / "experiment.sqlite"
     if db.exists():
         with sqlite3.connect(db) as conn:
             outcomes = [r[0] for r in conn.execute("SELECT outcome FROM runs")]

@@ -1,32 +1,32 @@
-"""Malformed studies are rejected with one line: `<file>:<line>: <key path>: <expected / got>`."""
+"""Malformed experiments are rejected with one line: `<file>:<line>: <key path>: <expected / got>`."""
 
 from dataclasses import dataclass
 from pathlib import Path
 
 import gymnasium
 import pytest
-from study_texts import EXAMPLE_STUDY
+from experiment_texts import EXAMPLE_EXPERIMENT
 
-from runner.config import load_study
+from runner.config import load_experiment
 from runner.errors import ConfigError
 
-# A valid start of a study; cases about agents append an `agents:` section, which begins on line 6.
+# A valid start of an experiment; cases about agents append an `agents:` section, which begins on line 6.
 _HEAD = """\
-study: broken
+experiment: broken
 seeds: 2
 real_steps: 1000
 environments:
   - grid: {map: "S.G"}
 """
 # The same start without environments, for cases about environments (`environments:` is line 4).
-_TOP = "study: broken\nseeds: 2\nreal_steps: 100\n"
+_TOP = "experiment: broken\nseeds: 2\nreal_steps: 100\n"
 
-_EXAMPLE = EXAMPLE_STUDY
+_EXAMPLE = EXAMPLE_EXPERIMENT
 
 
 @dataclass(frozen=True)
 class Case:
-    """A malformed study and where and how its error must point."""
+    """A malformed experiment and where and how its error must point."""
 
     id: str
     text: str
@@ -37,17 +37,23 @@ class Case:
 
 _CASES = [
     # top level
-    Case("top-level-is-a-list", "- study: x\n", 1, "(top level)", "expected a mapping of study keys"),
-    Case("missing-study", "seeds: 2\nreal_steps: 100\n", 1, "study", "missing; this key is required"),
-    Case("study-name-with-slash", "study: team/maze\n", 1, "study", "got 'team/maze'"),
-    Case("unknown-top-key", "study: x\nseed: 3\n", 2, "seed", "did you mean 'seeds'?"),
-    Case("duplicate-key", "study: x\nseeds: 2\nreal_steps: 100\nseeds: 3\n", 4, "seeds", "key given twice"),
-    Case("non-text-key", "study: x\nseeds: 2\n1000: 3\n", 3, "1000", "unknown key"),
+    Case("top-level-is-a-list", "- experiment: x\n", 1, "(top level)", "expected a mapping of experiment keys"),
+    Case("missing-experiment", "seeds: 2\nreal_steps: 100\n", 1, "experiment", "missing; this key is required"),
+    Case("experiment-name-with-slash", "experiment: team/maze\n", 1, "experiment", "got 'team/maze'"),
+    Case("unknown-top-key", "experiment: x\nseed: 3\n", 2, "seed", "did you mean 'seeds'?"),
+    Case("duplicate-key", "experiment: x\nseeds: 2\nreal_steps: 100\nseeds: 3\n", 4, "seeds", "key given twice"),
+    Case("non-text-key", "experiment: x\nseeds: 2\n1000: 3\n", 3, "1000", "unknown key"),
     # seeds, budget and evaluation
-    Case("seeds-zero", "study: x\nseeds: 0\n", 2, "seeds", "expected a count >= 1"),
-    Case("seeds-duplicated", "study: x\nseeds: [1, 2, 1]\n", 2, "seeds", "got 1 more than once"),
-    Case("seeds-negative", "study: x\nseeds:\n  - 1\n  - -4\n", 4, "seeds[1]", "expected a whole number >= 0, got -4"),
-    Case("real-steps-text", "study: x\nseeds: 2\nreal_steps: lots\n", 3, "real_steps", "got 'lots'"),
+    Case("seeds-zero", "experiment: x\nseeds: 0\n", 2, "seeds", "expected a count >= 1"),
+    Case("seeds-duplicated", "experiment: x\nseeds: [1, 2, 1]\n", 2, "seeds", "got 1 more than once"),
+    Case(
+        "seeds-negative",
+        "experiment: x\nseeds:\n  - 1\n  - -4\n",
+        4,
+        "seeds[1]",
+        "expected a whole number >= 0, got -4",
+    ),
+    Case("real-steps-text", "experiment: x\nseeds: 2\nreal_steps: lots\n", 3, "real_steps", "got 'lots'"),
     Case(
         "every-beyond-budget",
         _TOP + "evaluation:\n  every: 500\n",
@@ -221,19 +227,19 @@ _CASES = [
 
 
 def _write(tmp_path: Path, text: str) -> Path:
-    path = tmp_path / "study.yaml"
+    path = tmp_path / "experiment.yaml"
     path.write_text(text, encoding="utf-8")
     return path
 
 
 def _error(path: Path) -> str:
     with pytest.raises(ConfigError) as info:
-        load_study(path)
+        load_experiment(path)
     return str(info.value)
 
 
 @pytest.mark.parametrize("case", _CASES, ids=lambda c: c.id)
-def test_malformed_study_points_at_file_line_and_key(tmp_path, case):
+def test_malformed_experiment_points_at_file_line_and_key(tmp_path, case):
     path = _write(tmp_path, case.text)
     message = _error(path)
     assert "\n" not in message
@@ -243,38 +249,38 @@ def test_malformed_study_points_at_file_line_and_key(tmp_path, case):
 
 
 def test_yaml_syntax_error_points_at_the_problem_line(tmp_path):
-    path = _write(tmp_path, "study: x\nseeds: [1, 2\nreal_steps: 3\n")
+    path = _write(tmp_path, "experiment: x\nseeds: [1, 2\nreal_steps: 3\n")
     message = _error(path)
     assert "\n" not in message
     assert message.startswith(f"{path}:3: not valid YAML: ")
 
 
-def test_missing_study_file_is_named(tmp_path):
+def test_missing_experiment_file_is_named(tmp_path):
     path = tmp_path / "nowhere.yaml"
     message = _error(path)
-    assert message == f"{path}: no such study file"
+    assert message == f"{path}: no such experiment file"
 
 
 def test_valid_example_expands_the_agent_grid(tmp_path):
-    study = load_study(_write(tmp_path, _EXAMPLE))
-    assert [a.label for a in study.agents] == [
+    experiment = load_experiment(_write(tmp_path, _EXAMPLE))
+    assert [a.label for a in experiment.agents] == [
         "q",
         "dyna (planning_steps=0)",
         "dyna (planning_steps=5)",
         "dyna (planning_steps=50)",
         "ce",
     ]
-    dyna5 = study.agents[2]
+    dyna5 = experiment.agents[2]
     assert (dyna5.kind, dyna5.entry_label, dyna5.varied) == ("dyna_q", "dyna", {"planning_steps": 5})
     assert dyna5.params["planning_steps"] == 5
     assert dyna5.params["alpha"] == 0.1  # defaults are filled in
-    assert study.baseline == "q"
-    assert (study.real_steps, study.evaluation.every, study.evaluation.episodes) == (3000, 500, 5)
+    assert experiment.baseline == "q"
+    assert (experiment.real_steps, experiment.evaluation.every, experiment.evaluation.episodes) == (3000, 500, 5)
 
 
 def test_valid_example_thresholds_and_step_caps(tmp_path):
-    study = load_study(_write(tmp_path, _EXAMPLE))
-    maze, lake = study.environments
+    experiment = load_experiment(_write(tmp_path, _EXAMPLE))
+    maze, lake = experiment.environments
     assert (maze.label, lake.label) == ("maze", "FrozenLake-v1")
     assert maze.threshold is None
     assert lake.threshold == gymnasium.spec("FrozenLake-v1").reward_threshold
@@ -290,4 +296,4 @@ def test_valid_example_thresholds_and_step_caps(tmp_path):
 )
 def test_seeds_count_expands_to_range(tmp_path, seeds, expected):
     text = _EXAMPLE.replace("seeds: 2\n", f"seeds: {seeds}\n")
-    assert load_study(_write(tmp_path, text)).seeds == expected
+    assert load_experiment(_write(tmp_path, text)).seeds == expected

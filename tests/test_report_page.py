@@ -14,9 +14,9 @@ import pytest
 from markupsafe import escape
 
 from runner.analysis.efficiency import efficiency_sentences
-from runner.analysis.page import CAUTION, StudyRecords
+from runner.analysis.page import CAUTION, ExperimentRecords
 from runner.analysis.plots import safe_name
-from runner.analysis.report import ADVICE_SHARES, StudyFacts, budget_families, pareto_front, write_report
+from runner.analysis.report import ADVICE_SHARES, ExperimentFacts, budget_families, pareto_front, write_report
 
 _BUDGET = 2000
 _POINTS = 21
@@ -84,24 +84,24 @@ def _frame(seed: int = 1) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
-def _facts(**overrides: object) -> StudyFacts:
+def _facts(**overrides: object) -> ExperimentFacts:
     values: dict[str, object] = {
-        "name": "page study",
+        "name": "page experiment",
         "budget": _BUDGET,
         "baseline": "Q-learning",
         "thresholds": dict(_THRESHOLDS),
         "env_order": list(_ENVS),
         "agent_order": list(_LABELS),
         "n_resamples": 300,
-        "description": "Synthetic <b>study</b> & friends, to check the page escapes text.",
+        "description": "Synthetic <b>experiment</b> & friends, to check the page escapes text.",
     }
     values.update(overrides)
-    return StudyFacts(**values)  # type: ignore[arg-type]
+    return ExperimentFacts(**values)  # type: ignore[arg-type]
 
 
-def _records() -> StudyRecords:
+def _records() -> ExperimentRecords:
     """One run, one failure, one missing and one undeclared trial, as the store would give them."""
-    study_text = "study: page study\nseeds: 6\n# <not a tag>\n"
+    experiment_text = "experiment: page experiment\nseeds: 6\n# <not a tag>\n"
     runs = pd.DataFrame(
         [
             {
@@ -110,9 +110,9 @@ def _records() -> StudyRecords:
                 "finished": "2026-01-02T03:09:05+00:00",
                 "outcome": "failures",
                 "command": "stepmeter run page.yaml --jobs 2",
-                "study_file": "/studies/page.yaml",
-                "study_text": study_text,
-                "study_hash": "ab" * 32,
+                "experiment_file": "/experiments/page.yaml",
+                "experiment_text": experiment_text,
+                "experiment_hash": "ab" * 32,
                 "versions": '{"numpy": "2.0.0", "stepmeter": "0.1.0"}',
                 "platform": "Linux-x86_64",
                 "jobs": 2,
@@ -136,12 +136,12 @@ def _records() -> StudyRecords:
     )
     missing = pd.DataFrame([{"env": "grid A", "agent": "Q-learning", "seed": 9, "trial_id": "f00d"}])
     undeclared = pd.DataFrame([{"env": "old grid", "agent": "SARSA", "seed": 0, "trial_id": "beef"}])
-    return StudyRecords(runs=runs, failures=failures, missing=missing, undeclared=undeclared)
+    return ExperimentRecords(runs=runs, failures=failures, missing=missing, undeclared=undeclared)
 
 
 @pytest.fixture(scope="module")
 def report(tmp_path_factory: pytest.TempPathFactory):
-    """The report of the synthetic study, written once for the tests that only read it."""
+    """The report of the synthetic experiment, written once for the tests that only read it."""
     out_dir = tmp_path_factory.mktemp("report")
     output = write_report(_frame(), _facts(), out_dir, _records())
     return out_dir, output
@@ -207,7 +207,7 @@ def test_efficiency_headline_and_terminal_text(report):
         ratios.astype({"includes_one": "boolean"}), {"grid A": "a return of 0.7"}
     )
     assert output.terminal_text.startswith(output.headline[0])
-    assert "page study (budget 2000 real steps" in output.terminal_text
+    assert "page experiment (budget 2000 real steps" in output.terminal_text
     markdown = (out_dir / "summary.md").read_text(encoding="utf-8")
     assert "## Headline" in markdown
     assert output.headline[0] in markdown
@@ -278,8 +278,8 @@ def test_page_is_self_contained_and_escaped(report):
     assert "@import" not in html
     assert escape(CAUTION) in html
     assert "do not make a policy safe on a real system" in html
-    assert "Synthetic &lt;b&gt;study&lt;/b&gt; &amp; friends" in html
-    assert "<b>study</b>" not in html
+    assert "Synthetic &lt;b&gt;experiment&lt;/b&gt; &amp; friends" in html
+    assert "<b>experiment</b>" not in html
     assert "grid B &amp; co" in html
     for sentence in output.headline:
         assert sentence.replace("&", "&amp;") in html
@@ -326,7 +326,7 @@ def test_old_style_facts_and_consecutive_points(tmp_path):
     frame = _frame()
     frame = frame[(frame["env"] == "grid A") & frame["agent"].isin(["Q-learning", "Dyna-Q (planning_steps=50)"])]
     frame = frame.assign(model_tv_error=np.nan)  # no learned model anywhere: no model error figure
-    old = StudyFacts(
+    old = ExperimentFacts(
         name="old",
         budget=_BUDGET,
         baseline="Q-learning",
@@ -337,7 +337,7 @@ def test_old_style_facts_and_consecutive_points(tmp_path):
     )
     assert old.consecutive == 1 and old.variant_params == {} and old.description == ""
     write_report(frame, old, tmp_path / "one")
-    held = StudyFacts(**{**old.__dict__, "consecutive": 3})
+    held = ExperimentFacts(**{**old.__dict__, "consecutive": 3})
     output = write_report(frame, held, tmp_path / "three")
     one = pd.read_csv(tmp_path / "one" / "steps_to_threshold.csv")
     three = pd.read_csv(tmp_path / "three" / "steps_to_threshold.csv")
@@ -359,7 +359,7 @@ def test_no_baseline_and_no_threshold_still_write_a_page(tmp_path):
     assert pd.read_csv(tmp_path / "steps_to_threshold.csv").empty
     assert pd.read_csv(tmp_path / "efficiency.csv").empty
     html = (tmp_path / "report.html").read_text(encoding="utf-8")
-    assert "the study declares no baseline agent" in html
+    assert "the experiment declares no baseline agent" in html
     assert not list(tmp_path.glob("threshold_*.png")) and not list(tmp_path.glob("frontier_*.png"))
     advice = pd.read_csv(tmp_path / "seeds_advice.csv")
     assert set(advice["agent_b"]) == {_LABELS[0]}  # the first agent stands in for the missing baseline
@@ -408,23 +408,23 @@ def test_page_renders_in_headless_chromium(report, tmp_path):
 
 
 @pytest.mark.slow
-def test_report_of_a_stored_study_carries_its_records(tmp_path):
-    from study_texts import EXAMPLE_STUDY
+def test_report_of_a_stored_experiment_carries_its_records(tmp_path):
+    from experiment_texts import EXAMPLE_EXPERIMENT
 
-    from runner.run import RunOptions, run_study
-    from runner.study_report import report_study
+    from runner.experiment_report import report_experiment
+    from runner.run import RunOptions, run_experiment
 
-    text = EXAMPLE_STUDY.replace("    step_limit: 200\n", "    step_limit: 200\n    threshold: 0.5\n", 1)
+    text = EXAMPLE_EXPERIMENT.replace("    step_limit: 200\n", "    step_limit: 200\n    threshold: 0.5\n", 1)
     (tmp_path / "smoke.yaml").write_text(text, encoding="utf-8")
-    run_study(tmp_path / "smoke.yaml", results_root=tmp_path / "results", options=RunOptions(jobs=1), command="t")
-    output, note = report_study(tmp_path / "results" / "smoke")
+    run_experiment(tmp_path / "smoke.yaml", results_root=tmp_path / "results", options=RunOptions(jobs=1), command="t")
+    output, note = report_experiment(tmp_path / "results" / "smoke")
     out_dir = tmp_path / "results" / "smoke" / "report"
     assert "of 20 declared trials have stored results" in note
     assert (out_dir / "budget_maze.png").is_file()  # the dyna planning_steps family, read from stored specs
     assert (out_dir / "model_error_maze.png").is_file()
     assert (out_dir / "threshold_maze.png").is_file()
     html = (out_dir / "report.html").read_text(encoding="utf-8")
-    assert "study: smoke" in html  # the study file text from the run's provenance
+    assert "experiment: smoke" in html  # the experiment file text from the run's provenance
     assert "planning_steps: [0, 5, 50]" in html
     assert "complete" in html
     assert len(output.headline) == len(pd.read_csv(out_dir / "efficiency.csv")) >= 4

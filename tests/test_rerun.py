@@ -12,12 +12,12 @@ import numpy as np
 import pytest
 
 from runner.cli import main
-from runner.run import RunOptions, run_study
+from runner.run import RunOptions, run_experiment
 
 _REPO = Path(__file__).resolve().parents[1]
 
-_STUDY = """\
-study: redo
+_EXPERIMENT = """\
+experiment: redo
 seeds: {seeds}
 real_steps: 400
 evaluation: {{every: 100, episodes: 2}}
@@ -36,9 +36,9 @@ baseline: q
 """
 
 
-def _study(tmp_path: Path, seeds: int = 2) -> Path:
+def _experiment(tmp_path: Path, seeds: int = 2) -> Path:
     path = tmp_path / "redo.yaml"
-    path.write_text(_STUDY.format(seeds=seeds), encoding="utf-8")
+    path.write_text(_EXPERIMENT.format(seeds=seeds), encoding="utf-8")
     return path
 
 
@@ -46,13 +46,13 @@ def _study(tmp_path: Path, seeds: int = 2) -> Path:
 def folder(tmp_path) -> Path:
     """A store whose first 4 trials took the compiled path and whose 2 seed-2 trials were forced on gymnasium."""
     results = tmp_path / "results"
-    run_study(_study(tmp_path, 2), results_root=results, options=RunOptions(jobs=1))
-    run_study(_study(tmp_path, 3), results_root=results, options=RunOptions(jobs=1, trial_path="gymnasium"))
+    run_experiment(_experiment(tmp_path, 2), results_root=results, options=RunOptions(jobs=1))
+    run_experiment(_experiment(tmp_path, 3), results_root=results, options=RunOptions(jobs=1, trial_path="gymnasium"))
     return results / "redo"
 
 
 def _stored(folder: Path) -> dict[str, tuple[str, int]]:
-    with sqlite3.connect(folder / "study.sqlite") as conn:
+    with sqlite3.connect(folder / "experiment.sqlite") as conn:
         rows = conn.execute("SELECT trial_id, trial_path, seed FROM trials").fetchall()
     return {trial_id: (path, seed) for trial_id, path, seed in rows}
 
@@ -136,7 +136,7 @@ def test_a_unique_prefix_selects_its_trial(folder, capsys):
 def test_a_tampered_metric_is_found_with_its_row_column_and_size(folder):
     stored = _stored(folder)
     trial_id = sorted(t for t, (path, _) in stored.items() if path == "compiled")[1]
-    with sqlite3.connect(folder / "study.sqlite") as conn:
+    with sqlite3.connect(folder / "experiment.sqlite") as conn:
         (before,) = conn.execute("SELECT eval_return FROM metrics WHERE trial_id=? AND point=2", (trial_id,)).fetchone()
         conn.execute("UPDATE metrics SET eval_return = eval_return + 0.5 WHERE trial_id=? AND point=2", (trial_id,))
     conn.close()
@@ -161,7 +161,7 @@ def test_a_tampered_metric_is_found_with_its_row_column_and_size(folder):
 
 def test_the_largest_difference_is_reported_where_it_is(folder, capsys):
     trial_id = sorted(_stored(folder))[0]
-    with sqlite3.connect(folder / "study.sqlite") as conn:
+    with sqlite3.connect(folder / "experiment.sqlite") as conn:
         conn.execute("UPDATE metrics SET eval_return = eval_return + 0.25 WHERE trial_id=? AND point=1", (trial_id,))
         conn.execute("UPDATE metrics SET episodes = episodes + 3 WHERE trial_id=? AND point=3", (trial_id,))
     conn.close()
@@ -173,7 +173,7 @@ def test_the_largest_difference_is_reported_where_it_is(folder, capsys):
 
 def test_a_changed_stored_version_is_named(folder, capsys):
     trial_id = sorted(_stored(folder))[0]
-    with sqlite3.connect(folder / "study.sqlite") as conn:
+    with sqlite3.connect(folder / "experiment.sqlite") as conn:
         (run_id, text) = conn.execute(
             "SELECT r.run_id, r.versions FROM runs r JOIN trials t ON t.run_id = r.run_id WHERE t.trial_id=?",
             (trial_id,),
@@ -190,7 +190,7 @@ def test_a_changed_stored_version_is_named(folder, capsys):
 
 
 def test_unknown_packages_and_another_platform_are_named(folder, capsys):
-    with sqlite3.connect(folder / "study.sqlite") as conn:
+    with sqlite3.connect(folder / "experiment.sqlite") as conn:
         for run_id, text in conn.execute("SELECT run_id, versions FROM runs").fetchall():
             versions = {**json.loads(text), "retiredpkg": "1.2"}
             conn.execute(
@@ -227,7 +227,7 @@ def test_no_selection_and_a_missing_store_are_user_errors(tmp_path, folder, caps
     assert code == 2 and err == ["stepmeter: error: rerun: give TRIAL_ID(s), --sample K or --all"]
     (tmp_path / "nothing").mkdir()
     code, _, err = _rerun(capsys, str(tmp_path / "nothing"), "--all")
-    assert code == 2 and len(err) == 1 and "no stepmeter study here" in err[0]
+    assert code == 2 and len(err) == 1 and "no stepmeter experiment here" in err[0]
 
 
 def test_a_sample_size_below_one_is_a_one_line_user_error(folder, capsys):

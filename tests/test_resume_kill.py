@@ -14,6 +14,7 @@ import pandas as pd
 import pytest
 
 import runner
+from runner.metrics import TIMING_COLUMNS
 
 _REPO = Path(__file__).resolve().parents[1]
 _NAME = "killable"
@@ -22,9 +23,9 @@ _EVERY = 1000
 _POINTS = _REAL_STEPS // _EVERY + 1
 
 # 4 agent variants x 30 seeds = 120 trials of about 0.05-0.3 s each on the step-by-step gymnasium path: enough
-# work that six kills, each after a few more trials are stored, all land before the study is done.
-_STUDY = f"""\
-study: {_NAME}
+# work that six kills, each after a few more trials are stored, all land before the experiment is done.
+_EXPERIMENT = f"""\
+experiment: {_NAME}
 seeds: 30
 real_steps: {_REAL_STEPS}
 evaluation: {{every: {_EVERY}, episodes: 3}}
@@ -62,9 +63,9 @@ def _env() -> dict[str, str]:
     return env
 
 
-def _command(study: Path, results: Path) -> list[str]:
+def _command(experiment: Path, results: Path) -> list[str]:
     return [
-        sys.executable, "-m", "runner", "run", str(study),
+        sys.executable, "-m", "runner", "run", str(experiment),
         "--jobs", "2", "--path", "gymnasium", "--no-report", "--results", str(results),
     ]  # fmt: skip
 
@@ -117,32 +118,32 @@ def _wait_for(condition, proc: subprocess.Popen, poll: float) -> bool:
 
 
 def _frame(folder: Path) -> pd.DataFrame:
-    frame = runner.load_results(folder).drop(columns="wall_seconds")
+    frame = runner.load_results(folder).drop(columns=list(TIMING_COLUMNS))
     return frame.sort_values(["trial_id", "point"]).reset_index(drop=True)
 
 
 @pytest.mark.slow
 def test_killed_and_restarted_runs_store_what_an_uninterrupted_run_stores(tmp_path):
-    study = tmp_path / "killable.yaml"
-    study.write_text(_STUDY, encoding="utf-8")
+    experiment = tmp_path / "killable.yaml"
+    experiment.write_text(_EXPERIMENT, encoding="utf-8")
     env = _env()
 
     reference = subprocess.run(
-        _command(study, tmp_path / "reference"), env=env, capture_output=True, text=True, timeout=180, check=False
+        _command(experiment, tmp_path / "reference"), env=env, capture_output=True, text=True, timeout=180, check=False
     )
     assert reference.returncode == 0, reference.stderr
     expected = _frame(tmp_path / "reference" / _NAME)
     assert len(expected) == _TRIALS * _POINTS
 
     results = tmp_path / "killed"
-    db = results / _NAME / "study.sqlite"
+    db = results / _NAME / "experiment.sqlite"
     rng = np.random.default_rng(20240611)
     attempts = []  # (kind, return code, stdout, stderr, trials stored at the kill)
     for number, kind in enumerate((*_KILLS, "final")):
         out, err = tmp_path / f"attempt{number}.out", tmp_path / f"attempt{number}.err"
         with out.open("w") as stdout, err.open("w") as stderr:
             proc = subprocess.Popen(
-                _command(study, results), env=env, stdout=stdout, stderr=stderr, start_new_session=True
+                _command(experiment, results), env=env, stdout=stdout, stderr=stderr, start_new_session=True
             )
         base = _stored(db)
         at_kill = None

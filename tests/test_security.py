@@ -1,4 +1,4 @@
-"""Study files and stored results never run code by themselves, and no name or id can reach outside results/."""
+"""Experiment files and stored results never run code by themselves, and no name or id can reach outside results/."""
 
 import ast
 import json
@@ -9,16 +9,16 @@ from pathlib import Path
 
 import pytest
 
-from runner.config import load_study
+from runner.config import load_experiment
 from runner.errors import ConfigError, StoreError
 from runner.rerun import select_trials
-from runner.run import RunOptions, run_study
-from runner.store import study_dir
+from runner.run import RunOptions, run_experiment
+from runner.store import experiment_dir
 
 _REPO = Path(__file__).resolve().parents[1]
 
-_STUDY = """\
-study: {name}
+_EXPERIMENT = """\
+experiment: {name}
 description: {description}
 seeds: 1
 real_steps: 200
@@ -39,8 +39,8 @@ agents:
 
 
 def _write(tmp_path: Path, name: str = "safe", description: str = "plain", alpha: str = "0.1") -> Path:
-    path = tmp_path / "study.yaml"
-    path.write_text(_STUDY.format(name=name, description=description, alpha=alpha), encoding="utf-8")
+    path = tmp_path / "experiment.yaml"
+    path.write_text(_EXPERIMENT.format(name=name, description=description, alpha=alpha), encoding="utf-8")
     return path
 
 
@@ -69,14 +69,14 @@ def test_python_object_tags_are_rejected_and_run_nothing(tmp_path, tag, field):
     value = tag.format(marker=marker)
     path = _write(tmp_path, **{field: value})
     with pytest.raises(ConfigError) as rejected:
-        load_study(path)
+        load_experiment(path)
     message = str(rejected.value)
     line = 2 if field == "description" else 17
     assert message.startswith(f"{path}:{line}: not valid YAML: "), message
     assert "python/" in message and "\n" not in message  # the tag itself was refused, not a syntax slip
     assert not marker.exists()
     with pytest.raises(ConfigError):
-        run_study(path, results_root=tmp_path / "results", options=RunOptions(jobs=1))
+        run_experiment(path, results_root=tmp_path / "results", options=RunOptions(jobs=1))
     assert not marker.exists()
     assert not (tmp_path / "results").exists()
 
@@ -84,49 +84,49 @@ def test_python_object_tags_are_rejected_and_run_nothing(tmp_path, tag, field):
 def test_the_command_line_rejects_an_object_tag_in_one_line_and_runs_nothing(tmp_path):
     marker = tmp_path / "hacked"
     _write(tmp_path, description=_MAKERS[0].format(marker=marker))
-    for command in (("check", "study.yaml"), ("run", "study.yaml", "--results", "results", "--jobs", "1")):
+    for command in (("check", "experiment.yaml"), ("run", "experiment.yaml", "--results", "results", "--jobs", "1")):
         result = _cli(*command, cwd=tmp_path)
         assert result.returncode == 2, result.stderr
         lines = result.stderr.splitlines()
-        assert len(lines) == 1 and lines[0].startswith("stepmeter: error: study.yaml:2: not valid YAML: ")
+        assert len(lines) == 1 and lines[0].startswith("stepmeter: error: experiment.yaml:2: not valid YAML: ")
         assert "Traceback" not in result.stderr
     assert not marker.exists()
     assert not (tmp_path / "results").exists()
 
 
 @pytest.mark.parametrize("name", ["..", ".", "../evil", "evil/..", "a/b", "/etc", "/", "a\\b", "~root", "", "x" * 65])
-def test_study_names_that_could_leave_the_results_folder_are_rejected(tmp_path, name):
+def test_experiment_names_that_could_leave_the_results_folder_are_rejected(tmp_path, name):
     path = _write(tmp_path, name=json.dumps(name))
-    with pytest.raises(ConfigError, match=r":1: study: expected a name of letters, digits"):
-        load_study(path)
+    with pytest.raises(ConfigError, match=r":1: experiment: expected a name of letters, digits"):
+        load_experiment(path)
     outside = tmp_path / "evil"
     with pytest.raises(ConfigError):
-        run_study(path, results_root=tmp_path / "results" / "inner", options=RunOptions(jobs=1))
+        run_experiment(path, results_root=tmp_path / "results" / "inner", options=RunOptions(jobs=1))
     assert not (tmp_path / "results").exists() and not outside.exists()
 
 
 @pytest.mark.parametrize("name", ["..", ".", "", "../sibling", "a/b", "a/..", "a/../../x", "/etc", "/tmp/elsewhere"])
-def test_study_dir_refuses_names_that_leave_the_results_folder(tmp_path, name):
+def test_experiment_dir_refuses_names_that_leave_the_results_folder(tmp_path, name):
     root = tmp_path / "results"
     with pytest.raises(StoreError, match="would leave the results folder"):
-        study_dir(root, name)
+        experiment_dir(root, name)
 
 
-def test_study_dir_accepts_plain_names_and_refuses_a_symlink_out(tmp_path):
+def test_experiment_dir_accepts_plain_names_and_refuses_a_symlink_out(tmp_path):
     root = tmp_path / "results"
     root.mkdir()
-    assert study_dir(root, "plain-name_1.0") == root.resolve() / "plain-name_1.0"
-    assert study_dir(root, "a..b") == root.resolve() / "a..b"
+    assert experiment_dir(root, "plain-name_1.0") == root.resolve() / "plain-name_1.0"
+    assert experiment_dir(root, "a..b") == root.resolve() / "a..b"
     (tmp_path / "elsewhere").mkdir()
     (root / "link").symlink_to(tmp_path / "elsewhere")
     with pytest.raises(StoreError, match="would leave the results folder"):
-        study_dir(root, "link")
+        experiment_dir(root, "link")
 
 
 @pytest.fixture(scope="module")
 def stored(tmp_path_factory) -> Path:
     tmp_path = tmp_path_factory.mktemp("stored")
-    run_study(_write(tmp_path), results_root=tmp_path / "results", options=RunOptions(jobs=1))
+    run_experiment(_write(tmp_path), results_root=tmp_path / "results", options=RunOptions(jobs=1))
     return tmp_path / "results" / "safe"
 
 
@@ -150,12 +150,12 @@ def test_rerun_id_with_path_characters_is_one_line_on_the_command_line(stored):
 def test_an_entry_point_that_is_not_an_environment_is_a_config_error(tmp_path):
     path = tmp_path / "entry.yaml"
     path.write_text(
-        "study: entry\nseeds: 1\nreal_steps: 100\nenvironments:\n  - entry: builtins:dict\nagents:\n"
+        "experiment: entry\nseeds: 1\nreal_steps: 100\nenvironments:\n  - entry: builtins:dict\nagents:\n"
         "  - {label: q, kind: q_learning}\n",
         encoding="utf-8",
     )
     with pytest.raises(ConfigError, match=r"entry\.yaml:5: environments\[0\]"):
-        load_study(path)
+        load_experiment(path)
 
 
 _BANNED_MODULES = {"pickle", "cPickle", "_pickle", "dill", "cloudpickle", "shelve", "marshal", "jsonpickle"}

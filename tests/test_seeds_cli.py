@@ -1,4 +1,4 @@
-"""`stepmeter seeds`: seeds advice from a stored pilot study, agreeing with the power module it prints."""
+"""`stepmeter seeds`: seeds advice from a stored pilot experiment, agreeing with the power module it prints."""
 
 import re
 
@@ -6,10 +6,10 @@ from runner.analysis.curves import trial_scores
 from runner.analysis.frames import load_results
 from runner.analysis.power import seeds_needed
 from runner.cli import main
-from runner.run import RunOptions, run_study
+from runner.run import RunOptions, run_experiment
 
 PILOT = """\
-study: pilot
+experiment: pilot
 seeds: 6
 real_steps: 600
 evaluation: {every: 100, episodes: 3}
@@ -27,7 +27,7 @@ baseline: q
 def test_seeds_advice_matches_the_power_calculation(tmp_path, capsys):
     path = tmp_path / "pilot.yaml"
     path.write_text(PILOT)
-    run_study(path, results_root=tmp_path / "results", options=RunOptions(jobs=1))
+    run_experiment(path, results_root=tmp_path / "results", options=RunOptions(jobs=1))
     folder = tmp_path / "results" / "pilot"
     assert main(["seeds", str(folder), "--difference", "0.1"]) == 0
     out = capsys.readouterr().out
@@ -41,6 +41,6 @@ def test_seeds_advice_matches_the_power_calculation(tmp_path, capsys):
 def test_seeds_rejects_bad_levels(tmp_path, capsys):
     path = tmp_path / "pilot.yaml"
     path.write_text(PILOT)
-    run_study(path, results_root=tmp_path / "results", options=RunOptions(jobs=1))
+    run_experiment(path, results_root=tmp_path / "results", options=RunOptions(jobs=1))
     assert main(["seeds", str(tmp_path / "results" / "pilot"), "--power", "1.5"]) == 2
     assert "alpha and power in (0, 1)" in capsys.readouterr().err

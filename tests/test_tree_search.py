@@ -12,7 +12,7 @@ import pytest
 from runner.agents import AGENTS
 from runner.agents.tree_search import PUCTSearch, UCTSearch
 from runner.checks import check_agent
-from runner.config import load_study
+from runner.config import load_experiment
 from runner.envs.grid import GridWorld
 from runner.envs.table import _closed_cdfs, table_from_env
 from runner.errors import EnvironmentSourceError
@@ -379,11 +379,11 @@ def test_label_note_marks_the_oracle(tmp_path):
     assert UCTSearch(model="oracle").label_note() == "oracle: true model"
     assert PUCTSearch(model="oracle").label_note() == "oracle: true model"
     assert UCTSearch().label_note() == "" and not UCTSearch().uses_table()
-    study = tmp_path / "study.yaml"
-    study.write_text(
+    experiment = tmp_path / "experiment.yaml"
+    experiment.write_text(
         textwrap.dedent(
             """\
-            study: tree
+            experiment: tree
             seeds: 1
             real_steps: 100
             evaluation: {every: 50, episodes: 1}
@@ -396,5 +396,5 @@ def test_label_note_marks_the_oracle(tmp_path):
             """
         )
     )
-    labels = sorted(v.label for v in load_study(study).agents)
+    labels = sorted(v.label for v in load_experiment(experiment).agents)
     assert labels == ["uct (model=learned)", "uct (model=oracle) [oracle: true model]"]

@@ -1,6 +1,6 @@
 """Point estimates with intervals over seeds: mean or interquartile mean, by percentile, BCa, t or bootstrap-t.
 
-Used for headline numbers, where a study has few seeds (often 5 to 20) and the interval method matters.
+Used for headline numbers, where an experiment has few seeds (often 5 to 20) and the interval method matters.
 """
 
 from __future__ import annotations

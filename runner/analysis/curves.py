@@ -53,7 +53,7 @@ def curve_bands(
     """Mean greedy evaluation return per (env, agent, point) with a percentile bootstrap band over seeds.
 
     Each (env, agent) pair draws from its own generator keyed on the seed and its labels, so the band of
-    one agent does not change when other agents are added to the study.
+    one agent does not change when other agents are added to the experiment.
     """
     parts = []
     for (env, agent), group in frame.groupby(["env", "agent"], sort=True):

@@ -37,7 +37,7 @@ EFFICIENCY_COLUMNS = [
 MIN_ESTIMABLE_SHARE = 0.9
 # Survival within this distance above one half counts as having dropped to it (cumulative products round).
 _TOLERANCE = 1e-10
-# Resamples handled per matrix product, which bounds memory for studies with many seeds.
+# Resamples handled per matrix product, which bounds memory for experiments with many seeds.
 _BATCH = 512
 
 

@@ -1,4 +1,4 @@
-"""Load a stored study as tidy pandas frames."""
+"""Load a stored experiment as tidy pandas frames."""
 
 from __future__ import annotations
 
@@ -7,8 +7,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from runner.store import DB_NAME, INT_COLUMNS, Store
-from runner.trial import METRIC_COLUMNS
+from runner.metrics import INT_COLUMNS, METRIC_COLUMNS
+from runner.store import DB_NAME, Store
 
 _CHUNK = 100_000
 """Rows fetched at a time: straight into float arrays, so no per-row Python objects pile up."""
@@ -17,18 +17,18 @@ __all__ = ["load_failures", "load_results", "missing_trials", "open_store", "und
 
 
 def open_store(path: str | Path) -> Store:
-    """Open a study store given its folder (results/<study>) or its database file."""
+    """Open an experiment store given its folder (results/<experiment>) or its database file."""
     path = Path(path)
     return Store(path.parent if path.name == DB_NAME else path)
 
 
 def load_results(path: str | Path) -> pd.DataFrame:
-    """One row per (declared trial, evaluation point) of a stored study.
+    """One row per (declared trial, evaluation point) of a stored experiment.
 
     Columns: env, agent, kind, trial_id, seed, point, then the metric columns (real_steps, episodes,
     eval_return, train_return, real_updates, planning_updates, model_updates, model_tv_error,
     model_reward_error, wall_seconds). Only trials
-    the study file currently declares are included, in declaration order.
+    the experiment file currently declares are included, in declaration order.
     """
     with open_store(path) as store:
         declared = pd.DataFrame.from_records(
@@ -66,7 +66,7 @@ def missing_trials(path: str | Path) -> pd.DataFrame:
 
 
 def undeclared_trials(path: str | Path) -> pd.DataFrame:
-    """Stored trials the current study file no longer declares (kept in the store, left out of reports)."""
+    """Stored trials the current experiment file no longer declares (kept in the store, left out of reports)."""
     with open_store(path) as store:
         rows = store.query(
             "SELECT env_label, agent_label, seed, trial_id FROM trials "

@@ -22,7 +22,7 @@ import pandas as pd
 from runner.analysis.tables import format_interval, format_number
 
 if TYPE_CHECKING:
-    from runner.analysis.report import StudyFacts
+    from runner.analysis.report import ExperimentFacts
 
 __all__ = [
     "CAUTION",
@@ -30,8 +30,8 @@ __all__ = [
     "RUN_COLUMNS",
     "TRIAL_COLUMNS",
     "EnvPage",
+    "ExperimentRecords",
     "ReportTables",
-    "StudyRecords",
     "TableView",
     "advice_note",
     "advice_view",
@@ -61,9 +61,9 @@ RUN_COLUMNS = [
     "finished",
     "outcome",
     "command",
-    "study_file",
-    "study_text",
-    "study_hash",
+    "experiment_file",
+    "experiment_text",
+    "experiment_hash",
     "versions",
     "platform",
     "jobs",
@@ -94,11 +94,12 @@ class ReportTables:
 
 
 @dataclass(frozen=True)
-class StudyRecords:
+class ExperimentRecords:
     """What the store knows besides metric rows: runs (provenance), failures, missing and undeclared trials.
 
-    runs: run_id, started, finished, outcome, command, study_file, study_text, study_hash, versions (JSON text),
-    platform, jobs. failures: env, agent, seed, trial_id, run_id, error_type, message, at, stored_later.
+    runs: run_id, started, finished, outcome, command, experiment_file, experiment_text, experiment_hash,
+    versions (JSON text), platform, jobs.
+    failures: env, agent, seed, trial_id, run_id, error_type, message, at, stored_later.
     missing and undeclared: env, agent, seed, trial_id.
     """
 
@@ -305,7 +306,7 @@ def advice_note(rows: pd.DataFrame, power: float = 0.8, alpha: float = 0.05) -> 
         f"Differences to detect are {listed} of each environment's return range (highest minus lowest evaluation "
         "return stored for it), so they read in return units like the AUC itself, whatever the reward scale. "
         f"Seeds needed: the smallest equal number per agent for a two-sided two-sample t-test at {alpha:.0%} to "
-        f"detect that difference in mean AUC with {power:.0%} power, from the pilot spreads of this study; those "
+        f"detect that difference in mean AUC with {power:.0%} power, from the pilot spreads of this experiment; those "
         "spreads are themselves uncertain with few seeds, so read the numbers as a guide."
     )
 
@@ -340,7 +341,7 @@ def _env_rows(table: pd.DataFrame, env: str) -> pd.DataFrame:
     return table[table["env"] == env] if len(table) else table
 
 
-def env_views(data: ReportTables, facts: StudyFacts, env: str) -> dict[str, TableView | None]:
+def env_views(data: ReportTables, facts: ExperimentFacts, env: str) -> dict[str, TableView | None]:
     """Every table of one environment keyed by its place on the page (None when it does not apply)."""
     views: dict[str, TableView | None] = {"summary": summary_view(_env_rows(data.summary, env))}
     tsummary = _env_rows(data.tsummary, env)
@@ -354,7 +355,7 @@ def env_views(data: ReportTables, facts: StudyFacts, env: str) -> dict[str, Tabl
     return views
 
 
-def markdown_sections(data: ReportTables, facts: StudyFacts, env: str | None) -> list[TableView]:
+def markdown_sections(data: ReportTables, facts: ExperimentFacts, env: str | None) -> list[TableView]:
     """Tables for the Markdown report: one environment's extra tables, or (env None) the seeds advice."""
     if env is None:
         return [advice_view(data.advice)] if len(data.advice) else []
@@ -362,7 +363,7 @@ def markdown_sections(data: ReportTables, facts: StudyFacts, env: str | None) ->
     return [view for key, view in views.items() if key != "summary" and view is not None]
 
 
-def _records_views(records: StudyRecords) -> dict[str, TableView]:
+def _records_views(records: ExperimentRecords) -> dict[str, TableView]:
     """Failures, missing and undeclared trials as tables."""
     trial: list[_Column] = [
         ("environment", False, lambda r: str(r["env"])),
@@ -406,8 +407,8 @@ def _runs(runs: pd.DataFrame) -> list[dict[str, object]]:
                     ("finished", "not recorded" if pd.isna(run["finished"]) else str(run["finished"])),
                     ("command", str(run["command"])),
                     ("processes", str(run["jobs"])),
-                    ("study file", str(run["study_file"])),
-                    ("study hash", str(run["study_hash"])),
+                    ("experiment file", str(run["experiment_file"])),
+                    ("experiment hash", str(run["experiment_hash"])),
                     ("platform", str(run["platform"])),
                     ("versions", _versions(run["versions"])),
                 ],
@@ -497,7 +498,7 @@ def _figure(key: str, path: Path | None, env: str) -> dict[str, str] | None:
     return {"title": title, "caption": caption, "src": uri, "alt": f"{title} for {env}", "file": Path(path).name}
 
 
-def _env_context(page: EnvPage, index: int, data: ReportTables, facts: StudyFacts) -> dict[str, object]:
+def _env_context(page: EnvPage, index: int, data: ReportTables, facts: ExperimentFacts) -> dict[str, object]:
     """Template data of one environment: figures and tables in reading order."""
     views = env_views(data, facts, page.env)
     figures = {key: _figure(key, path, page.env) for key, path in page.figures.items()}
@@ -521,26 +522,26 @@ def _env_context(page: EnvPage, index: int, data: ReportTables, facts: StudyFact
     }
 
 
-def _headline_note(facts: StudyFacts, headline: list[str]) -> str:
+def _headline_note(facts: ExperimentFacts, headline: list[str]) -> str:
     """Why there are no real-step ratios, when there are none."""
     if headline:
         return ""
     if not facts.baseline:
-        return "No real-step ratios: the study declares no baseline agent."
+        return "No real-step ratios: the experiment declares no baseline agent."
     if all(value is None for value in facts.thresholds.values()):
         return "No real-step ratios: no environment declares a return threshold."
     return "No real-step ratios could be formed (the baseline has no trials in an environment with a threshold)."
 
 
-def _study_texts(runs: pd.DataFrame) -> list[dict[str, str]]:
-    """Each distinct study file text the runs used, newest first, with its hash and file name."""
+def _experiment_texts(runs: pd.DataFrame) -> list[dict[str, str]]:
+    """Each distinct experiment file text the runs used, newest first, with its hash and file name."""
     texts = []
-    for _, run in runs.iloc[::-1].drop_duplicates("study_hash").iterrows():
+    for _, run in runs.iloc[::-1].drop_duplicates("experiment_hash").iterrows():
         texts.append(
             {
-                "hash": str(run["study_hash"]),
-                "file": str(run["study_file"]),
-                "text": str(run["study_text"]),
+                "hash": str(run["experiment_hash"]),
+                "file": str(run["experiment_file"]),
+                "text": str(run["experiment_text"]),
                 "run": str(run["run_id"]),
             }
         )
@@ -549,11 +550,11 @@ def _study_texts(runs: pd.DataFrame) -> list[dict[str, str]]:
 
 def render_page(
     *,
-    facts: StudyFacts,
+    facts: ExperimentFacts,
     data: ReportTables,
     envs: Sequence[EnvPage],
     headline: list[str],
-    records: StudyRecords,
+    records: ExperimentRecords,
 ) -> str:
     """The report page as HTML text."""
     environment = jinja2.Environment(
@@ -583,18 +584,18 @@ def render_page(
         counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs")},
         runs=_runs(records.runs),
         glance=glance_sentences(data.tsummary, envs),
-        study_texts=_study_texts(records.runs),
+        experiment_texts=_experiment_texts(records.runs),
     )
 
 
 def write_page(
     out_dir: Path,
     *,
-    facts: StudyFacts,
+    facts: ExperimentFacts,
     data: ReportTables,
     envs: Sequence[EnvPage],
     headline: list[str],
-    records: StudyRecords,
+    records: ExperimentRecords,
 ) -> Path:
     """Write `report.html` into out_dir atomically and return its path."""
     text = render_page(facts=facts, data=data, envs=envs, headline=headline, records=records)

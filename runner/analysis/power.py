@@ -1,4 +1,4 @@
-"""How many seeds per agent a study needs to detect a given difference in mean score, from a pilot study.
+"""How many seeds per agent an experiment needs to detect a given difference in mean score, from a pilot experiment.
 
 Uses the exact power of the two-sided two-sample t-test (noncentral t), so small seed counts are not
 overestimated the way a normal approximation would.
@@ -137,7 +137,7 @@ def seeds_advice(
     power: float = 0.8,
     max_seeds: int = 10000,
 ) -> pd.DataFrame:
-    """Seeds per agent needed to detect each requested difference in mean `metric`, from a pilot study.
+    """Seeds per agent needed to detect each requested difference in mean `metric`, from a pilot experiment.
 
     One row per (pair of agents, difference): every pair in `agent_order` order, or each agent against
     `baseline`. Columns: env, agent_a, agent_b, n_a, n_b, the pilot sds (ddof=1), the observed mean difference,

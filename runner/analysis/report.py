@@ -1,10 +1,10 @@
-"""Write a study's report folder: figures, CSV tables, a Markdown summary, an HTML page and terminal text.
+"""Write an experiment's report folder: figures, CSV tables, a Markdown summary, an HTML page and terminal text.
 
 The numbers answer four questions per environment: how fast each agent learns (AUC, curves), how many real
 steps it needs to reach the threshold (Kaplan-Meier, censored trials kept), what planning saves and costs
 against the baseline (ratios, budget and frontier figures), and whether differences are real (Welch-Holm,
 probability of improvement, seeds advice). Work is vectorised over trials; loops run over environments and
-agent variants only, so studies of many seeds stay fast.
+agent variants only, so experiments of many seeds stay fast.
 """
 
 from __future__ import annotations
@@ -26,7 +26,14 @@ from runner.analysis.bootstrap import keyed_rng, mean_and_interval
 from runner.analysis.compare import PAIRWISE_COLUMNS, pairwise_welch
 from runner.analysis.curves import curve_bands, trial_scores
 from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
-from runner.analysis.page import EnvPage, ReportTables, StudyRecords, glance_sentences, markdown_sections, write_page
+from runner.analysis.page import (
+    EnvPage,
+    ExperimentRecords,
+    ReportTables,
+    glance_sentences,
+    markdown_sections,
+    write_page,
+)
 from runner.analysis.plots import (
     BudgetFamily,
     BudgetReference,
@@ -52,8 +59,8 @@ __all__ = [
     "COMPUTE_COLUMNS",
     "FRONTIER_COLUMNS",
     "REQUIRED_COLUMNS",
+    "ExperimentFacts",
     "ReportOutput",
-    "StudyFacts",
     "budget_families",
     "compute_table",
     "pareto_front",
@@ -107,8 +114,8 @@ _TRIAL_KEYS = ["env", "agent", "kind", "trial_id", "seed"]
 
 
 @dataclass(frozen=True)
-class StudyFacts:
-    """What the report needs to know about a study beyond its metric rows.
+class ExperimentFacts:
+    """What the report needs to know about an experiment beyond its metric rows.
 
     `consecutive` is how many evaluation points in a row the return must stay at or above the threshold;
     `variant_params` maps an agent label to its parameters, used to find families that vary a planning
@@ -176,7 +183,7 @@ def _last_rows(frame: pd.DataFrame) -> pd.DataFrame:
     return frame.loc[last.to_numpy(), columns].reset_index(drop=True)
 
 
-def compute_table(frame: pd.DataFrame, envs: list[str], agents: list[str], facts: StudyFacts) -> pd.DataFrame:
+def compute_table(frame: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts) -> pd.DataFrame:
     """Per (env, agent): updates and planning updates per real step, and wall microseconds per real step.
 
     `updates_per_real` counts every update an agent makes per real step (real, planning and model updates),
@@ -224,7 +231,7 @@ def compute_table(frame: pd.DataFrame, envs: list[str], agents: list[str], facts
 # --- threshold, efficiency, comparisons, advice -------------------------------------------------------------
 
 
-def _threshold_label(facts: StudyFacts, env: str) -> str:
+def _threshold_label(facts: ExperimentFacts, env: str) -> str:
     """Wording of one environment's threshold, including how long the return must stay above it."""
     value = facts.thresholds.get(env)
     if value is None:
@@ -233,7 +240,7 @@ def _threshold_label(facts: StudyFacts, env: str) -> str:
     return f"a return of {value:g}{held}"
 
 
-def _efficiency(crossings: pd.DataFrame, facts: StudyFacts, envs: list[str], agents: list[str]) -> pd.DataFrame:
+def _efficiency(crossings: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agents: list[str]) -> pd.DataFrame:
     """Real-step ratios of every agent against the baseline, in report order (empty without a baseline)."""
     if not facts.baseline or crossings.empty:
         return pd.DataFrame(columns=EFFICIENCY_COLUMNS)
@@ -243,7 +250,7 @@ def _efficiency(crossings: pd.DataFrame, facts: StudyFacts, envs: list[str], age
     return _sort_by_order(ratios, envs, agents) if len(ratios) else ratios
 
 
-def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts: StudyFacts) -> pd.DataFrame:
+def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts) -> pd.DataFrame:
     """Welch-Holm tests and probability of improvement on AUC for every pair of variants, env by env."""
     parts = [
         pairwise_welch(
@@ -256,7 +263,7 @@ def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts
 
 
 def _advice(
-    frame: pd.DataFrame, scores: pd.DataFrame, envs: list[str], agents: list[str], facts: StudyFacts
+    frame: pd.DataFrame, scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts
 ) -> pd.DataFrame:
     """Seeds per agent needed to detect AUC differences of ADVICE_SHARES of each env's return range.
 
@@ -472,7 +479,7 @@ class _Figures:
 
 
 def _env_figures(
-    env: str, agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: StudyFacts, out_dir: Path
+    env: str, agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: ExperimentFacts, out_dir: Path
 ) -> _Figures:
     """Write every figure of one environment."""
     figures = _Figures(png=dict.fromkeys(("curves", "threshold", "model_error", "budget", "frontier")))
@@ -542,7 +549,7 @@ def _env_figures(
     return figures
 
 
-def _reference(env: str, agents: list[str], data: ReportTables, facts: StudyFacts) -> BudgetReference | None:
+def _reference(env: str, agents: list[str], data: ReportTables, facts: ExperimentFacts) -> BudgetReference | None:
     """The baseline's numbers in one environment for the budget figure, or None without a baseline there."""
     if facts.baseline not in agents:
         return None
@@ -561,7 +568,7 @@ def _reference(env: str, agents: list[str], data: ReportTables, facts: StudyFact
     )
 
 
-def _analyse(frame: pd.DataFrame, facts: StudyFacts, envs: list[str], agents: list[str]) -> ReportTables:
+def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agents: list[str]) -> ReportTables:
     """Every table of the report, computed once and shared by the CSV, Markdown, figures and page."""
     bands = curve_bands(frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed)
     scores = trial_scores(frame)
@@ -595,8 +602,10 @@ def _analyse(frame: pd.DataFrame, facts: StudyFacts, envs: list[str], agents: li
     )
 
 
-def _markdown(data: ReportTables, facts: StudyFacts, envs: list[str], headline: list[str], glance: list[str]) -> str:
-    """Compose the Markdown report: study facts, headline, then per environment every table, then advice."""
+def _markdown(
+    data: ReportTables, facts: ExperimentFacts, envs: list[str], headline: list[str], glance: list[str]
+) -> str:
+    """Compose the Markdown report: experiment facts, headline, then per environment every table, then advice."""
     baseline = f"`{facts.baseline}`" if facts.baseline else "none declared"
     lines = [f"# {facts.name}", ""]
     if facts.description:
@@ -642,7 +651,7 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
 
 
 def write_report(
-    frame: pd.DataFrame, facts: StudyFacts, out_dir: Path, records: StudyRecords | None = None
+    frame: pd.DataFrame, facts: ExperimentFacts, out_dir: Path, records: ExperimentRecords | None = None
 ) -> ReportOutput:
     """Write figures, CSV tables, `summary.md` and the self-contained `report.html` into `out_dir`.
 
@@ -679,7 +688,9 @@ def write_report(
     glance = glance_sentences(data.tsummary, pages)
     files.append(_write_text_atomic(out_dir / "summary.md", _markdown(data, facts, envs, headline, glance)))
     files.append(
-        write_page(out_dir, facts=facts, data=data, envs=pages, headline=headline, records=records or StudyRecords())
+        write_page(
+            out_dir, facts=facts, data=data, envs=pages, headline=headline, records=records or ExperimentRecords()
+        )
     )
     header = f"{facts.name} (budget {facts.budget} real steps, baseline: {facts.baseline or 'none declared'})"
     lead = "\n".join(headline) + "\n\n" if headline else ""

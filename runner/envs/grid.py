@@ -1,4 +1,4 @@
-"""Text grid maps declared in a study, built as gymnasium environments with a known transition table.
+"""Text grid maps declared in an experiment, built as gymnasium environments with a known transition table.
 
 Cells: `.` floor, `#` wall or shelving, `S` start (several allowed: uniform), `G` goal (ends the episode),
 `~` slippery floor (a move slips sideways with probability `slip`), `X` hazard (penalty; ends the episode

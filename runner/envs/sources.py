@@ -19,7 +19,7 @@ __all__ = ["GRID_PARAMS", "SOURCES", "build_env", "env_sizes", "gym_reward_thres
 
 SOURCES = {
     "gym": "a registered gymnasium id with keyword options",
-    "grid": "a text grid map declared in the study",
+    "grid": "a text grid map declared in the experiment",
     "entry": "a 'package.module:Class' following the gymnasium API (runs your own code)",
 }
 GRID_PARAMS = ("slip", "step_reward", "goal_reward", "hazard_penalty", "hazard_ends")

@@ -1,6 +1,6 @@
 """Environments whose dynamics are a known transition table, converted once into flat arrays.
 
-Such environments (the study's grid maps; gymnasium's FrozenLake, CliffWalking and Taxi) can run a whole trial in
+Such environments (the experiment's grid maps; gymnasium's FrozenLake, CliffWalking and Taxi) can run a whole trial in
 compiled code. Only classes whose `step` samples exactly from `P` qualify, behind no wrapper other than those
 `gymnasium.make` adds; anything else (e.g. Taxi's `fickle_passenger`, which changes the state outside the table)
 stays on the gymnasium path.

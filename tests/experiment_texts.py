@@ -1,7 +1,7 @@
-"""Study texts shared by several test modules."""
+"""Experiment texts shared by several test modules."""
 
-EXAMPLE_STUDY = """\
-study: smoke
+EXAMPLE_EXPERIMENT = """\
+experiment: smoke
 seeds: 2
 real_steps: 3000
 evaluation: {every: 500, episodes: 5}

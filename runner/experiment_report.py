@@ -1,4 +1,4 @@
-"""Make the report of a stored study: read its facts, rows and records, write figures, tables and the page."""
+"""Make the report of a stored experiment: read its facts, rows and records, write figures, tables and the page."""
 
 from __future__ import annotations
 
@@ -8,17 +8,17 @@ from pathlib import Path
 import pandas as pd
 
 from runner.analysis.frames import load_results, missing_trials, open_store, undeclared_trials
-from runner.analysis.page import FAILURE_COLUMNS, RUN_COLUMNS, StudyRecords
-from runner.analysis.report import ReportOutput, StudyFacts, write_report
+from runner.analysis.page import FAILURE_COLUMNS, RUN_COLUMNS, ExperimentRecords
+from runner.analysis.report import ExperimentFacts, ReportOutput, write_report
 from runner.store import Store
 
-__all__ = ["report_study", "study_records", "variant_params"]
+__all__ = ["experiment_records", "report_experiment", "variant_params"]
 
 
-def study_records(folder: str | Path) -> StudyRecords:
-    """Runs (provenance), failures with their trial labels, missing and undeclared trials of a stored study.
+def experiment_records(folder: str | Path) -> ExperimentRecords:
+    """Runs (provenance), failures with their trial labels, missing and undeclared trials of a stored experiment.
 
-    A failure's labels come from the current declaration, or from the stored trial when the study file no
+    A failure's labels come from the current declaration, or from the stored trial when the experiment file no
     longer declares it; `stored_later` says whether some run stored a result for that trial afterwards.
     """
     with open_store(folder) as store:
@@ -29,7 +29,7 @@ def study_records(folder: str | Path) -> StudyRecords:
             "LEFT JOIN declared d ON d.trial_id = f.trial_id ORDER BY f.failure_id"
         )
     failure_frame = pd.DataFrame.from_records(failures, columns=FAILURE_COLUMNS)
-    return StudyRecords(
+    return ExperimentRecords(
         runs=pd.DataFrame.from_records(runs, columns=RUN_COLUMNS),
         failures=failure_frame.astype({"stored_later": bool}),
         missing=missing_trials(folder),
@@ -48,8 +48,8 @@ def variant_params(store: Store) -> dict[str, dict]:
     return params
 
 
-def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple[ReportOutput, str]:
-    """Write the report of results/<study> into its report/ folder (or out_dir).
+def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> tuple[ReportOutput, str]:
+    """Write the report of results/<experiment> into its report/ folder (or out_dir).
 
     Returns the report output and a one-line note on declared trials with no stored result.
     """
@@ -58,9 +58,9 @@ def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple
         facts = store.facts()
         params = variant_params(store)
     frame = load_results(folder)
-    records = study_records(folder)
+    records = experiment_records(folder)
     missing = records.missing
-    study_facts = StudyFacts(
+    experiment_facts = ExperimentFacts(
         name=facts["name"],
         budget=facts["real_steps"],
         baseline=facts["baseline"],
@@ -74,15 +74,16 @@ def report_study(folder: str | Path, out_dir: str | Path | None = None) -> tuple
         description=str(facts.get("description") or ""),
         variant_params=params,
     )
-    output = write_report(frame, study_facts, Path(out_dir) if out_dir else folder / "report", records)
+    output = write_report(frame, experiment_facts, Path(out_dir) if out_dir else folder / "report", records)
     declared = frame["trial_id"].nunique() + len(missing)
     note = f"{declared - len(missing)} of {declared} declared trials have stored results"
     if len(missing):
-        note += f"; {len(missing)} missing (not run yet, interrupted or failed): run the study again to add them"
+        note += f"; {len(missing)} missing (not run yet, interrupted or failed): run the experiment again to add them"
     extra = records.undeclared
     if len(extra):
         kinds = sorted({f"{e} / {a}" for e, a in zip(extra["env"], extra["agent"], strict=True)})
-        note += f"\n{len(extra)} stored trials are no longer declared by the study file and are left out: " + "; ".join(
-            kinds
+        note += (
+            f"\n{len(extra)} stored trials are no longer declared by the experiment file and are left out: "
+            + "; ".join(kinds)
         )
     return output, note
