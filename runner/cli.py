@@ -15,11 +15,20 @@ from runner.errors import (
     ExperimentBusyError,
     StoreError,
     UnknownKindError,
+    UntrustedCodeError,
 )
 
 __all__ = ["main"]
 
-_USER_ERRORS = (ClusterError, ConfigError, EnvironmentSourceError, StoreError, ExperimentBusyError, UnknownKindError)
+_USER_ERRORS = (
+    ClusterError,
+    ConfigError,
+    EnvironmentSourceError,
+    StoreError,
+    ExperimentBusyError,
+    UnknownKindError,
+    UntrustedCodeError,
+)
 
 
 def _parser() -> argparse.ArgumentParser:

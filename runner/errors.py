@@ -8,6 +8,7 @@ __all__ = [
     "StoreError",
     "TrialTimeout",
     "UnknownKindError",
+    "UntrustedCodeError",
 ]
 
 
@@ -37,3 +38,7 @@ class ExperimentBusyError(RuntimeError):
 
 class TrialTimeout(TimeoutError):
     """A trial ran past the per-trial wall-clock limit."""
+
+
+class UntrustedCodeError(PermissionError):
+    """A stored spec names code outside stepmeter and the user did not say they trust the results folder."""
