@@ -17,6 +17,7 @@ from runner.errors import (
     UnknownKindError,
     UntrustedCodeError,
 )
+from runner.trust import TRUST_FLAG
 
 __all__ = ["main"]
 
@@ -75,6 +76,12 @@ def _parser() -> argparse.ArgumentParser:
     rerun.add_argument("--sample", type=int, default=None, metavar="K", help="check K stored trials at random")
     rerun.add_argument("--all", action="store_true", help="check every stored trial")
     rerun.add_argument("--seed", type=int, default=0, help="seed of the random sample (default 0)")
+    rerun.add_argument(
+        TRUST_FLAG,
+        action="store_true",
+        help="let stored specs import code outside stepmeter (your own agent kinds and environment classes); "
+        "only for results folders whose writers you trust",
+    )
 
     seeds = sub.add_parser("seeds", help="how many seeds an experiment needs to detect given AUC differences")
     seeds.add_argument("folder", help="a stored (pilot) experiment's results folder")
@@ -186,7 +193,7 @@ def _rerun(args: argparse.Namespace) -> int:
         print("stepmeter: error: rerun: give TRIAL_ID(s), --sample K or --all", file=sys.stderr)
         return 2
     ids = select_trials(Path(args.folder), args.trial_ids, args.sample, args.all, args.seed)
-    checks = rerun_trials(Path(args.folder), ids)
+    checks = rerun_trials(Path(args.folder), ids, trust_code=args.trust_code)
     for check in checks:
         verdict = "same rows bit for bit" if check.matched else f"DIFFERENT: {check.difference}"
         print(f"{check.trial_id}  {check.label}  ({check.trial_path} path): {verdict}")

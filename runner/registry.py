@@ -1,4 +1,4 @@
-"""A small lazy registry: names map to "package.module:Object" entry points, imported on first use."""
+"""A small lazy registry: names map to "package.module:Class" entry points, imported on first use."""
 
 from __future__ import annotations
 
@@ -12,27 +12,49 @@ from runner.errors import UnknownKindError
 __all__ = ["Registry", "import_entry_point"]
 
 
-def import_entry_point(entry_point: str) -> Any:
-    """Import "package.module:Object" and return the object; raise UnknownKindError when it is not there."""
+def _one_line(text: str) -> str:
+    return " ".join(str(text).split())
+
+
+def import_entry_point(entry_point: str, base: type | None = None, what: str = "") -> Any:
+    """Import "package.module:Name" and return the object; raise UnknownKindError when it is not there.
+
+    With `base`, the object must be a class derived from it (checked before anything is called), so an entry
+    point can never name a function such as `os:system`. Any error raised while importing the module becomes
+    one line.
+    """
     module_name, sep, attr = entry_point.partition(":")
     if not sep or not module_name or not attr:
-        raise UnknownKindError(f"expected an entry point of the form 'package.module:Name', got {entry_point!r}")
+        raise UnknownKindError(f"expected an entry point of the form 'package.module:Class', got {entry_point!r}")
     try:
         module = importlib.import_module(module_name)
     except ImportError as err:
         raise UnknownKindError(f"cannot import module {module_name!r} of entry point {entry_point!r}: {err}") from None
+    except (Exception, SystemExit) as err:  # a user's module may raise anything while it is imported
+        raise UnknownKindError(
+            f"importing module {module_name!r} of entry point {entry_point!r} failed: "
+            f"{type(err).__name__}: {_one_line(err)}"
+        ) from None
     try:
-        return getattr(module, attr)
+        found = getattr(module, attr)
     except AttributeError:
         raise UnknownKindError(f"module {module_name!r} has no {attr!r} (entry point {entry_point!r})") from None
+    if base is not None and not (isinstance(found, type) and issubclass(found, base)):
+        shown = "a class" if isinstance(found, type) else f"a {type(found).__name__}"
+        wanted = what or f"{base.__module__}.{base.__qualname__}"
+        raise UnknownKindError(f"entry point {entry_point!r} names {shown}, not a subclass of {wanted}")
+    return found
 
 
 @dataclass
 class Registry:
-    """Named entry points of one kind of thing (agent kinds, environment sources)."""
+    """Named entry points of one kind of thing (agent kinds, environment sources); `base` is the class every
+    entry must derive from."""
 
     what: str
     entries: dict[str, str]
+    base: type | None = None
+    base_name: str = ""
 
     def names(self) -> list[str]:
         """Registered names, sorted."""
@@ -41,10 +63,10 @@ class Registry:
     def load(self, name: str) -> Any:
         """The object registered under name; names with a colon are imported as entry points directly."""
         if ":" in name:
-            return import_entry_point(name)
+            return import_entry_point(name, self.base, self.base_name)
         if name not in self.entries:
             raise UnknownKindError(self.unknown_message(name))
-        return import_entry_point(self.entries[name])
+        return import_entry_point(self.entries[name], self.base, self.base_name)
 
     def unknown_message(self, name: str) -> str:
         """'unknown agent kind 'dyna'; did you mean 'dyna_q'?' with the list of known names."""

@@ -15,6 +15,7 @@ from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS
 from runner.provenance import platform_text, versions
 from runner.schedule import warm_up
 from runner.trial import run_trial
+from runner.trust import check_stored_spec
 
 __all__ = ["RerunCheck", "compare_rows", "rerun_trials", "select_trials"]
 
@@ -77,8 +78,13 @@ def select_trials(folder: str | Path, ids: list[str], sample: int | None, every:
     return chosen
 
 
-def rerun_trials(folder: str | Path, trial_ids: list[str]) -> list[RerunCheck]:
-    """Re-run each trial on the path it was stored from and compare its rows with the stored ones."""
+def rerun_trials(folder: str | Path, trial_ids: list[str], *, trust_code: bool = False) -> list[RerunCheck]:
+    """Re-run each trial on the path it was stored from and compare its rows with the stored ones.
+
+    Every chosen spec is checked first (`runner.trust.check_stored_spec`): one that no longer hashes to its id,
+    or that names code outside stepmeter without `trust_code`, stops the command before anything is imported
+    or run.
+    """
     columns = [c for c in METRIC_COLUMNS if c not in TIMING_COLUMNS]
     now_versions, now_platform = versions(), platform_text()
     records = []
@@ -89,6 +95,7 @@ def rerun_trials(folder: str | Path, trial_ids: list[str]) -> list[RerunCheck]:
                 "FROM trials t JOIN runs r ON r.run_id = t.run_id WHERE t.trial_id = ?",
                 (trial_id,),
             )[0]
+            check_stored_spec(trial_id, json.loads(spec), trust_code=trust_code, where=str(folder))
             rows = store.query(
                 f"SELECT {', '.join(columns)} FROM metrics WHERE trial_id = ? ORDER BY point", (trial_id,)
             )

@@ -12,7 +12,6 @@ from __future__ import annotations
 from typing import Any
 
 from runner.errors import StoreError, UntrustedCodeError
-from runner.plan import trial_id
 
 __all__ = ["TRUST_FLAG", "check_stored_spec", "code_named_by"]
 
@@ -40,6 +39,8 @@ def code_named_by(spec: dict[str, Any]) -> list[str]:
 
 def check_stored_spec(stored_id: str, spec: dict[str, Any], *, trust_code: bool, where: str) -> None:
     """Refuse a stored spec that no longer hashes to its id, or that names outside code without trust."""
+    from runner.plan import trial_id  # imported here so the command line can name TRUST_FLAG cheaply
+
     if trial_id(spec) != stored_id:
         raise StoreError(
             f"{where}: trial {stored_id}: its stored spec does not hash to its id (the store was edited); "

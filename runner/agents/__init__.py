@@ -21,15 +21,14 @@ AGENTS = Registry(
         "uct_search": "runner.agents.tree_search:UCTSearch",
         "puct_search": "runner.agents.tree_search:PUCTSearch",
     },
+    base=TabularAgent,
+    base_name="runner.agents.TabularAgent",
 )
 
 
 def agent_class(kind: str) -> type[TabularAgent]:
     """The class of a registered kind (or of a 'package.module:Class' entry point)."""
-    cls = AGENTS.load(kind)
-    if not (isinstance(cls, type) and issubclass(cls, TabularAgent)):
-        raise TypeError(f"{kind!r} is not a TabularAgent subclass")
-    return cls
+    return AGENTS.load(kind)
 
 
 def make_agent(kind: str, params: dict) -> TabularAgent:

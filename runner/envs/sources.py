@@ -56,7 +56,7 @@ def build_env(spec: dict[str, Any]) -> gym.Env:
     if source == "grid":
         env: gym.Env = GridWorld(spec["map"], changes=spec.get("changes"), **{k: spec[k] for k in GRID_PARAMS})
     elif source == "entry":
-        cls = import_entry_point(spec["entry"])
+        cls = import_entry_point(spec["entry"], gym.Env, "gymnasium.Env")
         try:
             env = cls(**(spec.get("options") or {}))
         except TypeError as err:
