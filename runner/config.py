@@ -8,7 +8,10 @@ from __future__ import annotations
 import difflib
 import hashlib
 import itertools
+import json
+import math
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -17,6 +20,19 @@ from runner.agents import agent_class
 from runner.envs.grid import GridMapError, parse_grid_map
 from runner.envs.sources import GRID_PARAMS, SOURCES, build_env, env_sizes, gym_reward_threshold, gym_spec
 from runner.errors import ConfigError, EnvironmentSourceError, UnknownKindError
+from runner.limits import (
+    MAX_ENVIRONMENTS,
+    MAX_EPISODES,
+    MAX_METRIC_ROWS,
+    MAX_POINTS_PER_TRIAL,
+    MAX_REAL_STEPS,
+    MAX_REWARD,
+    MAX_SEED,
+    MAX_STEP_CAP,
+    MAX_TRIALS,
+    MAX_VARIANTS,
+    ExperimentSize,
+)
 from runner.params import Param, check_value
 from runner.yaml_source import KeyPath, SourceText, format_path, read_yaml
 
@@ -35,7 +51,14 @@ _TOP_KEYS = (
     "baseline",
 )
 _ANALYSIS_SCHEMA = (
-    Param("consecutive", "int", 1, "evaluation points in a row the return must stay at the threshold", low=1),
+    Param(
+        "consecutive",
+        "int",
+        1,
+        "evaluation points in a row the return must stay at the threshold",
+        low=1,
+        high=MAX_POINTS_PER_TRIAL,
+    ),
     Param("resamples", "int", 2000, "bootstrap resamples behind every interval", low=100, high=1_000_000),
     Param("confidence", "float", 0.95, "confidence level of every interval", low=0.5, high=1.0, high_open=True),
 )
@@ -47,9 +70,9 @@ _DEFAULT_STEP_CAP = 1000
 
 _GRID_SCHEMA = (
     Param("slip", "float", 0.0, "chance a move from a slippery cell goes sideways", low=0.0, high=1.0),
-    Param("step_reward", "float", 0.0, "reward of an ordinary move"),
-    Param("goal_reward", "float", 1.0, "reward for entering the goal"),
-    Param("hazard_penalty", "float", -1.0, "reward for entering a hazard"),
+    Param("step_reward", "float", 0.0, "reward of an ordinary move", low=-MAX_REWARD, high=MAX_REWARD),
+    Param("goal_reward", "float", 1.0, "reward for entering the goal", low=-MAX_REWARD, high=MAX_REWARD),
+    Param("hazard_penalty", "float", -1.0, "reward for entering a hazard", low=-MAX_REWARD, high=MAX_REWARD),
     Param("hazard_ends", "bool", True, "whether entering a hazard ends the episode"),
 )
 
@@ -103,13 +126,19 @@ class Experiment:
     file: str
     text: str
     text_hash: str
-    seeds: tuple[int, ...]
+    seeds: Sequence[int]
     real_steps: int
     evaluation: Evaluation
     analysis: Analysis
     environments: tuple[EnvironmentDecl, ...]
     agents: tuple[AgentVariant, ...]
     baseline: str | None
+
+    @property
+    def size(self) -> ExperimentSize:
+        """Trials and expected metric rows, computed without expanding the seeds."""
+        trials = len(self.environments) * len(self.agents) * len(self.seeds)
+        return ExperimentSize(trials, self.real_steps // self.evaluation.every + 1)
 
 
 def load_experiment(path: str | Path) -> Experiment:
@@ -128,12 +157,13 @@ def load_experiment(path: str | Path) -> Experiment:
     if not isinstance(description, str):
         raise src.error(("description",), f"expected text, got {_kind(description)}")
     seeds = _seeds(src, _require(src, data, ("seeds",)))
-    real_steps = _positive_int(src, ("real_steps",), _require(src, data, ("real_steps",)))
+    real_steps = _positive_int(src, ("real_steps",), _require(src, data, ("real_steps",)), MAX_REAL_STEPS)
     evaluation = _evaluation(src, data.get("evaluation"), real_steps)
     analysis = _analysis(src, data.get("analysis"))
     environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
     agents = _agents(src, _require(src, data, ("agents",)))
     baseline = _baseline(src, data.get("baseline"), agents)
+    _check_size(src, len(environments), len(agents), len(seeds), real_steps // evaluation.every + 1)
     return Experiment(
         name=name,
         description=description,
@@ -179,10 +209,26 @@ def _no_unknown_keys(src: SourceText, data: dict, path: KeyPath, known: tuple[st
             raise src.error((*path, key), f"unknown key; {hint}expected one of {', '.join(known)}")
 
 
-def _positive_int(src: SourceText, path: KeyPath, value: Any) -> int:
+def _positive_int(src: SourceText, path: KeyPath, value: Any, most: int) -> int:
     if isinstance(value, bool) or not isinstance(value, int) or value < 1:
         raise src.error(path, f"expected a whole number >= 1, got {_kind(value)}")
+    if value > most:
+        raise src.error(path, f"expected a whole number at most {most:,}, got {value:,}")
     return value
+
+
+def _check_size(src: SourceText, envs: int, variants: int, seeds: int, points: int) -> None:
+    """Refuse experiments whose trials or metric rows the store and the report could not hold."""
+    size = ExperimentSize(envs * variants * seeds, points)
+    shape = f"{envs:,} environments x {variants:,} agent variants x {seeds:,} seeds"
+    if size.trials > MAX_TRIALS:
+        raise src.error(("seeds",), f"expected at most {MAX_TRIALS:,} trials, got {size.trials:,} ({shape})")
+    if size.metric_rows > MAX_METRIC_ROWS:
+        raise src.error(
+            ("evaluation", "every"),
+            f"expected at most {MAX_METRIC_ROWS:,} metric rows, got {size.metric_rows:,} ({shape} x {points:,} "
+            "evaluation points); evaluate less often or declare fewer trials",
+        )
 
 
 def _mapping(src: SourceText, path: KeyPath, value: Any) -> dict:
@@ -191,18 +237,26 @@ def _mapping(src: SourceText, path: KeyPath, value: Any) -> dict:
     return value
 
 
-def _seeds(src: SourceText, value: Any) -> tuple[int, ...]:
+def _seeds(src: SourceText, value: Any) -> Sequence[int]:
+    """A count becomes a range (never a list: `seeds: 1000000000` costs nothing until the trial cap refuses it)."""
     if isinstance(value, int) and not isinstance(value, bool):
         if value < 1:
             raise src.error(("seeds",), f"expected a count >= 1 or a list of seeds, got {value}")
-        return tuple(range(value))
+        if value > MAX_TRIALS:
+            raise src.error(("seeds",), f"expected at most {MAX_TRIALS:,} seeds, got {value:,}")
+        return range(value)
     if isinstance(value, list) and value:
+        seen: set[int] = set()
         for i, seed in enumerate(value):
             if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
                 raise src.error(("seeds", i), f"expected a whole number >= 0, got {_kind(seed)}")
-        if len(set(value)) != len(value):
-            dup = next(s for s in value if value.count(s) > 1)
-            raise src.error(("seeds",), f"expected distinct seeds, got {dup} more than once")
+            if seed > MAX_SEED:
+                raise src.error(
+                    ("seeds", i), f"expected a seed below 2**63 (the store keeps 64-bit integers), got {seed}"
+                )
+            if seed in seen:
+                raise src.error(("seeds",), f"expected distinct seeds, got {seed} more than once")
+            seen.add(seed)
         return tuple(value)
     raise src.error(("seeds",), f"expected a count >= 1 or a non-empty list of seeds, got {_kind(value)}")
 
@@ -211,13 +265,19 @@ def _evaluation(src: SourceText, value: Any, real_steps: int) -> Evaluation:
     path: KeyPath = ("evaluation",)
     data = _mapping(src, path, value if value is not None else {})
     _no_unknown_keys(src, data, path, _EVAL_KEYS)
-    every = _positive_int(src, (*path, "every"), data.get("every", max(1, real_steps // 20)))
+    every = _positive_int(src, (*path, "every"), data.get("every", max(1, real_steps // 20)), MAX_REAL_STEPS)
     if every > real_steps:
         raise src.error((*path, "every"), f"expected at most real_steps ({real_steps}), got {every}")
-    episodes = _positive_int(src, (*path, "episodes"), data.get("episodes", 10))
+    if real_steps // every + 1 > MAX_POINTS_PER_TRIAL:
+        raise src.error(
+            (*path, "every"),
+            f"expected at most {MAX_POINTS_PER_TRIAL:,} evaluation points per trial, got {real_steps // every + 1:,} "
+            f"(real_steps {real_steps:,} / every {every:,} + 1)",
+        )
+    episodes = _positive_int(src, (*path, "episodes"), data.get("episodes", 10), MAX_EPISODES)
     cap = data.get("step_cap")
-    step_cap = None if cap is None else _positive_int(src, (*path, "step_cap"), cap)
-    window = _positive_int(src, (*path, "training_window"), data.get("training_window", 10))
+    step_cap = None if cap is None else _positive_int(src, (*path, "step_cap"), cap, MAX_STEP_CAP)
+    window = _positive_int(src, (*path, "training_window"), data.get("training_window", 10), MAX_POINTS_PER_TRIAL)
     return Evaluation(every, episodes, step_cap, window)
 
 
@@ -237,11 +297,15 @@ def _analysis(src: SourceText, value: Any) -> Analysis:
 def _environments(src: SourceText, value: Any, evaluation: Evaluation, real_steps: int) -> tuple[EnvironmentDecl, ...]:
     if not isinstance(value, list) or not value:
         raise src.error(("environments",), f"expected a non-empty list of environments, got {_kind(value)}")
+    if len(value) > MAX_ENVIRONMENTS:
+        raise src.error(("environments",), f"expected at most {MAX_ENVIRONMENTS:,} environments, got {len(value):,}")
     out: list[EnvironmentDecl] = []
+    labels: set[str] = set()
     for i, item in enumerate(value):
         decl = _environment(src, ("environments", i), item, evaluation, real_steps)
-        if any(e.label == decl.label for e in out):
+        if decl.label in labels:
             raise src.error(("environments", i, "label"), f"expected a unique label, {decl.label!r} is used twice")
+        labels.add(decl.label)
         out.append(decl)
     return tuple(out)
 
@@ -258,10 +322,11 @@ def _environment(
     source = given[0]
     step_limit = data.get("step_limit")
     if step_limit is not None:
-        step_limit = _positive_int(src, (*path, "step_limit"), step_limit)
+        step_limit = _positive_int(src, (*path, "step_limit"), step_limit, MAX_STEP_CAP)
     options = data.get("options")
     if options is not None:
         _mapping(src, (*path, "options"), options)
+        _json_values(src, (*path, "options"), options)
         if source == "grid":
             raise src.error((*path, "options"), "expected no options beside a grid; put settings under grid")
     threshold: float | None = None
@@ -294,8 +359,12 @@ def _environment(
         raise src.error((*path, "label"), f"expected a non-empty text label, got {_kind(label)}")
     if "threshold" in data:
         raw = data["threshold"]
-        if raw is not None and (isinstance(raw, bool) or not isinstance(raw, (int, float))):
-            raise src.error((*path, "threshold"), f"expected a number (a return to reach), got {_kind(raw)}")
+        if raw is not None and (
+            isinstance(raw, bool) or not isinstance(raw, (int, float)) or not abs(raw) <= MAX_REWARD
+        ):
+            raise src.error(
+                (*path, "threshold"), f"expected a finite number in [-1e9, 1e9] (a return to reach), got {_kind(raw)}"
+            )
         threshold = None if raw is None else float(raw)
     _check_buildable(src, path, source, spec)
     step_cap = evaluation.step_cap or time_limit or _DEFAULT_STEP_CAP
@@ -339,7 +408,7 @@ def _grid_changes(
         ipath = (*path, i)
         data = _mapping(src, ipath, item)
         _no_unknown_keys(src, data, ipath, ("at", "map"))
-        at = _positive_int(src, (*ipath, "at"), _require(src, data, (*ipath, "at")))
+        at = _positive_int(src, (*ipath, "at"), _require(src, data, (*ipath, "at")), MAX_REAL_STEPS)
         if at >= real_steps:
             raise src.error((*ipath, "at"), f"expected a real step below real_steps ({real_steps}), got {at}")
         if changes and at <= changes[-1]["at"]:
@@ -356,6 +425,31 @@ def _grid_changes(
     return changes
 
 
+def _json_values(src: SourceText, path: KeyPath, value: Any) -> None:
+    """Options are stored in the trial spec as JSON: text, finite numbers that fit 64 bits, true/false, lists."""
+    if isinstance(value, dict):
+        for key, item in value.items():
+            _json_values(src, (*path, key), item)
+    elif isinstance(value, list):
+        for i, item in enumerate(value):
+            _json_values(src, (*path, i), item)
+    elif isinstance(value, bool) or value is None or isinstance(value, str):
+        return
+    elif isinstance(value, int):
+        if not -MAX_SEED - 1 <= value <= MAX_SEED:
+            raise src.error(path, f"expected a whole number that fits 64 bits, got {value}")
+    elif not isinstance(value, float) or not math.isfinite(value):
+        raise src.error(path, f"expected text, a finite number, true/false or a list, got {_kind(value)}")
+
+
+def _option_at_fault(spec: dict[str, Any], err: Exception) -> str | None:
+    """The option whose value an environment's KeyError or ValueError names, when exactly one does."""
+    named = err.args[0] if len(err.args) == 1 else None
+    options = spec.get("options") or {}
+    hits = [k for k, v in options.items() if isinstance(v, (str, int, float)) and v == named]
+    return hits[0] if len(hits) == 1 else None
+
+
 def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str, Any]) -> None:
     """Build the environment once; a failure points at its options when it has any."""
     at = (*path, "options") if spec.get("options") else (*path, source)
@@ -364,7 +458,15 @@ def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str
     except (EnvironmentSourceError, UnknownKindError) as err:
         raise src.error(at, str(err)) from None
     except Exception as err:  # user code or gymnasium may raise anything on bad options
-        raise src.error(at, f"could not build the environment: {type(err).__name__}: {err}") from None
+        what = spec.get("id") or spec.get("entry") or "the environment"
+        culprit = _option_at_fault(spec, err)
+        if culprit is not None:
+            raise src.error(
+                (*path, "options", culprit),
+                f"{what} does not accept {spec['options'][culprit]!r} here ({type(err).__name__}: "
+                f"{_short(err)}); see its documentation for the values it takes",
+            ) from None
+        raise src.error(at, f"could not build {what}: {type(err).__name__}: {_short(err)}") from None
     try:
         env_sizes(env)
     except EnvironmentSourceError as err:
@@ -373,26 +475,35 @@ def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str
         env.close()
 
 
+def _short(err: Exception, limit: int = 300) -> str:
+    text = " ".join(str(err).split())
+    return text if len(text) <= limit else text[:limit] + "..."
+
+
 def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
+    """Every agent variant; duplicates are found through a dict of canonical parameters (linear in variants)."""
     if not isinstance(value, list) or not value:
         raise src.error(("agents",), f"expected a non-empty list of agents, got {_kind(value)}")
     out: list[AgentVariant] = []
     entry_labels: set[str] = set()
+    seen: dict[str, str] = {}
     for i, item in enumerate(value):
         path: KeyPath = ("agents", i)
-        variants = _agent(src, path, item)
+        variants = _agent(src, path, item, MAX_VARIANTS - len(out))
         if variants[0].entry_label in entry_labels:
             raise src.error((*path, "label"), f"expected a unique label, {variants[0].entry_label!r} is used twice")
         entry_labels.add(variants[0].entry_label)
         for variant in variants:
-            twin = next((v for v in out if v.kind == variant.kind and v.params == variant.params), None)
-            if twin is not None:
-                raise src.error(path, f"expected distinct agents, this one repeats {twin.label!r} exactly")
+            key = json.dumps([variant.kind, variant.params], sort_keys=True)
+            if key in seen:
+                raise src.error(path, f"expected distinct agents, this one repeats {seen[key]!r} exactly")
+            seen[key] = variant.label
             out.append(variant)
     return tuple(out)
 
 
-def _agent(src: SourceText, path: KeyPath, value: Any) -> list[AgentVariant]:
+def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentVariant]:
+    """The variants of one agent entry (one per combination of listed values); at most `room` of them."""
     data = _mapping(src, path, value)
     _no_unknown_keys(src, data, path, _AGENT_KEYS)
     kind = _require(src, data, (*path, "kind"))
@@ -426,6 +537,13 @@ def _agent(src: SourceText, path: KeyPath, value: Any) -> list[AgentVariant]:
             if len(set(map(repr, checked))) != len(checked):
                 raise src.error(ppath, "expected distinct values to try, got a repeated value")
             grids[name] = checked
+            combos = math.prod(len(v) for v in grids.values())
+            if combos > room:
+                raise src.error(
+                    ppath,
+                    f"expected at most {MAX_VARIANTS:,} agent variants in all, these lists make {combos:,} "
+                    f"({' x '.join(str(len(v)) for v in grids.values())})",
+                )
         else:
             try:
                 fixed[name] = check_value(schema[name], raw)

@@ -7,7 +7,12 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["Param", "check_value", "describe_range", "resolve_params"]
+__all__ = ["FLOAT_CAP", "INT_CAP", "Param", "check_value", "describe_range", "resolve_params"]
+
+INT_CAP = 10**9
+"""Largest whole-number parameter when the schema sets no upper bound: counts and budgets stay in memory."""
+FLOAT_CAP = 1e12
+"""Largest magnitude of a number parameter on a side the schema leaves open: values stay far from overflow."""
 
 
 @dataclass(frozen=True)
@@ -75,6 +80,9 @@ def check_value(param: Param, value: Any) -> Any:
         raise ValueError(f"expected {param.expected()}, {got}")
     if param.high is not None and (value > param.high or (param.high_open and value == param.high)):
         raise ValueError(f"expected {param.expected()}, {got}")
+    cap = INT_CAP if param.type == "int" else FLOAT_CAP
+    if (param.high is None and value > cap) or (param.low is None and value < -cap):
+        raise ValueError(f"expected {param.expected()} of magnitude at most {cap:g}, {got}")
     return value
 
 

@@ -153,7 +153,7 @@ _CASES = [
         _TOP + "analysis:\n  consecutive: 0\n",
         5,
         "analysis.consecutive",
-        "expected a whole number in [1, inf), got 0",
+        "expected a whole number in [1, 100000], got 0",
     ),
     Case(
         "analysis-unknown-key", _TOP + "analysis: {resample: 10}\n", 4, "analysis.resample", "did you mean 'resamples'?"
@@ -296,4 +296,4 @@ def test_valid_example_thresholds_and_step_caps(tmp_path):
 )
 def test_seeds_count_expands_to_range(tmp_path, seeds, expected):
     text = _EXAMPLE.replace("seeds: 2\n", f"seeds: {seeds}\n")
-    assert load_experiment(_write(tmp_path, text)).seeds == expected
+    assert tuple(load_experiment(_write(tmp_path, text)).seeds) == expected
