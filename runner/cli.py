@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections import Counter
 from pathlib import Path
 
 from runner import __version__
@@ -59,6 +58,11 @@ def _parser() -> argparse.ArgumentParser:
         default=0.0,
         metavar="SECONDS",
         help="store a trial as failed when it runs longer than this many wall seconds (default: no limit)",
+    )
+    run.add_argument(
+        "--yes",
+        action="store_true",
+        help="run an experiment of more than 100,000 trials or 10 million metric rows without asking",
     )
     run.add_argument("--start-over", action="store_true", help="delete the experiment's stored results first")
     run.add_argument("--failed-only", action="store_true", help="run only trials that failed before")
@@ -128,7 +132,7 @@ def main(argv: list[str] | None = None) -> int:
             return _migrate(Path(args.folder))
         return _list(args.what)
     except _USER_ERRORS as err:
-        print(f"stepmeter: error: {err}", file=sys.stderr)
+        print(f"stepmeter: error: {' '.join(str(err).split())}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("stepmeter: stopped; finished trials are kept", file=sys.stderr)
@@ -161,8 +165,15 @@ def _run(args: argparse.Namespace) -> int:
         start_over=args.start_over,
         failed_only=args.failed_only,
         cluster=args.cluster,
+        assume_yes=args.yes,
     )
-    summary = run_experiment(args.experiment, results_root=args.results, options=options, command=" ".join(sys.argv))
+    summary = run_experiment(
+        args.experiment,
+        results_root=args.results,
+        options=options,
+        command=" ".join(sys.argv),
+        ask=_ask if sys.stdin.isatty() else None,
+    )
     if summary.interrupted:
         print(
             f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "
@@ -178,6 +189,14 @@ def _run(args: argparse.Namespace) -> int:
         print(f"{len(summary.failed)} trials failed; their errors are stored in {summary.folder}", file=sys.stderr)
         return 1
     return 0
+
+
+def _ask(question: str) -> bool:
+    """A yes/no question on the terminal; anything but y or yes is no."""
+    try:
+        return input(f"{question} [y/N] ").strip().lower() in ("y", "yes")
+    except EOFError:
+        return False
 
 
 def _rerun(args: argparse.Namespace) -> int:
@@ -249,23 +268,21 @@ def _seeds(args: argparse.Namespace) -> int:
 
 
 def _check(args: argparse.Namespace) -> int:
+    from runner.check_listing import check_listing
     from runner.config import load_experiment
-    from runner.plan import plan_trials
 
     experiment = load_experiment(args.experiment)
-    trials = plan_trials(experiment)
-    counts = Counter((t.env_label, t.agent_label) for t in trials)
+    size = experiment.size
     print(
         f"{experiment.file}: experiment {experiment.name!r} is valid: {len(experiment.environments)} environments x "
-        f"{len(experiment.agents)} agent variants x {len(experiment.seeds)} seeds = {len(trials)} trials of "
+        f"{len(experiment.agents)} agent variants x {len(experiment.seeds)} seeds = {size.trials} trials of "
         f"{experiment.real_steps} real steps"
     )
-    width = max(len(a.label) for a in experiment.agents)
-    for env in experiment.environments:
-        threshold = "none" if env.threshold is None else f"{env.threshold:g}"
-        print(f"  {env.label}  (threshold {threshold}; evaluation episodes cut at {env.step_cap} steps)")
-        for agent in experiment.agents:
-            print(f"    {agent.label:<{width}}  {counts[(env.label, agent.label)]} trials")
+    print(f"expected: {size.describe()}")
+    if size.needs_confirmation():
+        print("run will ask before starting an experiment this large (--yes answers for you)")
+    for line in check_listing(experiment):
+        print(line)
     print(f"baseline: {experiment.baseline or 'none'}")
     return 0
 

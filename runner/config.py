@@ -8,7 +8,6 @@ from __future__ import annotations
 import difflib
 import hashlib
 import itertools
-import json
 import math
 import re
 from collections.abc import Sequence
@@ -486,7 +485,7 @@ def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
         raise src.error(("agents",), f"expected a non-empty list of agents, got {_kind(value)}")
     out: list[AgentVariant] = []
     entry_labels: set[str] = set()
-    seen: dict[str, str] = {}
+    seen: dict[tuple, str] = {}
     for i, item in enumerate(value):
         path: KeyPath = ("agents", i)
         variants = _agent(src, path, item, MAX_VARIANTS - len(out))
@@ -494,7 +493,7 @@ def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
             raise src.error((*path, "label"), f"expected a unique label, {variants[0].entry_label!r} is used twice")
         entry_labels.add(variants[0].entry_label)
         for variant in variants:
-            key = json.dumps([variant.kind, variant.params], sort_keys=True)
+            key = (variant.kind, tuple(sorted(variant.params.items())))
             if key in seen:
                 raise src.error(path, f"expected distinct agents, this one repeats {seen[key]!r} exactly")
             seen[key] = variant.label

@@ -38,7 +38,8 @@ MAX_STEP_CAP = 10**9
 MAX_REWARD = 1e9
 """Largest magnitude of a grid reward or a threshold: sums of many such rewards stay exact in float64."""
 MAX_ENVIRONMENTS = 1_000
-MAX_VARIANTS = 100_000
+MAX_VARIANTS = 10_000
+"""Agent variants in all: `check` expands 10,000 in about a second, and no report of more is readable."""
 MAX_TRIALS = 1_000_000
 """Hard cap on trials: each is one row of the store's `declared` table and one planned spec in memory."""
 MAX_METRIC_ROWS = 50_000_000

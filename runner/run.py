@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import os
 import sys
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TextIO
 
 from runner.config import Experiment, load_experiment
+from runner.errors import ConfigError
+from runner.limits import CONFIRM_METRIC_ROWS, CONFIRM_TRIALS
 from runner.lock import ExperimentLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
@@ -66,6 +69,7 @@ class RunOptions:
     start_over: bool = False
     failed_only: bool = False
     cluster: str | None = None
+    assume_yes: bool = False
 
 
 def run_experiment(
@@ -75,13 +79,17 @@ def run_experiment(
     options: RunOptions = RunOptions(),
     command: str = "",
     stream: TextIO | None = None,
+    ask: Callable[[str], bool] | None = None,
 ) -> RunSummary:
     """Run every declared trial that is not stored yet; finished trials are committed one by one.
 
-    Only one run may write an experiment at a time (`ExperimentLock`); a second one is refused.
+    Only one run may write an experiment at a time (`ExperimentLock`); a second one is refused. An experiment
+    larger than the confirmation limits runs only with `options.assume_yes` or when `ask` (a yes/no question to
+    the user, given only on a terminal) says yes.
     """
     out = stream or sys.stdout
     experiment = load_experiment(path)
+    _confirm(experiment, options, ask)
     trials = plan_trials(experiment)
     folder = experiment_dir(results_root, experiment.name)
     with ExperimentLock(folder) as lock:
@@ -91,6 +99,20 @@ def run_experiment(
             remove_store(folder)
         with Store(folder, create=True) as store:
             return _run_locked(experiment, trials, store, folder, path, options, command, out)
+
+
+def _confirm(experiment: Experiment, options: RunOptions, ask: Callable[[str], bool] | None) -> None:
+    """Stop before anything is written when a large experiment was not confirmed."""
+    size = experiment.size
+    if options.assume_yes or not size.needs_confirmation():
+        return
+    what = (
+        f"{experiment.file}: experiment {experiment.name!r} declares {size.describe()}, "
+        f"over the {CONFIRM_TRIALS:,} trials or {CONFIRM_METRIC_ROWS:,} metric rows that run asks about"
+    )
+    if ask is not None and ask(f"{what}; run it?"):
+        return
+    raise ConfigError(f"{what}; not started (pass --yes to run it without asking)")
 
 
 def _run_locked(
