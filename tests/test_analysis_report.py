@@ -1,5 +1,8 @@
 """Tests for summary tables, figures and the written report folder."""
 
+import base64
+import re
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -217,7 +220,8 @@ def test_plot_curves_returns_png_and_svg(tmp_path):
         out_dir=tmp_path,
         title="cliff",
     )
-    assert [path.name for path in paths] == ["curves_CliffWalking-v1.png", "curves_CliffWalking-v1.svg"]
+    stem = f"curves_{safe_name('CliffWalking-v1')}"
+    assert [path.name for path in paths] == [f"{stem}.png", f"{stem}.svg"]
     svg = paths[1].read_text(encoding="utf-8")
     assert "real environment steps" in svg
     assert "mean greedy evaluation return" in svg
@@ -230,6 +234,43 @@ def test_palette_is_distinct_hex_colours():
     assert all(len(colour) == 7 and colour.startswith("#") for colour in PALETTE)
 
 
-def test_safe_name():
-    assert safe_name("FrozenLake-v1 4x4") == "FrozenLake-v1_4x4"
-    assert safe_name("../..") == "env"
+def test_safe_name_keeps_plain_names_and_hashes_the_rest():
+    assert safe_name("maze") == "maze"
+    assert safe_name("frozen-lake_v1.4x4") == "frozen-lake_v1.4x4"
+    assert re.fullmatch(r"FrozenLake-v1_4x4-[0-9a-f]{10}", safe_name("FrozenLake-v1 4x4"))
+    assert re.fullmatch(r"env-[0-9a-f]{10}", safe_name("../.."))
+    assert safe_name("maze-0123456789") != "maze-0123456789"  # a plain name cannot pose as a hashed one
+
+
+@pytest.mark.parametrize(
+    "labels",
+    [
+        ("floor A", "floor_A", "floor-A", "Floor_a", "floor a"),
+        ("\u5730\u9762", "\u5e8a", "\u043f\u043e\u043b", "\u03b4\u03ac\u03c0\u03b5\u03b4\u03bf"),
+        ("x" * 5000, "x" * 4999 + "y", "../" * 2000),
+    ],
+    ids=["spaces-and-case", "other-scripts", "very-long"],
+)
+def test_safe_names_are_unique_even_ignoring_case_and_bounded(labels):
+    names = [safe_name(label) for label in labels]
+    assert len({name.lower() for name in names}) == len(labels)
+    assert all(0 < len(name) <= 59 and re.fullmatch(r"[A-Za-z0-9._-]+", name) for name in names)
+
+
+def test_environments_whose_labels_clean_alike_keep_their_own_figures(tmp_path):
+    long_label = "floor " + "A" * 5000
+    renamed = {"FrozenLake-v1 4x4": "floor A", "CliffWalking-v1": "floor_A"}
+    frame = _frame().replace({"env": renamed})
+    extra = frame[frame["env"] == "floor A"].assign(env=long_label, trial_id=lambda f: f["trial_id"] + "-long")
+    frame = pd.concat([frame, extra], ignore_index=True)
+    envs = ["floor A", "floor_A", long_label]
+    facts = _facts(env_order=envs, thresholds={"floor A": 0.7, "floor_A": None, long_label: 0.7})
+    output = write_report(frame, facts, tmp_path)
+    curves = [tmp_path / f"curves_{safe_name(env)}.png" for env in envs]
+    assert len({path.name for path in curves}) == 3
+    assert all(path in output.files and path.is_file() for path in curves)
+    images = [path.read_bytes() for path in curves]
+    assert len(set(images)) == 3  # each file holds its own environment's figure (the titles differ)
+    html = (tmp_path / "report.html").read_text(encoding="utf-8")
+    positions = [html.index(base64.b64encode(image).decode("ascii")) for image in images]
+    assert positions == sorted(positions)  # in the order of the environments' sections

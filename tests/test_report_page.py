@@ -348,7 +348,7 @@ def test_old_style_facts_and_consecutive_points(tmp_path):
     assert "Caution." in (tmp_path / "one" / "report.html").read_text(encoding="utf-8")
     assert not list((tmp_path / "one").glob("model_error_*"))
     assert not list((tmp_path / "one").glob("budget_*"))  # a single planning_steps value makes no family
-    assert (tmp_path / "one" / "frontier_grid_A.png").is_file()
+    assert (tmp_path / "one" / f"frontier_{safe_name('grid A')}.png").is_file()
 
 
 def test_no_baseline_and_no_threshold_still_write_a_page(tmp_path):

@@ -6,6 +6,7 @@ same colour and marker in every figure of an environment: its position in the re
 
 from __future__ import annotations
 
+import hashlib
 import math
 import os
 import re
@@ -54,10 +55,23 @@ _GRID_COLOUR = "#dddddd"
 _DPI = 120
 
 
+_PLAIN_NAME = re.compile(r"^[a-z0-9][a-z0-9._-]{0,63}$")
+_HASHED_TAIL = re.compile(r"-[0-9a-f]{10}$")
+_STEM_CHARS = 48
+
+
 def safe_name(label: str) -> str:
-    """Turn a label into a file-name fragment made only of letters, digits, dots, dashes and underscores."""
-    cleaned = re.sub(r"[^A-Za-z0-9._-]+", "_", label).strip("._")
-    return cleaned or "env"
+    """A file-name fragment for a label, unique per label and at most 59 characters.
+
+    A short lower-case label of letters, digits, dots, dashes and underscores is its own name; any other
+    (spaces, capitals, other scripts, very long) becomes a cleaned stem plus ten hex digits of its SHA-256, so
+    'floor A' and 'floor_A', or two labels in other scripts, never share a file, even on a file system that
+    ignores case.
+    """
+    if _PLAIN_NAME.match(label) and not _HASHED_TAIL.search(label):
+        return label
+    stem = re.sub(r"[^A-Za-z0-9._-]+", "_", label).strip("._-")[:_STEM_CHARS].rstrip("._-") or "env"
+    return f"{stem}-{hashlib.sha256(label.encode('utf-8')).hexdigest()[:10]}"
 
 
 def agent_styles(agents: Sequence[str]) -> dict[str, tuple[str, str]]:
