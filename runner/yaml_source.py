@@ -22,7 +22,7 @@ MAX_FILE_BYTES = 1 << 20
 """An experiment file is a page or two of text; one MiB leaves room for long seed lists and maps."""
 MAX_DEPTH = 64
 """Deepest nesting of lists and mappings (the schema itself goes five levels deep)."""
-MAX_VALUES = 250_000
+MAX_VALUES = 100_000
 """Most values (scalars, lists, mappings) a file may hold once aliases are expanded: an alias bomb stops here."""
 
 _TAG = "tag:yaml.org,2002:"
@@ -134,7 +134,7 @@ def read_yaml(path: str | Path) -> SourceText:
     except yaml.MarkedYAMLError as err:
         mark = err.problem_mark or err.context_mark
         line = mark.line + 1 if mark else 1
-        problem = err.problem or err.context or "syntax error"
+        problem = ", ".join(part for part in (err.context, err.problem) if part) or "syntax error"
         raise ConfigError(f"{name}:{line}: not valid YAML: {_one_line(problem)}") from None
     except yaml.reader.ReaderError as err:
         line = text[: max(0, err.position)].count("\n") + 1

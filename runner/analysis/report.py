@@ -251,10 +251,17 @@ def _efficiency(crossings: pd.DataFrame, facts: ExperimentFacts, envs: list[str]
 
 
 def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts) -> pd.DataFrame:
-    """Welch-Holm tests and probability of improvement on AUC for every pair of variants, env by env."""
+    """Welch-Holm tests and probability of improvement on AUC for pairs of variants (`comparison_pairs`), env by env."""
     parts = [
         pairwise_welch(
-            scores, env, agents, "auc", confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
+            scores,
+            env,
+            agents,
+            "auc",
+            confidence=facts.confidence,
+            n_resamples=facts.n_resamples,
+            seed=facts.seed,
+            baseline=facts.baseline,
         )
         for env in envs
     ]
