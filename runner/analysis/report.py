@@ -15,7 +15,7 @@ import os
 import re
 import threading
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 import numpy as np
@@ -269,23 +269,43 @@ def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=PAIRWISE_COLUMNS)
 
 
+FIGURE_AGENTS = 12
+"""Most variants drawn in one figure (lines, bands, legend entries) or advised on in `seeds_advice.csv`; the
+other tables and CSVs keep every variant."""
+
+
+def _leading_agents(means: pd.Series, agents: list[str], baseline: str | None) -> list[str]:
+    """The baseline (when given) and the best variants by mean AUC, FIGURE_AGENTS in all, in `agents` order."""
+    best = means.sort_values(ascending=False, kind="stable").index.tolist()
+    chosen = [baseline] if baseline in best else []
+    chosen += [agent for agent in best if agent not in chosen][: FIGURE_AGENTS - len(chosen)]
+    kept = set(chosen)
+    return [agent for agent in agents if agent in kept]
+
+
 def _advice(
     frame: pd.DataFrame, scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts
 ) -> pd.DataFrame:
     """Seeds per agent needed to detect AUC differences of ADVICE_SHARES of each env's return range.
 
     Each agent is compared with the baseline, or with the first agent of the env when the baseline is absent.
+    Beyond FIGURE_AGENTS variants, only the ones the figures draw are advised on (the baseline and the best).
     """
     ranges = frame.groupby("env", sort=False)["eval_return"].agg(["min", "max"])
     parts = []
     for env in envs:
         span = float(ranges.loc[env, "max"] - ranges.loc[env, "min"])
-        env_agents = ordered_labels(scores.loc[scores["env"] == env, "agent"], agents)
+        in_env = scores[scores["env"] == env]
+        env_agents = ordered_labels(in_env["agent"], agents)
         if not math.isfinite(span) or span <= 0 or len(env_agents) < 2:
             continue
         reference = facts.baseline if facts.baseline in env_agents else env_agents[0]
+        if len(env_agents) > FIGURE_AGENTS:
+            means = in_env.groupby("agent", sort=False)["auc"].mean()
+            kept = _leading_agents(means, env_agents, reference)
+            in_env = in_env[in_env["agent"].isin(kept)]
         differences = [share * span for share in ADVICE_SHARES]
-        table = seeds_advice(scores, env, differences, baseline=reference, agent_order=agents)
+        table = seeds_advice(in_env, env, differences, baseline=reference, agent_order=agents)
         shares = dict(zip(differences, ADVICE_SHARES, strict=True))
         parts.append(table.assign(share_of_range=table["difference"].map(shares), return_range=span))
     if not parts:
@@ -485,12 +505,33 @@ class _Figures:
         self.files += paths
 
 
+def _figure_agents(env: str, agents: list[str], data: ReportTables, facts: ExperimentFacts) -> list[str]:
+    """The variants an environment's figures draw: all of them, or the baseline and the best by mean AUC.
+
+    A figure of 1,000 lines is unreadable and its legend alone takes minutes to lay out.
+    """
+    rows = data.summary[data.summary["env"] == env]
+    if len(rows) <= FIGURE_AGENTS:
+        return agents
+    return _leading_agents(rows.set_index("agent")["auc_mean"], agents, facts.baseline)
+
+
 def _env_figures(
-    env: str, agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: ExperimentFacts, out_dir: Path
+    env: str, all_agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: ExperimentFacts, out_dir: Path
 ) -> _Figures:
-    """Write every figure of one environment."""
+    """Write every figure of one environment (at most FIGURE_AGENTS variants in each, said in the title)."""
     figures = _Figures(png=dict.fromkeys(("curves", "threshold", "model_error", "budget", "frontier")))
+    agents = _figure_agents(env, all_agents, data, facts)
     title = f"{facts.name}: {env}"
+    if len(agents) < len(all_agents):
+        title += f" ({len(agents)} of {len(all_agents)} variants: baseline and best AUC)"
+        frame = frame[frame["agent"].isin(agents)]
+        data = replace(
+            data,
+            bands=data.bands[data.bands["agent"].isin(agents)],
+            crossings=data.crossings[data.crossings["agent"].isin(agents)],
+            frontier=data.frontier[data.frontier["agent"].isin(agents)],
+        )
     threshold = facts.thresholds.get(env)
     env_bands = data.bands[data.bands["env"] == env]
     figures.add(
