@@ -189,6 +189,11 @@ CASES = [
     ),
     Hostile("planning-steps-1e15", _agent(f"{{kind: dyna_q, params: {{planning_steps: {10**15}}}}}"), "at most 1e+09"),
     Hostile("initial-q-1e300", _agent("{kind: q_learning, params: {initial_q: 1.0e+300}}"), "at most 1e+12"),
+    Hostile(
+        "replay-buffer-a-billion",
+        _agent("{kind: replay_q_learning, params: {buffer_size: 1000000000}}"),
+        "expected a whole number in [1, 10000000], got 1000000000",
+    ),
     Hostile("unknown-param", _agent("{kind: dyna_q, params: {planing_steps: 5}}"), "did you mean 'planning_steps'?"),
     Hostile("unknown-agent-key", _agent("{kind: dyna_q, parms: {}}"), "did you mean 'params'?"),
     Hostile("agent-kind-number", _agent("{kind: 7}"), "expected an agent kind such as 'dyna_q', got 7"),

@@ -70,7 +70,9 @@ class ReplayQLearning(TabularAgent):
         GAMMA,
         EPSILON,
         INITIAL_Q,
-        Param("buffer_size", "int", 10_000, "real transitions kept for replay (oldest dropped first)", low=1),
+        Param(
+            "buffer_size", "int", 10_000, "real transitions kept for replay (oldest dropped first)", low=1, high=10**7
+        ),
         Param("replays", "int", 5, "replayed updates per real step (k)", low=0),
     )
 

@@ -169,7 +169,7 @@ _SHARED = (
         "search statistics fed into Q: none, or root (move Q(root, .) toward the search means by alpha)",
         choices=tuple(_FEEDBACK_CODES),
     ),
-    Param("node_capacity", "int", 1024, "most tree nodes per search (one node per state reached)", low=1),
+    Param("node_capacity", "int", 1024, "most tree nodes per search (one node per state reached)", low=1, high=10**6),
     Param(
         "unvisited",
         "choice",
