@@ -40,7 +40,6 @@ from runner.streams import uniform
 __all__ = ["run_kind_trial", "run_table_trial", "sample_outcome", "sample_start"]
 
 
-
 def agent_act(kind, arrays, hyper, state, stream):
     """The act kernel of agent kind `kind` (a compile-time literal); callable only from compiled code."""
     raise NotImplementedError("agent_act is resolved inside compiled code")
