@@ -201,6 +201,7 @@ def run_table_trial(
     n_actions = q.shape[1]
     started = _clock()
     cpu_started = _cpu_clock()
+    measured = 0.0
     earned = 0.0
     n_episodes = 0
     point = 0
@@ -232,6 +233,7 @@ def run_table_trial(
                 episode_length = 0
                 s = sample_start(start_cdf, env_stream)
         if step % every == 0:
+            measuring = _cpu_clock()
             rows[point, REAL_STEPS] = step
             rows[point, REWARD_EARNED] = earned
             rows[point, EPISODES] = n_episodes
@@ -251,7 +253,8 @@ def run_table_trial(
             rows[point, MODEL_REWARD_ERROR] = reward_error
             rows[point, ENV_PHASE] = phase
             rows[point, WALL_SECONDS] = _clock() - started
-            rows[point, CPU_SECONDS] = _cpu_clock() - cpu_started
+            rows[point, CPU_SECONDS] = measuring - cpu_started - measured
+            measured += _cpu_clock() - measuring
             point += 1
     return n_episodes
 

@@ -35,7 +35,7 @@ from runner.limits import (
 from runner.params import Param, check_value
 from runner.yaml_source import KeyPath, SourceText, format_path, read_yaml
 
-__all__ = ["AgentVariant", "Analysis", "EnvironmentDecl", "Evaluation", "Experiment", "load_experiment"]
+__all__ = ["AgentVariant", "Analysis", "Costs", "EnvironmentDecl", "Evaluation", "Experiment", "load_experiment"]
 
 _NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]{0,63}$")
 _TOP_KEYS = (
@@ -48,6 +48,7 @@ _TOP_KEYS = (
     "environments",
     "agents",
     "baseline",
+    "costs",
 )
 _ANALYSIS_SCHEMA = (
     Param(
@@ -61,6 +62,13 @@ _ANALYSIS_SCHEMA = (
     Param("resamples", "int", 2000, "bootstrap resamples behind every interval", low=100, high=1_000_000),
     Param("confidence", "float", 0.95, "confidence level of every interval", low=0.5, high=1.0, high_open=True),
 )
+_COSTS_SCHEMA = (
+    Param(
+        "real_step", "float", None, "what one real environment step costs, in `unit`", low=0.0, high=1e15, low_open=True
+    ),
+    Param("cpu_second", "float", None, "what one CPU-second costs, in `unit`", low=0.0, high=1e15, low_open=True),
+)
+_COST_UNIT = re.compile(r"^[^\x00-\x1f]{1,32}$")
 _EVAL_KEYS = ("every", "episodes", "step_cap", "training_window")
 _ENV_KEYS = ("label", "gym", "grid", "entry", "options", "step_limit", "threshold")
 _GRID_KEYS = ("map", *GRID_PARAMS, "changes")
@@ -93,6 +101,15 @@ class Analysis:
     consecutive: int = 1
     resamples: int = 2000
     confidence: float = 0.95
+
+
+@dataclass(frozen=True)
+class Costs:
+    """What a real step and a CPU-second cost the user, in one unit of their choice (minutes, euros...)."""
+
+    unit: str
+    real_step: float
+    cpu_second: float
 
 
 @dataclass(frozen=True)
@@ -132,6 +149,7 @@ class Experiment:
     environments: tuple[EnvironmentDecl, ...]
     agents: tuple[AgentVariant, ...]
     baseline: str | None
+    costs: Costs | None = None
 
     @property
     def size(self) -> ExperimentSize:
@@ -162,6 +180,7 @@ def load_experiment(path: str | Path) -> Experiment:
     environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
     agents = _agents(src, _require(src, data, ("agents",)))
     baseline = _baseline(src, data.get("baseline"), agents)
+    costs = _costs(src, data.get("costs"))
     _check_size(src, len(environments), len(agents), len(seeds), real_steps // evaluation.every + 1)
     return Experiment(
         name=name,
@@ -176,6 +195,7 @@ def load_experiment(path: str | Path) -> Experiment:
         environments=environments,
         agents=agents,
         baseline=baseline,
+        costs=costs,
     )
 
 
@@ -291,6 +311,25 @@ def _analysis(src: SourceText, value: Any) -> Analysis:
         except ValueError as err:
             raise src.error((*path, param.name), str(err)) from None
     return Analysis(**resolved)
+
+
+def _costs(src: SourceText, value: Any) -> Costs | None:
+    """The optional `costs` block: a unit name and the price of a real step and of a CPU-second in it."""
+    if value is None:
+        return None
+    path: KeyPath = ("costs",)
+    data = _mapping(src, path, value)
+    _no_unknown_keys(src, data, path, ("unit", *(p.name for p in _COSTS_SCHEMA)))
+    unit = _require(src, data, (*path, "unit"))
+    if not isinstance(unit, str) or not _COST_UNIT.match(unit.strip()):
+        raise src.error((*path, "unit"), f"expected the name of a unit (1 to 32 characters), got {_kind(unit)}")
+    prices = {}
+    for param in _COSTS_SCHEMA:
+        try:
+            prices[param.name] = float(check_value(param, _require(src, data, (*path, param.name))))
+        except ValueError as err:
+            raise src.error((*path, param.name), str(err)) from None
+    return Costs(unit=unit.strip(), **prices)
 
 
 def _environments(src: SourceText, value: Any, evaluation: Evaluation, real_steps: int) -> tuple[EnvironmentDecl, ...]:

@@ -34,7 +34,7 @@ METRICS = (
     Metric("model_reward_error", False, False, "mean absolute reward error of the learned model"),
     Metric("env_phase", True, False, "how many of the environment's change events have happened"),
     Metric("wall_seconds", False, True, "wall-clock seconds since the trial started"),
-    Metric("cpu_seconds", False, True, "CPU seconds the trial's process spent since the trial started"),
+    Metric("cpu_seconds", False, True, "CPU seconds spent acting, learning and planning (evaluation excluded)"),
 )
 
 METRIC_COLUMNS = tuple(m.name for m in METRICS)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import os
 import sys
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TextIO
 
@@ -48,6 +48,7 @@ def experiment_facts(experiment: Experiment) -> dict:
         "changes": {e.label: [c["at"] for c in e.spec.get("changes", [])] for e in experiment.environments},
         "resamples": experiment.analysis.resamples,
         "confidence": experiment.analysis.confidence,
+        "costs": asdict(experiment.costs) if experiment.costs else None,
     }
 
 

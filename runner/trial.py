@@ -176,8 +176,12 @@ def _run_gymnasium(
     earned = 0.0
     start = time.perf_counter()
     cpu_start = time.process_time()
+    measured = 0.0
 
     def record(point: int, steps: int) -> None:
+        nonlocal measured
+        measuring = time.process_time()
+        rows["cpu_seconds"][point] = measuring - cpu_start - measured
         rows["real_steps"][point] = steps
         rows["reward_earned"][point] = earned
         rows["episodes"][point] = len(returns)
@@ -191,7 +195,7 @@ def _run_gymnasium(
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
         rows["env_phase"][point] = phase
         rows["wall_seconds"][point] = time.perf_counter() - start
-        rows["cpu_seconds"][point] = time.process_time() - cpu_start
+        measured += time.process_time() - measuring
 
     try:
         record(0, 0)

@@ -14,7 +14,14 @@ import pandas as pd
 from runner.analysis.bootstrap import keyed_rng
 from runner.analysis.tables import format_number
 
-__all__ = ["EFFICIENCY_COLUMNS", "MIN_ESTIMABLE_SHARE", "efficiency_ratios", "efficiency_sentences"]
+__all__ = [
+    "EFFICIENCY_COLUMNS",
+    "MIN_ESTIMABLE_SHARE",
+    "efficiency_ratios",
+    "efficiency_sentences",
+    "seed_counts",
+    "weighted_km_medians",
+]
 
 EFFICIENCY_COLUMNS = [
     "env",
@@ -41,7 +48,7 @@ _TOLERANCE = 1e-10
 _BATCH = 512
 
 
-def _weighted_medians(times: np.ndarray, reached: np.ndarray, weights: np.ndarray) -> np.ndarray:
+def weighted_km_medians(times: np.ndarray, reached: np.ndarray, weights: np.ndarray) -> np.ndarray:
     """Kaplan-Meier median of steps to threshold for many integer-weighted copies of the same trials.
 
     A row of `weights` holds how often each trial appears in one resample; the median is the first event
@@ -74,7 +81,7 @@ def _weighted_medians(times: np.ndarray, reached: np.ndarray, weights: np.ndarra
     return medians
 
 
-def _seed_counts(n_seeds: int, n_resamples: int, rng: np.random.Generator) -> np.ndarray:
+def seed_counts(n_seeds: int, n_resamples: int, rng: np.random.Generator) -> np.ndarray:
     """How often each seed is drawn in each with-replacement resample, shape (n_resamples, n_seeds)."""
     picks = rng.integers(0, n_seeds, size=(n_resamples, n_seeds)) + n_seeds * np.arange(n_resamples)[:, None]
     return np.bincount(picks.ravel(), minlength=n_resamples * n_seeds).reshape(n_resamples, n_seeds).astype(float)
@@ -124,7 +131,7 @@ def _pair_row(
     reached = [frame["reached"].to_numpy(dtype=bool) for frame in (mine, theirs)]
     ones = np.ones((1, len(seeds)))
     agent_median, baseline_median = (
-        float(_weighted_medians(t, r, ones)[0]) for t, r in zip(times, reached, strict=True)
+        float(weighted_km_medians(t, r, ones)[0]) for t, r in zip(times, reached, strict=True)
     )
     row.update(agent_median=agent_median, baseline_median=baseline_median)
     row.update(agent_reached=int(reached[0].sum()), baseline_reached=int(reached[1].sum()))
@@ -136,9 +143,10 @@ def _pair_row(
         row["note"] = "; ".join(note for note in notes if note)
         return row
     row["ratio"] = baseline_median / agent_median
-    counts = _seed_counts(len(seeds), n_resamples, keyed_rng(seed, "efficiency", env, agent, baseline))
+    counts = seed_counts(len(seeds), n_resamples, keyed_rng(seed, "efficiency", env, agent, baseline))
     with np.errstate(divide="ignore", invalid="ignore"):
-        resampled = _weighted_medians(times[1], reached[1], counts) / _weighted_medians(times[0], reached[0], counts)
+        baseline_medians = weighted_km_medians(times[1], reached[1], counts)
+        resampled = baseline_medians / weighted_km_medians(times[0], reached[0], counts)
     finite = resampled[np.isfinite(resampled)]
     share = finite.size / n_resamples
     row["estimable_share"] = share

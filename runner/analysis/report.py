@@ -24,6 +24,17 @@ from scipy import special
 
 from runner.analysis.bootstrap import keyed_rng, mean_and_interval
 from runner.analysis.compare import PAIRWISE_COLUMNS, pairwise_welch
+from runner.analysis.costs import (
+    BREAK_EVEN_COLUMNS,
+    COST_COLUMNS,
+    Prices,
+    break_even_prices,
+    break_even_sentences,
+    cost_curves,
+    cost_trials,
+    decision_sentences,
+    total_costs,
+)
 from runner.analysis.curves import curve_bands, trial_scores
 from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
 from runner.analysis.page import (
@@ -39,6 +50,7 @@ from runner.analysis.plots import (
     BudgetReference,
     agent_styles,
     plot_budget,
+    plot_costs,
     plot_curves,
     plot_frontier,
     plot_model_error,
@@ -135,6 +147,14 @@ class ExperimentFacts:
     consecutive: int = 1
     description: str = ""
     variant_params: dict[str, dict] = field(default_factory=dict)
+    costs: dict[str, object] | None = None
+
+    @property
+    def prices(self) -> Prices:
+        """The user's prices from the experiment's `costs` block, or CPU-seconds alone without one."""
+        if not self.costs:
+            return Prices()
+        return Prices(str(self.costs["unit"]), float(self.costs["real_step"]), float(self.costs["cpu_second"]))
 
 
 @dataclass(frozen=True)
@@ -520,7 +540,7 @@ def _env_figures(
     env: str, all_agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: ExperimentFacts, out_dir: Path
 ) -> _Figures:
     """Write every figure of one environment (at most FIGURE_AGENTS variants in each, said in the title)."""
-    figures = _Figures(png=dict.fromkeys(("curves", "threshold", "model_error", "budget", "frontier")))
+    figures = _Figures(png=dict.fromkeys(("curves", "threshold", "model_error", "budget", "frontier", "costs")))
     agents = _figure_agents(env, all_agents, data, facts)
     title = f"{facts.name}: {env}"
     if len(agents) < len(all_agents):
@@ -589,12 +609,49 @@ def _env_figures(
                 title=title,
             ),
         )
+    cost_figure = _cost_figure(env, agents, data, facts, out_dir, title)
+    if cost_figure:
+        figures.add("costs", cost_figure)
     points = data.frontier[data.frontier["env"] == env]
     if len(points) and points["median_steps"].notna().any():
         figures.add(
             "frontier", plot_frontier(points, env, agents=agents, budget=facts.budget, out_dir=out_dir, title=title)
         )
     return figures
+
+
+def _cost_figure(
+    env: str, agents: list[str], data: ReportTables, facts: ExperimentFacts, out_dir: Path, title: str
+) -> list[Path]:
+    """Total cost against the price of a real step for one environment (no figure without CPU times)."""
+    priced = data.priced[data.priced["env"] == env] if len(data.priced) else data.priced
+    if priced.empty or not priced["reached"].any():
+        return []
+    prices = facts.prices
+    steps, cpu = priced["steps"].to_numpy(dtype=float), priced["cpu_seconds"].to_numpy(dtype=float)
+    scale = cpu[steps > 0] / steps[steps > 0]
+    scale = scale[scale > 0]
+    if scale.size == 0:
+        return []
+    marks = data.break_even[(data.break_even["env"] == env) & (data.break_even["rival"] == facts.baseline)]
+    found = marks.loc[marks["verdict"] == "above", "price"].to_numpy(dtype=float)
+    anchors = np.r_[scale, found, [prices.step_in_cpu_seconds or scale.min()]]
+    grid = np.geomspace(anchors.min() / 30.0, anchors.max() * 30.0, 60) * prices.cpu_second
+    curves = cost_curves(priced, env, agents, prices, grid, confidence=facts.confidence, seed=facts.seed)
+    return plot_costs(
+        curves,
+        env,
+        agents=agents,
+        unit=prices.unit,
+        user_price=prices.real_step,
+        crossings=[
+            (str(row["agent"]), float(row["price"]) * prices.cpu_second)
+            for _, row in marks.iterrows()
+            if row["verdict"] == "above"
+        ],
+        out_dir=out_dir,
+        title=title,
+    )
 
 
 def _reference(env: str, agents: list[str], data: ReportTables, facts: ExperimentFacts) -> BudgetReference | None:
@@ -636,6 +693,19 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         crossings = pd.DataFrame(columns=CROSSING_COLUMNS)
         tsummary = pd.DataFrame(columns=THRESHOLD_SUMMARY_COLUMNS)
     compute = compute_table(frame, envs, agents, facts)
+    priced = cost_trials(frame, crossings)
+    priced = priced[priced["cpu_seconds"].notna()] if len(priced) else priced
+    options = {"confidence": facts.confidence, "n_resamples": facts.n_resamples, "seed": facts.seed}
+    break_even = (
+        _sort_by_order(break_even_prices(priced, agents, facts.baseline, **options), envs, agents)
+        if len(priced)
+        else pd.DataFrame(columns=BREAK_EVEN_COLUMNS)
+    )
+    costs = (
+        _sort_by_order(total_costs(priced, facts.prices, agents, **options), envs, agents)
+        if len(priced) and facts.prices.real_step is not None
+        else pd.DataFrame(columns=COST_COLUMNS)
+    )
     return ReportTables(
         bands=bands,
         scores=scores,
@@ -647,7 +717,20 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         advice=_advice(frame, scores, envs, agents, facts),
         compute=compute,
         frontier=_frontier(compute, summary, tsummary, envs, agents),
+        break_even=break_even,
+        costs=costs,
+        priced=priced,
     )
+
+
+def _headline(data: ReportTables, facts: ExperimentFacts, labels: dict[str, str]) -> list[str]:
+    """The report's first sentences: the decision at the user's prices (when given), real-step ratios against
+    the baseline, then the break-even price of a real step for each agent against the baseline."""
+    decision = decision_sentences(data.costs, facts.prices) if len(data.costs) else []
+    ratios = efficiency_sentences(data.efficiency, labels) if len(data.efficiency) else []
+    against_baseline = data.break_even[data.break_even["rival"] == facts.baseline] if facts.baseline else None
+    prices = break_even_sentences(against_baseline, facts.prices) if against_baseline is not None else []
+    return [*decision, *ratios, *prices]
 
 
 def _markdown(
@@ -694,7 +777,10 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
         "comparisons.csv": data.comparisons,
         "seeds_advice.csv": data.advice,
         "frontier.csv": data.frontier,
+        "break_even.csv": data.break_even,
     }
+    if len(data.costs):
+        tables["costs.csv"] = data.costs
     return [_write_text_atomic(out_dir / name, table.to_csv(index=False)) for name, table in tables.items()]
 
 
@@ -718,7 +804,7 @@ def write_report(
     agents = ordered_labels(pd.unique(frame["agent"]), facts.agent_order)
     data = _analyse(frame, facts, envs, agents)
     labels = {env: _threshold_label(facts, env) for env in envs}
-    headline = efficiency_sentences(data.efficiency, labels) if len(data.efficiency) else []
+    headline = _headline(data, facts, labels)
     files: list[Path] = []
     pages = []
     for env in envs:
