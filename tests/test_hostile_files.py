@@ -64,8 +64,8 @@ CASES = [
     # the file itself
     Hostile("empty-file", "", "(top level): expected a mapping of experiment keys"),
     Hostile("only-a-comment", "# nothing here\n", "got nothing"),
-    Hostile("top-level-list", "- experiment: x\n", "baseline), got a list"),
-    Hostile("top-level-scalar", "just text\n", "baseline), got 'just text'"),
+    Hostile("top-level-list", "- experiment: x\n", "costs), got a list"),
+    Hostile("top-level-scalar", "just text\n", "costs), got 'just text'"),
     Hostile("binary-garbage", bytes(range(256)) * 8, "not valid YAML"),
     Hostile("invalid-utf8", b"experiment: caf\xe9\n", ":1: not valid YAML: expected UTF-8 text, got byte 0xe9"),
     Hostile("nul-character", "experiment: x\n\x00\n", ":2: not valid YAML: unacceptable character #x0000"),
@@ -258,6 +258,10 @@ CASES = [
     Hostile("entry-builtins-dict", _env("{entry: 'builtins:dict'}"), "names a class, not a subclass of gymnasium.Env"),
     Hostile("entry-no-colon", _env("{entry: os.system}"), "expected 'package.module:Class'"),
     Hostile("two-sources", _env("{grid: {map: S.G}, gym: FrozenLake-v1}"), "got gym and grid"),
+    # the costs block
+    Hostile("cost-price-nan", _OK + "costs: {unit: euros, real_step: .nan, cpu_second: 0.01}\n", "costs.real_step"),
+    Hostile("cost-price-negative", _OK + "costs: {unit: euros, real_step: -1, cpu_second: 0.01}\n", "costs.real_step"),
+    Hostile("costs-a-list", _OK + "costs: [1, 2]\n", "costs"),
     # names, text and the rest
     Hostile(
         "name-with-slash", _OK.replace("experiment: hostile", "experiment: ../../etc"), "experiment: expected a name"
