@@ -109,10 +109,14 @@ def cost_trials(frame: pd.DataFrame, crossings: pd.DataFrame) -> pd.DataFrame:
     return merged[COST_TRIAL_COLUMNS]
 
 
-def _paired(trials: pd.DataFrame, agent: str, rival: str) -> tuple[pd.DataFrame, pd.DataFrame]:
+def _by_agent(trials: pd.DataFrame) -> dict[str, pd.DataFrame]:
+    """Each agent's trials indexed by seed, split once (looking agents up one by one is quadratic in agents)."""
+    return {str(agent): side.set_index("seed") for agent, side in trials.groupby("agent", sort=False)}
+
+
+def _paired(sides: dict[str, pd.DataFrame], agent: str, rival: str) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The trials of `agent` and `rival` on the seeds both ran, indexed by seed in the same order."""
-    mine = trials[trials["agent"] == agent].set_index("seed")
-    theirs = trials[trials["agent"] == rival].set_index("seed")
+    mine, theirs = sides[agent], sides[rival]
     seeds = [seed for seed in theirs.index if seed in mine.index]
     return mine.loc[seeds], theirs.loc[seeds]
 
@@ -156,10 +160,11 @@ def total_costs(
     rows = []
     ones = None
     for env, env_trials in trials.groupby("env", sort=False):
-        present = [agent for agent in agents if agent in set(env_trials["agent"])]
+        sides = _by_agent(env_trials)
+        present = [agent for agent in agents if agent in sides]
         medians = {}
         for agent in present:
-            side = env_trials[env_trials["agent"] == agent]
+            side = sides[agent]
             ones = np.ones((1, len(side)))
             medians[agent] = (
                 float(_medians(side, "steps", ones)[0]),
@@ -180,21 +185,28 @@ def total_costs(
             elif not others:
                 row["note"] = "no other agent has a defined median cost"
             else:
-                row.update(_cost_difference(env_trials, agent, others[0], prices, confidence, n_resamples, seed))
+                row.update(_cost_difference(sides, env, agent, others[0], prices, confidence, n_resamples, seed))
             rows.append(row)
     return pd.DataFrame.from_records(rows, columns=COST_COLUMNS)
 
 
 def _cost_difference(
-    env_trials: pd.DataFrame, agent: str, rival: str, prices: Prices, confidence: float, n_resamples: int, seed: int
+    sides: dict[str, pd.DataFrame],
+    env: object,
+    agent: str,
+    rival: str,
+    prices: Prices,
+    confidence: float,
+    n_resamples: int,
+    seed: int,
 ) -> dict[str, object]:
     """Median total cost of `agent` minus `rival`'s on their paired seeds, with a paired percentile interval."""
-    mine, theirs = _paired(env_trials, agent, rival)
+    mine, theirs = _paired(sides, agent, rival)
     out: dict[str, object] = {"rival": rival}
     if mine.empty:
         out["note"] = f"no seed was run by both {agent} and {rival}"
         return out
-    env = str(env_trials["env"].iloc[0])
+    env = str(env)
     weights = np.vstack([np.ones(len(mine)), seed_counts(len(mine), n_resamples, keyed_rng(seed, "cost", env, agent))])
     reached = [side["reached"].to_numpy(dtype=bool) for side in (mine, theirs)]
     difference = weighted_km_medians(_totals(mine, prices), reached[0], weights) - weighted_km_medians(
@@ -218,19 +230,22 @@ def _break_even(steps_saved: np.ndarray, extra_cpu: np.ndarray) -> np.ndarray:
     return np.where(np.isnan(steps_saved) | np.isnan(extra_cpu), np.nan, price)
 
 
-def _rivals(trials: pd.DataFrame, agents: Sequence[str], baseline: str | None) -> list[tuple[str, str]]:
+def _rivals(sides: dict[str, pd.DataFrame], agents: Sequence[str], baseline: str | None) -> list[tuple[str, str]]:
     """Pairs to price: every agent against the baseline, and each agent against its nearest rival that needs
     more real steps (the next one up when agents are ranked by median steps)."""
-    present = [agent for agent in agents if agent in set(trials["agent"])]
-    pairs = [(agent, baseline) for agent in present if baseline in present and agent != baseline]
+    present = [agent for agent in agents if agent in sides]
+    has_baseline = baseline in set(present)
+    pairs = [(agent, baseline) for agent in present if has_baseline and agent != baseline]
+    chosen = set(pairs)
     medians = {}
     for agent in present:
-        side = trials[trials["agent"] == agent]
+        side = sides[agent]
         medians[agent] = float(_medians(side, "steps", np.ones((1, len(side))))[0])
     ladder = sorted((steps, agent) for agent, steps in medians.items() if np.isfinite(steps))
     for (_, better), (_, worse) in itertools.pairwise(ladder):
-        if worse != baseline and (better, worse) not in pairs:
+        if worse != baseline and (better, worse) not in chosen:
             pairs.append((better, worse))
+            chosen.add((better, worse))
     return pairs
 
 
@@ -252,8 +267,9 @@ def break_even_prices(
     """
     rows = []
     for env, env_trials in trials.groupby("env", sort=False):
-        for agent, rival in _rivals(env_trials, agents, baseline):
-            mine, theirs = _paired(env_trials, agent, rival)
+        sides = _by_agent(env_trials)
+        for agent, rival in _rivals(sides, agents, baseline):
+            mine, theirs = _paired(sides, agent, rival)
             row: dict[str, object] = {"env": env, "agent": agent, "rival": rival, "confidence": confidence}
             row.update(steps_saved=np.nan, extra_cpu_seconds=np.nan, price=np.nan, low=np.nan, high=np.nan)
             row.update(verdict="undefined", estimable_share=np.nan, note="")
