@@ -206,7 +206,8 @@ def pairwise_welch(
     """
     in_env = scores[scores["env"] == env]
     agents = ordered_labels(in_env["agent"], agent_order)
-    values = {agent: in_env.loc[in_env["agent"] == agent, metric].to_numpy(dtype=float) for agent in agents}
+    groups = {agent: side[metric].to_numpy(dtype=float) for agent, side in in_env.groupby("agent", sort=False)}
+    values = {agent: groups[agent] for agent in agents}
     means = {agent: float(values[agent].mean()) for agent in agents}
     rows = []
     for first, second in comparison_pairs(means, baseline):
