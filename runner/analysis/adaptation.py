@@ -35,7 +35,7 @@ __all__ = [
 
 _TRIAL_KEYS = ["env", "agent", "kind", "trial_id", "seed"]
 _CHANGE_KEYS = ["env", "change", "at", "phase_end", "first_point"]
-RECOVERY_COLUMNS = [*_TRIAL_KEYS, *_CHANGE_KEYS, "steps", "reached"]
+RECOVERY_COLUMNS = [*_TRIAL_KEYS, *_CHANGE_KEYS[1:], "steps", "reached"]
 RECOVERY_SUMMARY_COLUMNS = [*_CHANGE_KEYS, *(c for c in THRESHOLD_SUMMARY_COLUMNS if c != "env")]
 RECOVERY_RATIO_COLUMNS = [*_CHANGE_KEYS, *(c for c in EFFICIENCY_COLUMNS if c != "env")]
 WINDOW_NAMES = ("before", "just after", "end of phase")
@@ -236,11 +236,18 @@ def adaptation_sentences(summary: pd.DataFrame, threshold_text: Mapping[str, str
         first = ranked.iloc[0]
         left = int(first["phase_end"]) - int(first["at"])
         which = "" if summary.loc[summary["env"] == env, "change"].nunique() == 1 else f" (change {int(change)})"
-        parts = "; ".join(_agent_part(row) for _, row in ranked.iterrows())
+        regained = ranked[ranked["reached"] > 0]
+        parts = [_agent_part(row) for _, row in regained.iterrows()]
+        never = ranked[ranked["reached"] == 0]
+        if len(never):
+            counts = sorted({int(n) for n in never["trials"]})
+            of = f"{counts[0]} seeds" if len(counts) == 1 else "all their seeds"
+            names = ", ".join(str(agent) for agent in never["agent"])
+            parts.append(f"not by {names} (0 of {of}{' each' if len(never) > 1 else ''})")
         sentences.append(
             f"On {env}, after the map changed at {_steps_text(first['at'])} real steps{which}, "
             f"{threshold_text.get(env, 'the threshold')} was regained within the {_steps_text(left)} steps "
-            f"left in the phase by: {parts} ({confidence:.0%} intervals; Kaplan-Meier, seeds that never "
+            f"left in the phase by: {'; '.join(parts)} ({confidence:.0%} intervals; Kaplan-Meier, seeds that never "
             "regained it censored at the phase end)."
         )
     return sentences
