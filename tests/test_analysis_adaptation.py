@@ -130,7 +130,7 @@ def test_windows_show_the_drop_and_the_recovery():
 
     def share_back(recoveries, start, stop):
         """Mean over seeds of the share of points in (start, stop] at which a seed is back at 1."""
-        points = range(start + _EVERY, stop + 1, _EVERY)
+        points = [s for s in _STEPS if start < s <= stop]
         return np.mean([np.mean([r is not None and s - _CHANGE >= r for s in points]) for r in recoveries])
 
     assert table.loc[("fast", "just after"), "mean"] == pytest.approx(share_back(_FAST, 3000, 3750))
