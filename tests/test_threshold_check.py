@@ -46,8 +46,8 @@ def test_best_return_and_rate_on_a_deterministic_maze_follow_the_shortest_path(s
     episode = goal_reward + step_reward * (d - 1)
     assert best_return(table, 100) == pytest.approx(episode)
     assert best_return(table, d) == pytest.approx(episode)
-    # one step short of the goal: only step rewards, at best d - 1 of them
-    assert best_return(table, d - 1) == pytest.approx(max(step_reward * (d - 1), episode if d - 1 >= d else -1e9))
+    # one step short of the goal: only step rewards (every move, into a wall or not, earns the step reward)
+    assert best_return(table, d - 1) == pytest.approx(step_reward * (d - 1))
     if episode > 0:
         assert best_earning_rate(table) == pytest.approx(episode / d, rel=1e-3)
 
@@ -104,7 +104,7 @@ def test_check_warns_about_thresholds_above_the_best_possible(tmp_path):
     assert result.returncode == 0, result.stderr
     warnings = [line for line in result.stdout.splitlines() if "warning:" in line]
     # phase 1: 4 steps to the goal, return 1 - 0.3 = 0.7 < 0.8, rate 0.7 / 4 = 0.175 >= 0.15
-    # phase 2: the goal cannot be reached; the best is never to move into the wall... 20 steps of -0.1
+    # phase 2: the goal cannot be reached, so the best is 20 steps of -0.1 and a rate of -0.1 per step
     assert warnings[0] == (
         "reach.yaml:14: environments[0].threshold: warning: 0.8 is above the best possible expected return in "
         "phase 1 (before the change at 1,000 real steps), 0.7 within the evaluation cap of 20 steps (solved on "
