@@ -343,14 +343,15 @@ def windows_view(rows: pd.DataFrame) -> TableView:
     return _view(rows, columns, note, "The measure around each change")
 
 
-def comparisons_view(rows: pd.DataFrame, confidence: float) -> TableView:
-    """Welch-Holm tests and probability of improvement on AUC for every pair of agents of one environment."""
+def comparisons_view(rows: pd.DataFrame, confidence: float, score: str = "AUC") -> TableView:
+    """Welch-Holm tests and probability of improvement on a per-trial score (AUC, or reward earned per real
+    step when that is the primary measure) for every pair of agents of one environment."""
     alpha = 1.0 - confidence
     columns: list[_Column] = [
         ("agent A", False, lambda r: str(r["agent_a"])),
         ("agent B", False, lambda r: str(r["agent_b"])),
-        ("mean AUC A", True, lambda r: _number(r["mean_a"])),
-        ("mean AUC B", True, lambda r: _number(r["mean_b"])),
+        (f"mean {score} A", True, lambda r: _number(r["mean_a"])),
+        (f"mean {score} B", True, lambda r: _number(r["mean_b"])),
         ("A - B", True, lambda r: _number(r["difference"])),
         ("Welch t (df)", True, lambda r: "n/a" if pd.isna(r["t"]) else f"{r['t']:.2f} ({r['df']:.1f})"),
         ("p", True, lambda r: _p_value(r["p_value"])),
@@ -367,11 +368,11 @@ def comparisons_view(rows: pd.DataFrame, confidence: float) -> TableView:
         ),
     ]
     note = (
-        "Welch's t-test on AUC (unequal variances), Holm-adjusted over the pairs of this environment so the chance "
-        f"of any false alarm stays at {alpha:.0%}. P(A > B): chance that a random trial of A scores a higher AUC "
-        "than one of B (ties count half), with a bootstrap interval; 0.5 means no tendency either way."
+        f"Welch's t-test on {score} (unequal variances), Holm-adjusted over the pairs of this environment so the "
+        f"chance of any false alarm stays at {alpha:.0%}. P(A > B): chance that a random trial of A scores a higher "
+        f"{score} than one of B (ties count half), with a bootstrap interval; 0.5 means no tendency either way."
     )
-    return _view(rows, columns, note, "Are the differences real? (AUC)")
+    return _view(rows, columns, note, f"Are the differences real? ({score})")
 
 
 def frontier_view(rows: pd.DataFrame) -> TableView:
@@ -447,7 +448,8 @@ def env_views(data: ReportTables, facts: ExperimentFacts, env: str) -> dict[str,
     efficiency = _env_rows(data.efficiency, env)
     views["efficiency"] = efficiency_view(efficiency) if len(efficiency) else None
     comparisons = _env_rows(data.comparisons, env)
-    views["comparisons"] = comparisons_view(comparisons, facts.confidence) if len(comparisons) else None
+    score = "AUC" if facts.measure == "greedy_return" else "reward per real step"
+    views["comparisons"] = comparisons_view(comparisons, facts.confidence, score) if len(comparisons) else None
     frontier = _env_rows(data.frontier, env)
     views["frontier"] = frontier_view(frontier) if len(frontier) else None
     earnings = _env_rows(data.earnings, env)
@@ -582,7 +584,7 @@ _FIGURE_TEXT = {
     "curves": (
         "Learning curves",
         "Mean greedy evaluation return against real environment steps; shaded: bootstrap interval over seeds; "
-        "dotted vertical lines: the map changes, labelled with the phase they start.",
+        "dotted vertical lines: the map changes, labelled with the phase they start (phase 1 is the first map).",
     ),
     "earning": (
         "Reward earned while learning",

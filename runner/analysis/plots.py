@@ -148,7 +148,7 @@ def _draw(
     for i, step in enumerate(changes):
         axes.axvline(step, color="#555555", linestyle=":", linewidth=1.2, label="the map changes" if i == 0 else None)
         axes.annotate(
-            f"phase {i + 1} from {step:,}",
+            f"phase {i + 2} from {step:,}",
             xy=(step, 1.0),
             xycoords=("data", "axes fraction"),
             xytext=(3, -3),

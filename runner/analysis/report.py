@@ -262,6 +262,17 @@ def _threshold_label(facts: ExperimentFacts, env: str) -> str:
     return f"{MEASURES[facts.measure].threshold_text(value)}{held}"
 
 
+def _earned_per_step(frame: pd.DataFrame) -> pd.DataFrame:
+    """Per trial: reward earned while learning over its real steps (the mean of its earning-rate curve)."""
+    last = frame.loc[
+        frame.groupby("trial_id", sort=False)["point"].idxmax(), ["trial_id", "real_steps", "reward_earned"]
+    ]
+    steps = last["real_steps"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rate = np.where(steps > 0, last["reward_earned"].to_numpy(dtype=float) / steps, np.nan)
+    return pd.DataFrame({"trial_id": last["trial_id"].to_numpy(), "earned_per_step": rate})
+
+
 def _first_points(frame: pd.DataFrame) -> dict[str, float]:
     """Each environment's first evaluation step after 0: a crossing there only says "at or before" it."""
     positive = frame.loc[frame["real_steps"] > 0, ["env", "real_steps"]]
@@ -338,10 +349,12 @@ def _adaptation(
 
 
 def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts) -> pd.DataFrame:
-    """Welch-Holm tests and probability of improvement on AUC for every pair of variants, env by env."""
+    """Welch-Holm tests and probability of improvement for every pair of variants, env by env, on the primary
+    measure's per-trial score: AUC of the greedy return, or reward earned per real step over the whole trial."""
+    metric = "auc" if facts.measure == GREEDY_RETURN else "earned_per_step"
     parts = [
         pairwise_welch(
-            scores, env, agents, "auc", confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
+            scores, env, agents, metric, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
         )
         for env in envs
     ]
@@ -676,6 +689,8 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
     """Every table of the report, computed once and shared by the CSV, Markdown, figures and page."""
     bands = curve_bands(frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed)
     scores = trial_scores(frame)
+    if "reward_earned" in frame.columns:
+        scores = scores.merge(_earned_per_step(frame), on="trial_id", how="left")
     summary = summary_table(
         scores,
         agent_order=agents,
