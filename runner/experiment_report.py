@@ -75,6 +75,7 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
         n_resamples=int(facts.get("resamples", 2000)),
         description=str(facts.get("description") or ""),
         variant_params=params,
+        costs=facts.get("costs"),
     )
     output = write_report(frame, experiment_facts, Path(out_dir) if out_dir else folder / "report", records)
     declared = frame["trial_id"].nunique() + len(missing)

@@ -89,6 +89,7 @@ def test_write_report_writes_every_file(tmp_path):
             "comparisons",
             "seeds_advice",
             "frontier",
+            "break_even",
         )
     }
     figures = {env: ["curves", "budget"] for env in _ENVS}

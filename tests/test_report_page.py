@@ -79,6 +79,7 @@ def _frame(seed: int = 1) -> pd.DataFrame:
                             "model_tv_error": float(error[point]) if has_model and point > 0 else float("nan"),
                             "model_reward_error": float("nan"),
                             "wall_seconds": 1e-5 * steps[point] * (1 + planning) + 0.001 * rng.uniform(),
+                            "cpu_seconds": 0.9e-5 * steps[point] * (1 + planning),
                         }
                     )
     return pd.DataFrame(rows)
@@ -94,6 +95,7 @@ def _facts(**overrides: object) -> ExperimentFacts:
         "agent_order": list(_LABELS),
         "n_resamples": 300,
         "description": "Synthetic <b>experiment</b> & friends, to check the page escapes text.",
+        "costs": {"unit": "minutes", "real_step": 0.01, "cpu_second": 0.02},
     }
     values.update(overrides)
     return ExperimentFacts(**values)  # type: ignore[arg-type]
@@ -156,8 +158,10 @@ def _expected_files() -> set[str]:
         "comparisons.csv",
         "seeds_advice.csv",
         "frontier.csv",
+        "break_even.csv",
+        "costs.csv",
     }
-    stems = {"grid A": ["curves", "threshold", "model_error", "budget", "frontier"]}
+    stems = {"grid A": ["curves", "threshold", "model_error", "budget", "frontier", "costs"]}
     stems["grid B & co"] = ["curves", "model_error", "budget"]  # no threshold: no KM or frontier figure
     for env, env_stems in stems.items():
         names |= {f"{stem}_{safe_name(env)}.{ext}" for stem in env_stems for ext in ("png", "svg")}
@@ -202,10 +206,15 @@ def test_efficiency_headline_and_terminal_text(report):
     assert (ratios["baseline"] == "Q-learning").all()
     by_agent = ratios.set_index("agent")
     assert by_agent.loc["Dyna-Q (planning_steps=50)", "ratio"] > 1.5
-    assert len(output.headline) == len(ratios) > 0
-    assert output.headline == efficiency_sentences(
+    # With a costs block the headline opens with the decision, then the real-step ratios, then break-even prices.
+    decision, *rest = output.headline
+    assert decision.startswith("On grid A, at 0.01 minutes per real step and 0.02 minutes per CPU-second, ")
+    assert "reaches the threshold at the lowest total cost" in decision
+    assert rest[: len(ratios)] == efficiency_sentences(
         ratios.astype({"includes_one": "boolean"}), {"grid A": "a return of 0.7"}
     )
+    break_even = pd.read_csv(out_dir / "break_even.csv")
+    assert len(rest) == len(ratios) + int((break_even["rival"] == "Q-learning").sum())
     assert output.terminal_text.startswith(output.headline[0])
     assert "page experiment (budget 2000 real steps" in output.terminal_text
     markdown = (out_dir / "summary.md").read_text(encoding="utf-8")
@@ -427,5 +436,9 @@ def test_report_of_a_stored_experiment_carries_its_records(tmp_path):
     assert "experiment: smoke" in html  # the experiment file text from the run's provenance
     assert "planning_steps: [0, 5, 50]" in html
     assert "complete" in html
-    assert len(output.headline) == len(pd.read_csv(out_dir / "efficiency.csv")) >= 4
-    assert sum(sentence.startswith("On maze,") for sentence in output.headline) == 4  # dyna x 3 and ce against q
+    ratios = pd.read_csv(out_dir / "efficiency.csv")
+    break_even = pd.read_csv(out_dir / "break_even.csv")
+    assert len(ratios) >= 4 and (break_even["rival"] == "q").sum() == len(ratios)
+    assert len(output.headline) == 2 * len(ratios)  # no costs block: ratios, then break-even prices
+    # On the maze: dyna x 3 and ce against q, each with a ratio and a break-even price.
+    assert sum(sentence.startswith("On maze,") for sentence in output.headline) == 8

@@ -20,6 +20,7 @@ import jinja2
 import numpy as np
 import pandas as pd
 
+from runner.analysis.costs import BREAK_EVEN_COLUMNS, COST_COLUMNS, COST_TRIAL_COLUMNS, format_cpu_time
 from runner.analysis.measures import MEASURES
 from runner.analysis.tables import format_interval, format_number
 
@@ -37,7 +38,9 @@ __all__ = [
     "TableView",
     "advice_note",
     "advice_view",
+    "break_even_view",
     "comparisons_view",
+    "costs_view",
     "earnings_view",
     "efficiency_view",
     "env_views",
@@ -102,6 +105,9 @@ class ReportTables:
     rsummary: pd.DataFrame = field(default_factory=pd.DataFrame)
     rratios: pd.DataFrame = field(default_factory=pd.DataFrame)
     windows: pd.DataFrame = field(default_factory=pd.DataFrame)
+    break_even: pd.DataFrame = field(default_factory=lambda: _empty(BREAK_EVEN_COLUMNS))
+    costs: pd.DataFrame = field(default_factory=lambda: _empty(COST_COLUMNS))
+    priced: pd.DataFrame = field(default_factory=lambda: _empty(COST_TRIAL_COLUMNS))
 
 
 @dataclass(frozen=True)
@@ -397,6 +403,64 @@ def frontier_view(rows: pd.DataFrame) -> TableView:
     return _view(rows, columns, note, "Compute against real steps")
 
 
+def _cpu_price(value: float) -> str:
+    """A price of a real step in CPU time, or what a verdict means when there is no finite price."""
+    if pd.isna(value):
+        return "n/a"
+    return "none" if np.isinf(value) else format_cpu_time(float(value))
+
+
+def break_even_view(rows: pd.DataFrame) -> TableView:
+    """Break-even prices of a real step: above them the agent is the cheaper way to the threshold."""
+    verdicts = {
+        "above": "pays above this price",
+        "always": "cheaper at any price",
+        "never": "saves no real steps",
+        "undefined": "median undefined",
+    }
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("against", False, lambda r: str(r["rival"])),
+        ("real steps saved (median)", True, lambda r: _number(r["steps_saved"])),
+        ("extra CPU time (median)", True, lambda r: _cpu_price(r["extra_cpu_seconds"])),
+        ("break-even CPU time per real step", True, lambda r: _cpu_price(r["price"])),
+        ("interval", True, lambda r: f"{_cpu_price(r['low'])} to {_cpu_price(r['high'])}"),
+        ("verdict", False, lambda r: verdicts.get(str(r["verdict"]), str(r["verdict"]))),
+    ]
+    note = (
+        "Break-even price: the CPU time an agent spends beyond its rival to reach the threshold divided by the real "
+        "steps it saves (Kaplan-Meier medians over seeds; CPU time counts acting, learning and planning, not "
+        "evaluation). If a real step costs you more CPU time than this, the agent is the cheaper way to the "
+        "threshold. Intervals: paired percentile bootstrap over seeds. Rivals: the baseline, and the nearest agent "
+        "that needs more real steps."
+    )
+    return _view(rows, columns, note, "When does planning pay? Break-even price of a real step")
+
+
+def costs_view(rows: pd.DataFrame) -> TableView:
+    """Median total cost to the threshold at the user's prices, against the cheapest rival."""
+    unit = str(rows["unit"].iloc[0]) if len(rows) else ""
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("reached", True, lambda r: f"{int(r['reached'])}/{int(r['trials'])}"),
+        ("median real steps", True, lambda r: _number(r["median_steps"])),
+        ("median CPU time", True, lambda r: _cpu_price(r["median_cpu_seconds"])),
+        (f"median total cost ({unit})", True, lambda r: _number(r["median_cost"])),
+        ("against", False, lambda r: str(r["rival"])),
+        (
+            f"difference ({unit}) [low, high]",
+            True,
+            lambda r: format_interval(r["difference"], r["low"], r["high"]) if r["rival"] else "",
+        ),
+    ]
+    note = (
+        "Total cost to the threshold = real steps x your price of a real step + training CPU seconds x your price of "
+        "a CPU-second, per trial; Kaplan-Meier medians over seeds (trials that never reached the threshold are "
+        "censored at their budget). Difference: this agent's median minus its rival's, paired percentile bootstrap."
+    )
+    return _view(rows, columns, note, "Total cost to the threshold at your prices")
+
+
 def advice_note(rows: pd.DataFrame, power: float = 0.8, alpha: float = 0.05) -> str:
     """How the seeds advice was computed, naming the shares of the return range that were asked for."""
     shares = sorted({float(share) for share in rows["share_of_range"]}) if len(rows) else []
@@ -462,6 +526,10 @@ def env_views(data: ReportTables, facts: ExperimentFacts, env: str) -> dict[str,
     )
     windows = _env_rows(data.windows, env)
     views["windows"] = windows_view(windows) if len(windows) else None
+    break_even = _env_rows(data.break_even, env)
+    views["break_even"] = break_even_view(break_even) if len(break_even) else None
+    costs = _env_rows(data.costs, env)
+    views["costs"] = costs_view(costs) if len(costs) else None
     return views
 
 
@@ -607,6 +675,12 @@ _FIGURE_TEXT = {
         "beaten by no other (none needs no more steps and no more compute); hollow markers above the budget "
         "line did not reach a median.",
     ),
+    "costs": (
+        "Total cost against the price of a real step",
+        "Median total cost to the threshold (real steps times their price plus training CPU seconds times theirs) "
+        "against the price of one real step, both log axes; shaded: percentile bootstrap band over seeds. Circles "
+        "mark where an agent becomes cheaper than the baseline (its break-even price); dashed: your price.",
+    ),
     "model_error": (
         "Learned model error",
         "Left: the return curves again. Right: mean total-variation distance of each learned model to the true "
@@ -644,6 +718,9 @@ def _env_context(page: EnvPage, index: int, data: ReportTables, facts: Experimen
         ("figure", figures.get("budget")),
         ("figure", figures.get("frontier")),
         ("table", views["frontier"]),
+        ("figure", figures.get("costs")),
+        ("table", views["costs"]),
+        ("table", views["break_even"]),
         ("figure", figures.get("model_error")),
     ]
     return {

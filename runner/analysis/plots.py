@@ -27,6 +27,7 @@ __all__ = [
     "BudgetReference",
     "agent_styles",
     "plot_budget",
+    "plot_costs",
     "plot_curves",
     "plot_frontier",
     "plot_model_error",
@@ -371,6 +372,56 @@ def plot_budget(
     wall_axes.set_ylim(bottom=0)
     figure.suptitle(title)
     return _save_both(figure, out_dir, f"budget_{safe_name(env)}")
+
+
+def plot_costs(
+    curves: pd.DataFrame,
+    env: str,
+    *,
+    agents: Sequence[str],
+    unit: str,
+    user_price: float | None,
+    crossings: Sequence[tuple[str, float]],
+    out_dir: Path,
+    title: str,
+) -> list[Path]:
+    """Write `costs_<env>.png/.svg`: median total cost to the threshold against the price of a real step.
+
+    `curves` comes from `runner.analysis.costs.cost_curves` (agent, step_price, median, low, high); both axes
+    are logarithmic. `crossings` lists (agent, price) break-even points against the baseline, marked on the
+    agent's line; `user_price` (in `unit` per real step), when given, is a vertical line.
+    """
+    figure = Figure(figsize=(7.5, 5.0), layout="constrained")
+    axes = figure.add_subplot()
+    styles = agent_styles(agents)
+    for agent, (colour, marker) in styles.items():
+        rows = curves[(curves["agent"] == agent) & curves["median"].notna()].sort_values("step_price")
+        if rows.empty:
+            continue
+        axes.fill_between(rows["step_price"], rows["low"], rows["high"], color=colour, alpha=0.15, linewidth=0)
+        axes.plot(
+            rows["step_price"],
+            rows["median"],
+            color=colour,
+            linewidth=1.8,
+            marker=marker,
+            markersize=4,
+            markevery=max(1, len(rows) // 8),
+            label=agent,
+        )
+    for agent, price in crossings:
+        rows = curves[(curves["agent"] == agent) & curves["median"].notna()].sort_values("step_price")
+        if rows.empty or not np.isfinite(price) or price <= 0:
+            continue
+        level = np.exp(np.interp(np.log(price), np.log(rows["step_price"]), np.log(rows["median"])))
+        axes.plot([price], [level], marker="o", markersize=9, markerfacecolor="white", color=styles[agent][0])
+    if user_price is not None:
+        axes.axvline(user_price, color=_THRESHOLD_COLOUR, linestyle="--", linewidth=1.2, label="your price")
+    axes.set_xscale("log")
+    axes.set_yscale("log")
+    _finish(axes, f"price of one real step ({unit}, log scale)", f"median total cost to threshold ({unit})", title)
+    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    return _save_both(figure, out_dir, f"costs_{safe_name(env)}")
 
 
 def plot_frontier(

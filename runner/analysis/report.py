@@ -34,6 +34,17 @@ from runner.analysis.adaptation import (
 )
 from runner.analysis.bootstrap import keyed_rng, mean_and_interval
 from runner.analysis.compare import PAIRWISE_COLUMNS, pairwise_welch
+from runner.analysis.costs import (
+    BREAK_EVEN_COLUMNS,
+    COST_COLUMNS,
+    Prices,
+    break_even_prices,
+    break_even_sentences,
+    cost_curves,
+    cost_trials,
+    decision_sentences,
+    total_costs,
+)
 from runner.analysis.curves import curve_bands, trial_scores
 from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
 from runner.analysis.measures import EARNING_COLUMNS, GREEDY_RETURN, MEASURES, earning_summary, with_earning_rate
@@ -50,6 +61,7 @@ from runner.analysis.plots import (
     BudgetReference,
     agent_styles,
     plot_budget,
+    plot_costs,
     plot_curves,
     plot_frontier,
     plot_model_error,
@@ -152,10 +164,19 @@ class ExperimentFacts:
     measure: str = GREEDY_RETURN
     earning_thresholds: dict[str, float | None] = field(default_factory=dict)
 
+    costs: dict[str, object] | None = None
+
     @property
     def primary_thresholds(self) -> dict[str, float | None]:
         """Thresholds of the primary measure, per environment."""
         return self.thresholds if self.measure == GREEDY_RETURN else self.earning_thresholds
+
+    @property
+    def prices(self) -> Prices:
+        """The user's prices from the experiment's `costs` block, or CPU-seconds alone without one."""
+        if not self.costs:
+            return Prices()
+        return Prices(str(self.costs["unit"]), float(self.costs["real_step"]), float(self.costs["cpu_second"]))
 
 
 @dataclass(frozen=True)
@@ -582,7 +603,9 @@ def _env_figures(
     env: str, agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: ExperimentFacts, out_dir: Path
 ) -> _Figures:
     """Write every figure of one environment."""
-    figures = _Figures(png=dict.fromkeys(("curves", "earning", "threshold", "model_error", "budget", "frontier")))
+    figures = _Figures(
+        png=dict.fromkeys(("curves", "earning", "threshold", "model_error", "budget", "frontier", "costs"))
+    )
     title = f"{facts.name}: {env}"
     threshold = facts.thresholds.get(env)
     env_bands = data.bands[data.bands["env"] == env]
@@ -658,12 +681,49 @@ def _env_figures(
                 title=title,
             ),
         )
+    cost_figure = _cost_figure(env, agents, data, facts, out_dir, title)
+    if cost_figure:
+        figures.add("costs", cost_figure)
     points = data.frontier[data.frontier["env"] == env]
     if len(points) and points["median_steps"].notna().any():
         figures.add(
             "frontier", plot_frontier(points, env, agents=agents, budget=facts.budget, out_dir=out_dir, title=title)
         )
     return figures
+
+
+def _cost_figure(
+    env: str, agents: list[str], data: ReportTables, facts: ExperimentFacts, out_dir: Path, title: str
+) -> list[Path]:
+    """Total cost against the price of a real step for one environment (no figure without CPU times)."""
+    priced = data.priced[data.priced["env"] == env] if len(data.priced) else data.priced
+    if priced.empty or not priced["reached"].any():
+        return []
+    prices = facts.prices
+    steps, cpu = priced["steps"].to_numpy(dtype=float), priced["cpu_seconds"].to_numpy(dtype=float)
+    scale = cpu[steps > 0] / steps[steps > 0]
+    scale = scale[scale > 0]
+    if scale.size == 0:
+        return []
+    marks = data.break_even[(data.break_even["env"] == env) & (data.break_even["rival"] == facts.baseline)]
+    found = marks.loc[marks["verdict"] == "above", "price"].to_numpy(dtype=float)
+    anchors = np.r_[scale, found, [prices.step_in_cpu_seconds or scale.min()]]
+    grid = np.geomspace(anchors.min() / 30.0, anchors.max() * 30.0, 60) * prices.cpu_second
+    curves = cost_curves(priced, env, agents, prices, grid, confidence=facts.confidence, seed=facts.seed)
+    return plot_costs(
+        curves,
+        env,
+        agents=agents,
+        unit=prices.unit,
+        user_price=prices.real_step,
+        crossings=[
+            (str(row["agent"]), float(row["price"]) * prices.cpu_second)
+            for _, row in marks.iterrows()
+            if row["verdict"] == "above"
+        ],
+        out_dir=out_dir,
+        title=title,
+    )
 
 
 def _reference(env: str, agents: list[str], data: ReportTables, facts: ExperimentFacts) -> BudgetReference | None:
@@ -728,6 +788,19 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         if has_earning
         else pd.DataFrame(columns=EARNING_COLUMNS)
     )
+    priced = cost_trials(frame, crossings)
+    priced = priced[priced["cpu_seconds"].notna()] if len(priced) else priced
+    options = {"confidence": facts.confidence, "n_resamples": facts.n_resamples, "seed": facts.seed}
+    break_even = (
+        _sort_by_order(break_even_prices(priced, agents, facts.baseline, **options), envs, agents)
+        if len(priced)
+        else pd.DataFrame(columns=BREAK_EVEN_COLUMNS)
+    )
+    costs = (
+        _sort_by_order(total_costs(priced, facts.prices, agents, **options), envs, agents)
+        if len(priced) and facts.prices.real_step is not None
+        else pd.DataFrame(columns=COST_COLUMNS)
+    )
     return ReportTables(
         bands=bands,
         scores=scores,
@@ -745,7 +818,32 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         rsummary=rsummary,
         rratios=rratios,
         windows=windows,
+        break_even=break_even,
+        costs=costs,
+        priced=priced,
     )
+
+
+def _headline(data: ReportTables, facts: ExperimentFacts, labels: dict[str, str]) -> list[str]:
+    """The report's first sentences: the decision at the user's prices (when given), real-step ratios against
+    the baseline, then the break-even price of a real step for each agent against the baseline; then, for
+    environments that change, who adapts and how fast.
+
+    For an environment that changes, "who adapts, and how fast" is the headline: steps (and costs) to first reach
+    the threshold from the start say nothing about the change, so they stay in that environment's tables.
+    """
+    changing = {env for env, steps in facts.changes.items() if steps}
+
+    def steady(table: pd.DataFrame) -> pd.DataFrame:
+        return table[~table["env"].isin(changing)] if len(table) else table
+
+    costs, efficiency, break_even = steady(data.costs), steady(data.efficiency), steady(data.break_even)
+    decision = decision_sentences(costs, facts.prices) if len(costs) else []
+    ratios = efficiency_sentences(efficiency, labels) if len(efficiency) else []
+    against_baseline = break_even[break_even["rival"] == facts.baseline] if facts.baseline else None
+    prices = break_even_sentences(against_baseline, facts.prices) if against_baseline is not None else []
+    adaptation = adaptation_sentences(data.rsummary, labels, facts.confidence) if len(data.rsummary) else []
+    return [*decision, *ratios, *prices, *adaptation]
 
 
 def _markdown(
@@ -798,6 +896,7 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
         "comparisons.csv": data.comparisons,
         "seeds_advice.csv": data.advice,
         "frontier.csv": data.frontier,
+        "break_even.csv": data.break_even,
     }
     # Written only when they apply: earnings need `reward_earned`, the adaptation tables a map that changes.
     optional = {
@@ -808,6 +907,8 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
         "change_windows.csv": data.windows,
     }
     tables.update({name: table for name, table in optional.items() if len(table)})
+    if len(data.costs):
+        tables["costs.csv"] = data.costs
     return [_write_text_atomic(out_dir / name, table.to_csv(index=False)) for name, table in tables.items()]
 
 
@@ -835,13 +936,7 @@ def write_report(
     agents = ordered_labels(pd.unique(frame["agent"]), facts.agent_order)
     data = _analyse(frame, facts, envs, agents)
     labels = {env: _threshold_label(facts, env) for env in envs}
-    changing = {env for env, steps in facts.changes.items() if steps}
-    # For an environment that changes, "who adapts, and how fast" is the headline; steps to first reach the
-    # threshold from the start stay in its section's tables.
-    steady = data.efficiency[~data.efficiency["env"].isin(changing)] if len(data.efficiency) else data.efficiency
-    headline = efficiency_sentences(steady, labels) if len(steady) else []
-    if len(data.rsummary):
-        headline += adaptation_sentences(data.rsummary, labels, facts.confidence)
+    headline = _headline(data, facts, labels)
     warnings = threshold_warnings(frame, facts, envs)
     files: list[Path] = []
     pages = []
