@@ -11,7 +11,7 @@ import json
 import math
 import os
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -595,8 +595,14 @@ def _runs(runs: pd.DataFrame) -> list[dict[str, object]]:
     return described
 
 
-def glance_sentences(tsummary: pd.DataFrame, pages: Sequence[EnvPage]) -> list[str]:
-    """One sentence per environment with a threshold: each agent's median real steps to it, fastest first."""
+def glance_sentences(
+    tsummary: pd.DataFrame, pages: Sequence[EnvPage], changes: Mapping[str, Sequence[int]] | None = None
+) -> list[str]:
+    """One sentence per environment with a threshold: each agent's median real steps to it, fastest first.
+
+    For an environment that changes (`changes`), the sentence says the steps count from the start, before the
+    first change, so that it is not read as adaptation.
+    """
     sentences = []
     for page in pages:
         rows = _env_rows(tsummary, page.env)
@@ -626,7 +632,11 @@ def glance_sentences(tsummary: pd.DataFrame, pages: Sequence[EnvPage]) -> list[s
             if coarse
             else ""
         )
-        sentences.append(f"On {page.env}, median real steps to reach {page.threshold_text}: {'; '.join(parts)}{finer}.")
+        steps = (changes or {}).get(page.env)
+        when = f" from the start (the map first changes at {int(steps[0]):,} real steps)" if steps else ""
+        sentences.append(
+            f"On {page.env}, median real steps{when} to reach {page.threshold_text}: {'; '.join(parts)}{finer}."
+        )
     return sentences
 
 
@@ -795,7 +805,7 @@ def render_page(
         records=record_views,
         counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs")},
         runs=_runs(records.runs),
-        glance=glance_sentences(data.tsummary, envs),
+        glance=glance_sentences(data.tsummary, envs, facts.changes),
         experiment_texts=_experiment_texts(records.runs),
     )
 

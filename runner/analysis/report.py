@@ -952,7 +952,7 @@ def write_report(
             )
         )
     files += _write_tables(data, envs, agents, out_dir)
-    glance = glance_sentences(data.tsummary, pages)
+    glance = glance_sentences(data.tsummary, pages, facts.changes)
     markdown = _markdown(data, facts, envs, headline, glance, warnings)
     files.append(_write_text_atomic(out_dir / "summary.md", markdown))
     files.append(
