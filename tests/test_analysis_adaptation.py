@@ -153,3 +153,30 @@ def test_a_median_at_the_first_point_reads_at_or_before():
     summary = recovery_summary(recovery_times(frame, {"maze": [_CHANGE]}, {"maze": 0.5}))
     (sentence,) = adaptation_sentences(summary, {}, 0.95)
     assert "quick in 4 of 4 seeds, median at or before 100 real steps" in sentence
+
+
+def test_report_of_a_changing_map_heads_with_adaptation_and_marks_the_phases(tmp_path):
+    from runner.analysis.report import ExperimentFacts, write_report
+
+    frame = _frame().assign(real_updates=0, planning_updates=0, model_updates=0, wall_seconds=0.0)
+    # 'never' learns fastest from the start, so a ratio from the start would praise the agent that never adapts
+    frame.loc[(frame["agent"] == "never") & (frame["real_steps"] == 0), "eval_return"] = 0.0
+    facts = ExperimentFacts(
+        name="changing",
+        budget=_BUDGET,
+        baseline="slow",
+        thresholds={"maze": 0.5},
+        env_order=["maze"],
+        agent_order=["slow", "fast", "never"],
+        changes={"maze": [_CHANGE]},
+        n_resamples=200,
+    )
+    output = write_report(frame, facts, tmp_path)
+    assert not any("fewer real steps" in line or "more real steps" in line for line in output.headline)
+    assert any(line.startswith("On maze, after the map changed at 3,000 real steps") for line in output.headline)
+    names = {path.name for path in output.files}
+    assert {"recovery.csv", "recovery_summary.csv", "recovery_ratios.csv", "change_windows.csv"} <= names
+    svg = (tmp_path / "curves_maze.svg").read_text(encoding="utf-8")
+    assert "phase 2 from 3,000" in svg
+    page = (tmp_path / "report.html").read_text(encoding="utf-8")
+    assert "Adaptation after the change" in page and "The measure around each change" in page
