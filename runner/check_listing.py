@@ -53,6 +53,7 @@ def check_listing(experiment: Experiment) -> list[str]:
     out = []
     for env in experiment.environments:
         threshold = "none" if env.threshold is None else f"{env.threshold:g}"
-        out.append(f"  {env.label}  (threshold {threshold}; evaluation episodes cut at {env.step_cap} steps)")
+        earning = "" if env.earning_threshold is None else f"; earning threshold {env.earning_threshold:g}"
+        out.append(f"  {env.label}  (threshold {threshold}{earning}; evaluation episodes cut at {env.step_cap} steps)")
         out += agent_lines
     return out

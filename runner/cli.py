@@ -270,6 +270,7 @@ def _seeds(args: argparse.Namespace) -> int:
 def _check(args: argparse.Namespace) -> int:
     from runner.check_listing import check_listing
     from runner.config import load_experiment
+    from runner.threshold_check import threshold_warnings
 
     experiment = load_experiment(args.experiment)
     size = experiment.size
@@ -283,7 +284,9 @@ def _check(args: argparse.Namespace) -> int:
         print("run will ask before starting an experiment this large (--yes answers for you)")
     for line in check_listing(experiment):
         print(line)
-    print(f"baseline: {experiment.baseline or 'none'}")
+    print(f"baseline: {experiment.baseline or 'none'}; primary measure: {experiment.analysis.measure}")
+    for line in threshold_warnings(experiment):
+        print(line)
     return 0
 
 
