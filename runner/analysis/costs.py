@@ -117,6 +117,8 @@ def _by_agent(trials: pd.DataFrame) -> dict[str, pd.DataFrame]:
 def _paired(sides: dict[str, pd.DataFrame], agent: str, rival: str) -> tuple[pd.DataFrame, pd.DataFrame]:
     """The trials of `agent` and `rival` on the seeds both ran, indexed by seed in the same order."""
     mine, theirs = sides[agent], sides[rival]
+    if mine.index.equals(theirs.index):  # the usual case: both ran the same seeds in the same order
+        return mine, theirs
     seeds = [seed for seed in theirs.index if seed in mine.index]
     return mine.loc[seeds], theirs.loc[seeds]
 
