@@ -27,7 +27,8 @@ Integration: the classic fourth-order Runge-Kutta method with a fixed step dt = 
 step. Why RK4 and not semi-implicit Euler: the kinetic energy depends on theta (the mass matrix is not constant),
 so the semi-implicit Euler update in velocities is not symplectic here and would not buy its usual energy
 behaviour, while RK4's error after a fixed time falls as dt^4 (tested: the energy and momentum errors shrink at
-least 16-fold when dt halves; measured about 31-fold and 16-fold), and gymnasium's Acrobot uses the same method. After each step theta is wrapped into [-pi, pi].
+least 16-fold when dt halves; measured about 31-fold and 16-fold), and gymnasium's Acrobot uses the same method.
+After each step theta is wrapped into [-pi, pi].
 
 Task. Actions: 0 push left, 1 no push, 2 push right (force push_force), or with `continuous=True` a Box action in
 [-1, 1] (clipped) scaling push_force. Observation: (x, x_dot, theta, theta_dot) as float32. Reward per step:
