@@ -9,6 +9,9 @@ Every environment has the same kernel shape, so a compiled loop can call any of 
 - `observation(state, params, out_obs)` writes what the gymnasium environment returns (rounded to float32);
 - `default_params(**options)` (plain Python) gives the float64 parameter vector.
 
+Kernels compile with numba's `error_model="numpy"`: a division by zero gives inf or nan, as the numpy scalars in
+gymnasium's code do, instead of raising, which also spares a branch per division (about 1.5x faster on CartPole).
+
 Truncation is the caller's: an episode is truncated after `step_limit` steps (gymnasium's registered
 `max_episode_steps`), also on the step that terminates, as gymnasium's `TimeLimit` does.
 """

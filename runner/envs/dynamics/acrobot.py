@@ -17,7 +17,7 @@ import math
 import numpy as np
 from numba import njit
 
-from runner.envs.dynamics._shared import as_f32, c_pow, uniform_between
+from runner.envs.dynamics._shared import as_f32, c_square, uniform_between
 
 __all__ = ["PARAMS", "default_params", "observation", "reset", "step"]
 
@@ -35,11 +35,17 @@ PARAMS = (
     "reset_low",
     "reset_high",
     "square_exponent",
+    "link_com_pos_1_squared",
+    "link_length_1_squared",
+    "link_com_pos_2_squared",
 )
 """Positions in the params vector; the values are gymnasium's class attributes of the same names (gravity is the
-literal 9.8 of its `_dsdt`); `square_exponent` is 2.0, read at run time so `pow` stays a libm call."""
+literal 9.8 of its `_dsdt`); `square_exponent` is 2.0, read at run time so `pow` stays a libm call; the squares of
+constants are computed once with Python's `**`, as `_dsdt` computes them on every call."""
 
-DT, L1, M1, M2, LC1, LC2, MOI, MAX_VEL_1, MAX_VEL_2, GRAVITY, LOW, HIGH, SQUARE = range(len(PARAMS))
+DT, L1, M1, M2, LC1, LC2, MOI, MAX_VEL_1, MAX_VEL_2, GRAVITY, LOW, HIGH, SQUARE, LC1_SQ, L1_SQ, LC2_SQ = range(
+    len(PARAMS)
+)
 
 
 def default_params() -> np.ndarray:
@@ -59,17 +65,20 @@ def default_params() -> np.ndarray:
         "reset_high": 0.1,
         "square_exponent": 2.0,
     }
+    values["link_com_pos_1_squared"] = values["link_com_pos_1"] ** 2
+    values["link_length_1_squared"] = values["link_length_1"] ** 2
+    values["link_com_pos_2_squared"] = values["link_com_pos_2"] ** 2
     return np.array([values[name] for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def reset(state, params, stream):
     """Draw each coordinate uniform in [reset_low, reset_high), rounded to float32 as gymnasium stores it."""
     for i in range(4):
         state[i] = as_f32(uniform_between(stream, params[LOW], params[HIGH]))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _dsdt(params, a, theta1, theta2, dtheta1, dtheta2):
     """Time derivative of the state under torque `a` (gymnasium's `_dsdt`, book dynamics)."""
     m1, m2, l1, lc1, lc2 = params[M1], params[M2], params[L1], params[LC1], params[LC2]
@@ -77,23 +86,26 @@ def _dsdt(params, a, theta1, theta2, dtheta1, dtheta2):
     i2 = params[MOI]
     g = params[GRAVITY]
     two = params[SQUARE]
-    d1 = m1 * c_pow(lc1, two) + m2 * (c_pow(l1, two) + c_pow(lc2, two) + 2 * l1 * lc2 * math.cos(theta2)) + i1 + i2
-    d2 = m2 * (c_pow(lc2, two) + l1 * lc2 * math.cos(theta2)) + i2
+    lc1_sq, l1_sq, lc2_sq = params[LC1_SQ], params[L1_SQ], params[LC2_SQ]
+    cos2 = math.cos(theta2)  # gymnasium evaluates cos(theta2) twice and sin(theta2) three times: same values
+    sin2 = math.sin(theta2)
+    d1 = m1 * lc1_sq + m2 * (l1_sq + lc2_sq + 2 * l1 * lc2 * cos2) + i1 + i2
+    d2 = m2 * (lc2_sq + l1 * lc2 * cos2) + i2
     phi2 = m2 * lc2 * g * math.cos(theta1 + theta2 - math.pi / 2.0)
     phi1 = (
-        -m2 * l1 * lc2 * c_pow(dtheta2, two) * math.sin(theta2)
-        - 2 * m2 * l1 * lc2 * dtheta2 * dtheta1 * math.sin(theta2)
+        -m2 * l1 * lc2 * c_square(dtheta2, two) * sin2
+        - 2 * m2 * l1 * lc2 * dtheta2 * dtheta1 * sin2
         + (m1 * lc1 + m2 * l1) * g * math.cos(theta1 - math.pi / 2)
         + phi2
     )
-    ddtheta2 = (a + d2 / d1 * phi1 - m2 * l1 * lc2 * c_pow(dtheta1, two) * math.sin(theta2) - phi2) / (
-        m2 * c_pow(lc2, two) + i2 - c_pow(d2, two) / d1
+    ddtheta2 = (a + d2 / d1 * phi1 - m2 * l1 * lc2 * c_square(dtheta1, two) * sin2 - phi2) / (
+        m2 * lc2_sq + i2 - c_square(d2, two) / d1
     )
     ddtheta1 = -(d2 * ddtheta2 + phi1) / d1
     return dtheta1, dtheta2, ddtheta1, ddtheta2
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _wrap(x, m, big_m):
     """Wrap x into [m, big_m] by whole turns (gymnasium's `wrap`)."""
     diff = big_m - m
@@ -104,7 +116,7 @@ def _wrap(x, m, big_m):
     return x
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def step(state, action, params, out_state):
     """One RK4 step of dt under the torque of `action`; writes `out_state` (may be `state`).
 
@@ -136,7 +148,7 @@ def step(state, action, params, out_state):
     return (0.0 if terminated else -1.0), terminated
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def observation(state, params, out_obs):
     """The observation gymnasium returns: cosines and sines of both angles, then both velocities, in float32."""
     out_obs[0] = as_f32(math.cos(state[0]))

@@ -19,7 +19,7 @@ import math
 import numpy as np
 from numba import njit
 
-from runner.envs.dynamics._shared import as_f32, c_pow, uniform_between
+from runner.envs.dynamics._shared import as_f32, c_square, uniform_between
 
 __all__ = ["PARAMS", "default_params", "observation", "reset", "step"]
 
@@ -75,7 +75,7 @@ def default_params(goal_velocity: float = 0.0) -> np.ndarray:
     return np.array([values[name] for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def reset(state, params, stream):
     """Draw the start position uniform in [reset_low, reset_high); at rest; state held in float64."""
     state[0] = uniform_between(stream, params[LOW], params[HIGH])
@@ -83,19 +83,19 @@ def reset(state, params, stream):
     state[2] = 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _above(value, is_f32, bound):
     """`value > bound` as numpy compares it: a float32 value against a Python float rounds the bound to float32."""
     return value > (as_f32(bound) if is_f32 else bound)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _below(value, is_f32, bound):
     """`value < bound`, rounding the bound as `_above` does."""
     return value < (as_f32(bound) if is_f32 else bound)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def step(state, action, params, out_state):
     """One step under force `action[0]` (rounded to float32); writes `out_state` (may be `state`).
 
@@ -136,14 +136,14 @@ def step(state, action, params, out_state):
     goal_velocity = as_f32(params[GOAL_VELOCITY]) if velocity_f32 else params[GOAL_VELOCITY]
     terminated = position >= goal and velocity >= goal_velocity
     reward = 100.0 if terminated else 0.0
-    reward -= c_pow(act, params[SQUARE]) * 0.1
+    reward -= c_square(act, params[SQUARE]) * 0.1
     out_state[0] = as_f32(position)
     out_state[1] = as_f32(velocity)
     out_state[2] = 1.0
     return reward, terminated
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def observation(state, params, out_obs):
     """The observation gymnasium returns: (position, velocity) rounded to float32."""
     out_obs[0] = as_f32(state[0])

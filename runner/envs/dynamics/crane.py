@@ -75,7 +75,7 @@ def default_params(**options: float) -> np.ndarray:
     return np.array([float(values[name]) for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def reset(state, params, stream):
     """Trolley at rest uniform in [start_low, start_high); load at rest at an angle uniform in +-start_swing."""
     state[0] = uniform_between(stream, params[START_LOW], params[START_HIGH])
@@ -98,7 +98,7 @@ def _push_fraction(action):
     return None
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _accelerations(params, force, x_dot, theta, theta_dot):
     """(x_ddot, theta_ddot) of the trolley and the cable under a horizontal force on the trolley."""
     big_m, m, length, g = params[TROLLEY_MASS], params[LOAD_MASS], params[CABLE_LENGTH], params[GRAVITY]
@@ -112,7 +112,7 @@ def _accelerations(params, force, x_dot, theta, theta_dot):
     return x_ddot, theta_ddot
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _wrap_angle(theta):
     """theta brought into [-pi, pi] by whole turns."""
     while theta > math.pi:
@@ -122,7 +122,7 @@ def _wrap_angle(theta):
     return theta
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _rk4(params, force, x, v, theta, omega):
     """One classic fourth-order Runge-Kutta step of dt with the force held constant."""
     h = params[DT]
@@ -142,7 +142,7 @@ def _rk4(params, force, x, v, theta, omega):
     return x_new, v_new, _wrap_angle(theta_new), omega_new
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def outcome(params, x, v, theta, omega):
     """(reward, terminated) of arriving in a state: -1 - swing_cost theta^2 a step; the load delivered at rest
     (within the bay's tolerance, small swing and speeds) or the trolley off the rail (minus crash_penalty) ends it."""
@@ -159,7 +159,7 @@ def outcome(params, x, v, theta, omega):
     return reward, delivered
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def step(state, action, params, out_state):
     """One RK4 step under `action`; writes `out_state` (may be `state`). Returns (reward, terminated)."""
     force = push_fraction(action) * params[PUSH_FORCE]
@@ -171,7 +171,7 @@ def step(state, action, params, out_state):
     return outcome(params, x, v, theta, omega)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def observation(state, params, out_obs):
     """The crane's observation: the state rounded to float32."""
     for i in range(4):
