@@ -14,9 +14,11 @@ What: for CartPole-v1 and Acrobot-v1, steps per second of
 and their ratio. Why: compiled agents on these environments pay off only if a compiled trial runs far faster
 than stepping gymnasium from Python; the issue's target is at least 100x per core.
 
-Each figure is the best of 3 repetitions timed with `time.perf_counter` after a warm-up that compiles or loads the
-kernels, so compile time is never counted. The process pins itself to one CPU. Other work on the machine slows
-every figure; the script prints how much CPU other processes used meanwhile. Run from the repository root with
+Each figure is the best of 3 repetitions after a warm-up that compiles or loads the kernels, so compile time is
+never counted, timed twice: by the wall clock (`time.perf_counter`) and by this process's CPU time
+(`time.process_time`). The process pins itself to one CPU; on a machine shared with other work the wall clock
+also counts time given to other processes, so the verdict uses the CPU-time ratio (steps per CPU-second, i.e.
+per core). The script prints how much CPU other processes used meanwhile. Run from the repository root with
 `PYTHONPATH=. python benchmarks/dynamics_speed.py` (`--quick` for a smoke check about ten times smaller).
 """
 
@@ -25,6 +27,8 @@ from __future__ import annotations
 import argparse
 import platform
 import sys
+import time
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import gymnasium
@@ -33,10 +37,10 @@ import numpy as np
 from numba import literally, njit, typeof, types
 
 try:  # run as a script: benchmarks/ is on sys.path
-    from planning_speed import Figure, best_of, command_line, cpu_model, pin_to_one_core
+    from planning_speed import REPEATS, Figure, command_line, cpu_model, pin_to_one_core
     from speed import CpuSnapshot, other_cpu_use
 except ImportError:  # imported as part of a package rather than run as a script
-    from benchmarks.planning_speed import Figure, best_of, command_line, cpu_model, pin_to_one_core
+    from benchmarks.planning_speed import REPEATS, Figure, command_line, cpu_model, pin_to_one_core
     from benchmarks.speed import CpuSnapshot, other_cpu_use
 
 from runner.envs.dynamics import dynamics_spec
@@ -65,6 +69,29 @@ QUICK = Sizes(
     compiled={k: v // 10 for k, v in FULL.compiled.items()},
     gymnasium={k: v // 10 for k, v in FULL.gymnasium.items()},
 )
+
+
+@dataclass(frozen=True)
+class Timing:
+    """The best wall-clock and the best CPU-time figure of the same repetitions."""
+
+    wall: Figure
+    cpu: Figure
+
+
+def best_of_both(what: str, run: Callable[[], int]) -> Timing:
+    """Call `run()` REPEATS times; keep the fastest by `time.perf_counter` and by `time.process_time`.
+
+    On a machine shared with other work, the process's CPU time is the fairer per-core figure: wall time also
+    counts the time the scheduler gave to other processes.
+    """
+    walls, cpus = [], []
+    for _ in range(REPEATS):
+        wall0, cpu0 = time.perf_counter(), time.process_time()
+        work = run()
+        walls.append(Figure(what, int(work), time.perf_counter() - wall0))
+        cpus.append(Figure(what, int(work), max(time.process_time() - cpu0, 1e-9)))
+    return Timing(min(walls, key=lambda f: f.seconds), min(cpus, key=lambda f: f.seconds))
 
 
 @njit(cache=True)
@@ -104,7 +131,7 @@ def compiled_steps(env_id, params, stream, steps, step_limit, weights, epsilon, 
     return episodes, total
 
 
-def measure_compiled(env_id: str, policy: str, steps: int, seed: int) -> Figure:
+def measure_compiled(env_id: str, policy: str, steps: int, seed: int) -> Timing:
     """The compiled loop's best rate over the repetitions."""
     spec = dynamics_spec(env_id)
     params = spec.default_params()
@@ -121,10 +148,10 @@ def measure_compiled(env_id: str, policy: str, steps: int, seed: int) -> Figure:
         loop(env_id, *args)
         return steps
 
-    return best_of(f"compiled {env_id} {policy}", run)
+    return best_of_both(f"compiled {env_id} {policy}", run)
 
 
-def measure_gymnasium(env_id: str, policy: str, steps: int, seed: int) -> Figure:
+def measure_gymnasium(env_id: str, policy: str, steps: int, seed: int) -> Timing:
     """Gymnasium's own `env.step` loop with the same kind of actions, best rate over the repetitions."""
     spec = dynamics_spec(env_id)
     rng = np.random.default_rng(seed)
@@ -144,7 +171,7 @@ def measure_gymnasium(env_id: str, policy: str, steps: int, seed: int) -> Figure
                 obs, _ = env.reset()
         return steps
 
-    figure = best_of(f"gymnasium {env_id} {policy}", run)
+    figure = best_of_both(f"gymnasium {env_id} {policy}", run)
     env.close()
     return figure
 
@@ -178,24 +205,28 @@ def main(argv: list[str] | None = None) -> int:
             rows.append((env_id, policy, ours, theirs))
     load = other_cpu_use(before)
 
-    header = f"{'environment':<12}  {'actions':<14}  {'compiled steps/s':>16}  {'gymnasium steps/s':>17}  "
-    print(header + f"{'ratio':>7}  verdict")
-    print("-" * (len(header) + 16))
+    header = (
+        f"{'environment':<12}  {'actions':<14}  {'compiled steps/s':>16}  {'gymnasium steps/s':>17}  {'ratio':>6}  "
+        f"{'per CPU-s: compiled':>19}  {'gymnasium':>9}  {'ratio':>6}"
+    )
+    print(header + "  verdict")
+    print("-" * (len(header) + 9))
     misses = []
     for env_id, policy, ours, theirs in rows:
-        ratio = ours.rate / theirs.rate
-        passed = ratio >= TARGET_RATIO
+        wall_ratio = ours.wall.rate / theirs.wall.rate
+        cpu_ratio = ours.cpu.rate / theirs.cpu.rate
+        passed = cpu_ratio >= TARGET_RATIO
         if not passed:
             misses.append(f"{env_id} {policy}")
         print(
-            f"{env_id:<12}  {policy:<14}  {ours.rate:>16,.0f}  {theirs.rate:>17,.0f}  {ratio:>6,.0f}x  "
-            f"{'PASS' if passed else 'MISS'}"
+            f"{env_id:<12}  {policy:<14}  {ours.wall.rate:>16,.0f}  {theirs.wall.rate:>17,.0f}  {wall_ratio:>5,.0f}x  "
+            f"{ours.cpu.rate:>19,.0f}  {theirs.cpu.rate:>9,.0f}  {cpu_ratio:>5,.0f}x  {'PASS' if passed else 'MISS'}"
         )
     print()
     print(f"work: compiled {', '.join(f'{k} {v:,}' for k, v in sizes.compiled.items())} steps per repetition; ")
     print(f"      gymnasium {', '.join(f'{k} {v:,}' for k, v in sizes.gymnasium.items())} steps per repetition")
     print(f"load: {load}")
-    print(f"target: compiled >= {TARGET_RATIO:.0f}x gymnasium's env.step loop, per core")
+    print(f"target: compiled >= {TARGET_RATIO:.0f}x gymnasium's env.step loop per core (verdict on CPU time)")
     print(f"overall: {'PASS' if not misses else 'MISS (' + '; '.join(misses) + ')'}")
     print(f"reproduce: {command_line(args.quick, 'dynamics_speed.py')}")
     return 0
