@@ -10,6 +10,7 @@ import pytest
 from gymnasium.utils.env_checker import check_env
 
 from runner.envs.crane import OverheadCrane, crane_energy, crane_momentum
+from runner.envs.dynamics import dynamics_spec
 from runner.envs.dynamics.stepper import DynamicsStepper
 from runner.envs.sources import build_env
 from runner.errors import EnvironmentSourceError
@@ -173,3 +174,17 @@ def test_small_swings_have_the_pendulums_period() -> None:
     assert held == pytest.approx(2 * math.pi * math.sqrt(length / g), rel=1e-4)
     free = _swing_period({"trolley_mass": 20.0, "load_mass": 30.0, "cable_length": length, "gravity": g})
     assert free == pytest.approx(2 * math.pi * math.sqrt(20.0 * length / (50.0 * g)), rel=1e-4)
+
+
+@pytest.mark.parametrize("continuous", [False, True])
+def test_registered_dynamics_match_the_class(continuous: bool) -> None:
+    spec = dynamics_spec("stepmeter/OverheadCraneContinuous-v0" if continuous else "stepmeter/OverheadCrane-v0")
+    env = OverheadCrane(continuous=continuous)
+    assert spec.entry_point == "runner.envs.crane:OverheadCrane"
+    assert (spec.obs_size,) == env.observation_space.shape and spec.state_size == 4
+    assert spec.step_limit == env.step_limit
+    if continuous:
+        assert spec.action_kind == "box" and (spec.action_size,) == env.action_space.shape
+        assert (spec.action_low, spec.action_high) == (env.action_space.low[0], env.action_space.high[0])
+    else:
+        assert spec.action_kind == "discrete" and spec.action_size == env.action_space.n

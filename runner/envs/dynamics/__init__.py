@@ -28,7 +28,7 @@ import numpy as np
 
 from runner.errors import UnknownKindError
 
-__all__ = ["DYNAMICS", "DynamicsSpec", "dynamics_module", "dynamics_spec"]
+__all__ = ["DYNAMICS", "DynamicsSpec", "dynamics_kernels", "dynamics_module", "dynamics_spec"]
 
 
 @dataclass(frozen=True)
@@ -47,6 +47,7 @@ class DynamicsSpec:
     step_limit: int  # gymnasium's registered max_episode_steps
     reward_threshold: float | None  # gymnasium's registered reward_threshold
     summary: str
+    kernels: tuple[str, str, str] = ("reset", "step", "observation")  # their names in `module`
 
     def default_params(self, **options: Any) -> np.ndarray:
         """The parameter vector, with the environment's keyword options (e.g. Pendulum's `g`)."""
@@ -172,3 +173,9 @@ def dynamics_spec(env_id: str) -> DynamicsSpec:
 def dynamics_module(env_id: str) -> ModuleType:
     """The module holding the kernels of a compiled environment (imported on first use)."""
     return importlib.import_module(dynamics_spec(env_id).module)
+
+
+def dynamics_kernels(env_id: str) -> tuple[Any, Any, Any]:
+    """The (reset, step, observation) kernels of a compiled environment."""
+    module = dynamics_module(env_id)
+    return tuple(getattr(module, name) for name in dynamics_spec(env_id).kernels)

@@ -11,7 +11,7 @@ from __future__ import annotations
 from numba import types
 from numba.extending import overload
 
-from runner.envs.dynamics import dynamics_module
+from runner.envs.dynamics import dynamics_kernels
 
 __all__ = ["env_observation", "env_reset", "env_step"]
 
@@ -35,7 +35,7 @@ def env_observation(env_id, state, params, out_obs):
 def _env_reset(env_id, state, params, stream):
     if not isinstance(env_id, types.StringLiteral):
         return None
-    kernel = dynamics_module(env_id.literal_value).reset
+    kernel = dynamics_kernels(env_id.literal_value)[0]
 
     def impl(env_id, state, params, stream):
         kernel(state, params, stream)
@@ -47,7 +47,7 @@ def _env_reset(env_id, state, params, stream):
 def _env_step(env_id, state, action, params, out_state):
     if not isinstance(env_id, types.StringLiteral):
         return None
-    kernel = dynamics_module(env_id.literal_value).step
+    kernel = dynamics_kernels(env_id.literal_value)[1]
 
     def impl(env_id, state, action, params, out_state):
         return kernel(state, action, params, out_state)
@@ -59,7 +59,7 @@ def _env_step(env_id, state, action, params, out_state):
 def _env_observation(env_id, state, params, out_obs):
     if not isinstance(env_id, types.StringLiteral):
         return None
-    kernel = dynamics_module(env_id.literal_value).observation
+    kernel = dynamics_kernels(env_id.literal_value)[2]
 
     def impl(env_id, state, params, out_obs):
         kernel(state, params, out_obs)

@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from runner.envs.dynamics import dynamics_module, dynamics_spec
+from runner.envs.dynamics import dynamics_kernels, dynamics_spec
 from runner.streams import as_stream
 
 __all__ = ["DynamicsStepper"]
@@ -22,7 +22,7 @@ class DynamicsStepper:
 
     def __init__(self, env_id: str, seed: int | np.random.SeedSequence | np.ndarray, **options: Any) -> None:
         self.spec = dynamics_spec(env_id)
-        self._kernels = dynamics_module(env_id)
+        self._reset, self._step, self._observation = dynamics_kernels(env_id)
         self.params = self.spec.default_params(**options)
         self.stream = as_stream(seed)
         self.state = np.zeros(self.spec.state_size)
@@ -31,12 +31,12 @@ class DynamicsStepper:
 
     def observation(self) -> np.ndarray:
         """A copy of the current observation (float32 values held as float64)."""
-        self._kernels.observation(self.state, self.params, self._obs)
+        self._observation(self.state, self.params, self._obs)
         return self._obs.copy()
 
     def reset(self) -> np.ndarray:
         """Draw a start state from the stream; return its observation."""
-        self._kernels.reset(self.state, self.params, self.stream)
+        self._reset(self.state, self.params, self.stream)
         self.steps = 0
         return self.observation()
 
@@ -46,6 +46,6 @@ class DynamicsStepper:
             kernel_action: int | np.ndarray = int(action)
         else:
             kernel_action = np.asarray(action, dtype=np.float64).reshape(self.spec.action_size)
-        reward, terminated = self._kernels.step(self.state, kernel_action, self.params, self.state)
+        reward, terminated = self._step(self.state, kernel_action, self.params, self.state)
         self.steps += 1
         return self.observation(), float(reward), bool(terminated), self.steps >= self.spec.step_limit
