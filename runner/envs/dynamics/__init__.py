@@ -11,6 +11,8 @@ Every environment has the same kernel shape, so a compiled loop can call any of 
 
 Kernels compile with numba's `error_model="numpy"`: a division by zero gives inf or nan, as the numpy scalars in
 gymnasium's code do, instead of raising, which also spares a branch per division (about 1.5x faster on CartPole).
+`reset`, `step` and `observation` are also `inline="always"`: numba inlines them into the compiled loop that calls
+them, which halved the time per CartPole step of a loop calling them by id (measured: 84 to 36 ns of CPU).
 
 Truncation is the caller's: an episode is truncated after `step_limit` steps (gymnasium's registered
 `max_episode_steps`), also on the step that terminates, as gymnasium's `TimeLimit` does.

@@ -71,7 +71,7 @@ def default_params() -> np.ndarray:
     return np.array([values[name] for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def reset(state, params, stream):
     """Draw each coordinate uniform in [reset_low, reset_high), rounded to float32 as gymnasium stores it."""
     for i in range(4):
@@ -116,7 +116,7 @@ def _wrap(x, m, big_m):
     return x
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step(state, action, params, out_state):
     """One RK4 step of dt under the torque of `action`; writes `out_state` (may be `state`).
 
@@ -148,7 +148,7 @@ def step(state, action, params, out_state):
     return (0.0 if terminated else -1.0), terminated
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def observation(state, params, out_obs):
     """The observation gymnasium returns: cosines and sines of both angles, then both velocities, in float32."""
     out_obs[0] = as_f32(math.cos(state[0]))

@@ -59,14 +59,14 @@ def default_params() -> np.ndarray:
     return np.array([values[name] for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def reset(state, params, stream):
     """Draw the start state: each of the four coordinates uniform in [reset_low, reset_high)."""
     for i in range(4):
         state[i] = uniform_between(stream, params[LOW], params[HIGH])
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step(state, action, params, out_state):
     """One Euler step under push `action` (0 left, 1 right); writes `out_state` (may be `state`).
 
@@ -96,7 +96,7 @@ def step(state, action, params, out_state):
     return 1.0, terminated
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def observation(state, params, out_obs):
     """The observation gymnasium returns: the state rounded to float32."""
     for i in range(4):

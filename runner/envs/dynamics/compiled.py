@@ -31,7 +31,7 @@ def env_observation(env_id, state, params, out_obs):
     raise NotImplementedError("env_observation is resolved inside compiled code")
 
 
-@overload(env_reset)
+@overload(env_reset, inline="always")
 def _env_reset(env_id, state, params, stream):
     if not isinstance(env_id, types.StringLiteral):
         return None
@@ -43,7 +43,7 @@ def _env_reset(env_id, state, params, stream):
     return impl
 
 
-@overload(env_step)
+@overload(env_step, inline="always")
 def _env_step(env_id, state, action, params, out_state):
     if not isinstance(env_id, types.StringLiteral):
         return None
@@ -55,7 +55,7 @@ def _env_step(env_id, state, action, params, out_state):
     return impl
 
 
-@overload(env_observation)
+@overload(env_observation, inline="always")
 def _env_observation(env_id, state, params, out_obs):
     if not isinstance(env_id, types.StringLiteral):
         return None

@@ -75,7 +75,7 @@ def default_params(goal_velocity: float = 0.0) -> np.ndarray:
     return np.array([values[name] for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def reset(state, params, stream):
     """Draw the start position uniform in [reset_low, reset_high); at rest; state held in float64."""
     state[0] = uniform_between(stream, params[LOW], params[HIGH])
@@ -95,7 +95,7 @@ def _below(value, is_f32, bound):
     return value < (as_f32(bound) if is_f32 else bound)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step(state, action, params, out_state):
     """One step under force `action[0]` (rounded to float32); writes `out_state` (may be `state`).
 
@@ -143,7 +143,7 @@ def step(state, action, params, out_state):
     return reward, terminated
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def observation(state, params, out_obs):
     """The observation gymnasium returns: (position, velocity) rounded to float32."""
     out_obs[0] = as_f32(state[0])

@@ -75,7 +75,7 @@ def default_params(**options: float) -> np.ndarray:
     return np.array([float(values[name]) for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def reset(state, params, stream):
     """Trolley at rest uniform in [start_low, start_high); load at rest at an angle uniform in +-start_swing."""
     state[0] = uniform_between(stream, params[START_LOW], params[START_HIGH])
@@ -159,7 +159,7 @@ def outcome(params, x, v, theta, omega):
     return reward, delivered
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step(state, action, params, out_state):
     """One RK4 step under `action`; writes `out_state` (may be `state`). Returns (reward, terminated)."""
     force = push_fraction(action) * params[PUSH_FORCE]
@@ -171,7 +171,7 @@ def step(state, action, params, out_state):
     return outcome(params, x, v, theta, omega)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def observation(state, params, out_obs):
     """The crane's observation: the state rounded to float32."""
     for i in range(4):

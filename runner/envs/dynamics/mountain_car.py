@@ -50,14 +50,14 @@ def default_params(goal_velocity: float = 0.0) -> np.ndarray:
     return np.array([values[name] for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def reset(state, params, stream):
     """Draw the start position uniform in [reset_low, reset_high); the car starts at rest."""
     state[0] = uniform_between(stream, params[LOW], params[HIGH])
     state[1] = 0.0
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step(state, action, params, out_state):
     """One step under push `action` (0 left, 1 none, 2 right); writes `out_state` (may be `state`).
 
@@ -76,7 +76,7 @@ def step(state, action, params, out_state):
     return -1.0, terminated
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def observation(state, params, out_obs):
     """The observation gymnasium returns: the state rounded to float32."""
     out_obs[0] = as_f32(state[0])

@@ -58,7 +58,7 @@ def default_params(g: float = 10.0) -> np.ndarray:
     return np.array([values[name] for name in PARAMS], dtype=np.float64)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def reset(state, params, stream):
     """Draw theta uniform in [-pi, pi) and theta_dot uniform in [-1, 1), in that order."""
     state[0] = uniform_between(stream, -params[RESET_THETA], params[RESET_THETA])
@@ -71,7 +71,7 @@ def _angle_normalize(x):
     return ((x + math.pi) % (2 * math.pi)) - math.pi
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def step(state, action, params, out_state):
     """One step under torque `action[0]`; writes `out_state` (may be `state`). Returns (reward, terminated)."""
     th, thdot = state[0], state[1]
@@ -88,7 +88,7 @@ def step(state, action, params, out_state):
     return -costs, False
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def observation(state, params, out_obs):
     """The observation gymnasium returns: (cos theta, sin theta, theta_dot) rounded to float32."""
     out_obs[0] = as_f32(math.cos(state[0]))
