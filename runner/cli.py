@@ -244,6 +244,7 @@ def _seeds(args: argparse.Namespace) -> int:
 def _check(args: argparse.Namespace) -> int:
     from runner.config import load_experiment
     from runner.plan import plan_trials
+    from runner.threshold_check import threshold_warnings
 
     experiment = load_experiment(args.experiment)
     trials = plan_trials(experiment)
@@ -256,10 +257,13 @@ def _check(args: argparse.Namespace) -> int:
     width = max(len(a.label) for a in experiment.agents)
     for env in experiment.environments:
         threshold = "none" if env.threshold is None else f"{env.threshold:g}"
-        print(f"  {env.label}  (threshold {threshold}; evaluation episodes cut at {env.step_cap} steps)")
+        earning = "" if env.earning_threshold is None else f"; earning threshold {env.earning_threshold:g}"
+        print(f"  {env.label}  (threshold {threshold}{earning}; evaluation episodes cut at {env.step_cap} steps)")
         for agent in experiment.agents:
             print(f"    {agent.label:<{width}}  {counts[(env.label, agent.label)]} trials")
-    print(f"baseline: {experiment.baseline or 'none'}")
+    print(f"baseline: {experiment.baseline or 'none'}; primary measure: {experiment.analysis.measure}")
+    for line in threshold_warnings(experiment):
+        print(line)
     return 0
 
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import itertools
+import math
 import re
 from dataclasses import dataclass
 from pathlib import Path
@@ -39,6 +40,13 @@ _ANALYSIS_SCHEMA = (
     Param("consecutive", "int", 1, "evaluation points in a row the return must stay at the threshold", low=1),
     Param("resamples", "int", 2000, "bootstrap resamples behind every interval", low=100, high=1_000_000),
     Param("confidence", "float", 0.95, "confidence level of every interval", low=0.5, high=1.0, high_open=True),
+    Param(
+        "measure",
+        "choice",
+        "greedy_return",
+        "what ranks agents: greedy evaluation return, or reward earned per real step while learning",
+        choices=("greedy_return", "earning_rate"),
+    ),
 )
 _COSTS_SCHEMA = (
     Param(
@@ -48,7 +56,7 @@ _COSTS_SCHEMA = (
 )
 _COST_UNIT = re.compile(r"^[^\x00-\x1f]{1,32}$")
 _EVAL_KEYS = ("every", "episodes", "step_cap", "training_window")
-_ENV_KEYS = ("label", "gym", "grid", "entry", "options", "step_limit", "threshold")
+_ENV_KEYS = ("label", "gym", "grid", "entry", "options", "step_limit", "threshold", "earning_threshold")
 _GRID_KEYS = ("map", *GRID_PARAMS, "changes")
 _AGENT_KEYS = ("label", "kind", "params")
 _DEFAULT_STEP_CAP = 1000
@@ -79,6 +87,7 @@ class Analysis:
     consecutive: int = 1
     resamples: int = 2000
     confidence: float = 0.95
+    measure: str = "greedy_return"
 
 
 @dataclass(frozen=True)
@@ -92,12 +101,17 @@ class Costs:
 
 @dataclass(frozen=True)
 class EnvironmentDecl:
-    """One environment of the experiment: its label, resolved spec and performance threshold."""
+    """One environment of the experiment: its label, resolved spec and thresholds.
+
+    `threshold` is a greedy evaluation return; `earning_threshold` is reward earned per real step while learning
+    (the `earning_rate` measure). Either may be None.
+    """
 
     label: str
     spec: dict[str, Any]
     threshold: float | None
     step_cap: int
+    earning_threshold: float | None = None
 
 
 @dataclass(frozen=True)
@@ -150,6 +164,7 @@ def load_experiment(path: str | Path) -> Experiment:
     evaluation = _evaluation(src, data.get("evaluation"), real_steps)
     analysis = _analysis(src, data.get("analysis"))
     environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
+    _primary_thresholds(src, analysis, environments)
     agents = _agents(src, _require(src, data, ("agents",)))
     baseline = _baseline(src, data.get("baseline"), agents)
     costs = _costs(src, data.get("costs"))
@@ -332,13 +347,35 @@ def _environment(
     if not isinstance(label, str) or not label.strip():
         raise src.error((*path, "label"), f"expected a non-empty text label, got {_kind(label)}")
     if "threshold" in data:
-        raw = data["threshold"]
-        if raw is not None and (isinstance(raw, bool) or not isinstance(raw, (int, float))):
-            raise src.error((*path, "threshold"), f"expected a number (a return to reach), got {_kind(raw)}")
-        threshold = None if raw is None else float(raw)
+        threshold = _threshold(src, (*path, "threshold"), data["threshold"], "a return to reach")
+    earning = _threshold(src, (*path, "earning_threshold"), data.get("earning_threshold"), "reward per real step")
     _check_buildable(src, path, source, spec)
     step_cap = evaluation.step_cap or time_limit or _DEFAULT_STEP_CAP
-    return EnvironmentDecl(label=label, spec=spec, threshold=threshold, step_cap=int(step_cap))
+    return EnvironmentDecl(
+        label=label, spec=spec, threshold=threshold, step_cap=int(step_cap), earning_threshold=earning
+    )
+
+
+def _threshold(src: SourceText, path: KeyPath, raw: Any, what: str) -> float | None:
+    """A threshold: a finite number, or nothing."""
+    if raw is None:
+        return None
+    if isinstance(raw, bool) or not isinstance(raw, (int, float)) or not math.isfinite(raw):
+        raise src.error(path, f"expected a number ({what}), got {_kind(raw)}")
+    return float(raw)
+
+
+def _primary_thresholds(src: SourceText, analysis: Analysis, environments: tuple[EnvironmentDecl, ...]) -> None:
+    """With `measure: earning_rate`, every environment needs an earning threshold for the headline to answer."""
+    if analysis.measure != "earning_rate":
+        return
+    for i, env in enumerate(environments):
+        if env.earning_threshold is None:
+            raise src.error(
+                ("environments", i),
+                "missing earning_threshold: analysis.measure is earning_rate, so give the reward per real step "
+                "that counts as learned (e.g. earning_threshold: 0.02)",
+            )
 
 
 def _grid(src: SourceText, path: KeyPath, value: Any, real_steps: int) -> dict[str, Any]:

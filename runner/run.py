@@ -39,6 +39,8 @@ def experiment_facts(experiment: Experiment) -> dict:
         "real_steps": experiment.real_steps,
         "baseline": experiment.baseline,
         "thresholds": {e.label: e.threshold for e in experiment.environments},
+        "earning_thresholds": {e.label: e.earning_threshold for e in experiment.environments},
+        "measure": experiment.analysis.measure,
         "env_order": [e.label for e in experiment.environments],
         "agent_order": [a.label for a in experiment.agents],
         "consecutive": experiment.analysis.consecutive,

@@ -158,6 +158,27 @@ _CASES = [
     Case(
         "analysis-unknown-key", _TOP + "analysis: {resample: 10}\n", 4, "analysis.resample", "did you mean 'resamples'?"
     ),
+    Case(
+        "analysis-measure-unknown",
+        _TOP + "analysis:\n  measure: online\n",
+        5,
+        "analysis.measure",
+        "expected one of 'greedy_return', 'earning_rate', got 'online'",
+    ),
+    Case(
+        "earning-measure-without-its-threshold",
+        _HEAD + "analysis: {measure: earning_rate}\nagents:\n  - kind: q_learning\n",
+        5,
+        "environments[0]",
+        "missing earning_threshold: analysis.measure is earning_rate",
+    ),
+    Case(
+        "earning-threshold-not-a-number",
+        _TOP + "environments:\n  - grid: {map: 'S.G'}\n    earning_threshold: fast\n",
+        6,
+        "environments[0].earning_threshold",
+        "expected a number (reward per real step), got 'fast'",
+    ),
     Case("agent-kind-typo", _HEAD + "agents:\n  - kind: dyna\n", 7, "agents[0].kind", "did you mean 'dyna_q'"),
     Case(
         "alpha-out-of-range",

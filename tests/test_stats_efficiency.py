@@ -171,3 +171,24 @@ def test_sentences_from_computed_ratios():
     agent = _trials("maze", "dyna", np.arange(1, 11) * 100, [True] * 10)
     sentences = efficiency_sentences(efficiency_ratios(pd.concat([baseline, agent]), "q", n_resamples=300))
     assert len(sentences) == 1 and "10x fewer real steps than q" in sentences[0]
+
+
+def test_a_median_at_the_first_evaluation_point_gives_a_bound_without_interval():
+    baseline = _trials("maze", "q", [1000, 1500, 2000, 2500, 3000], [True] * 5)
+    quick = _trials("maze", "dyna", [500, 500, 500, 1000, 1000], [True] * 5)
+    table = efficiency_ratios(pd.concat([baseline, quick]), "q", n_resamples=300, resolution={"maze": 500.0})
+    row = _row(table, "dyna")
+    assert row["agent_median"] == 500.0 and row["ratio"] == pytest.approx(4.0)
+    assert row["bound"] == "at least" and np.isnan(row["low"]) and np.isnan(row["high"])
+    (sentence,) = efficiency_sentences(table, "a return of 0.9")
+    assert sentence.startswith("On maze, dyna needed at least 4x fewer real steps than q to reach a return of 0.9:")
+    assert "at or before 500 real steps" in sentence and "a finer evaluation `every`" in sentence
+    # the other way round: the baseline's median is the coarse one, so the agent needs at least 4x more
+    flipped = efficiency_ratios(
+        pd.concat([baseline.assign(agent="dyna"), quick.assign(agent="q")]), "q", resolution={"maze": 500.0}
+    )
+    assert _row(flipped, "dyna")["bound"] == "at most"
+    assert "needed at least 4x more real steps" in efficiency_sentences(flipped)[0]
+    # without a resolution the medians are taken at face value, with an interval
+    plain = _row(efficiency_ratios(pd.concat([baseline, quick]), "q", n_resamples=300), "dyna")
+    assert plain["bound"] == "" and not np.isnan(plain["low"])

@@ -48,16 +48,23 @@ def _pattern_bands(
 
 
 def curve_bands(
-    frame: pd.DataFrame, *, confidence: float = 0.95, n_resamples: int = 2000, seed: int = 0
+    frame: pd.DataFrame,
+    *,
+    confidence: float = 0.95,
+    n_resamples: int = 2000,
+    seed: int = 0,
+    column: str = "eval_return",
 ) -> pd.DataFrame:
-    """Mean greedy evaluation return per (env, agent, point) with a percentile bootstrap band over seeds.
+    """Mean greedy evaluation return (or another measure, `column`) per (env, agent, point) with a percentile
+    bootstrap band over seeds.
 
     Each (env, agent) pair draws from its own generator keyed on the seed and its labels, so the band of
-    one agent does not change when other agents are added to the experiment.
+    one agent does not change when other agents are added to the experiment. Points where `column` is NaN for
+    every trial (the earning rate at step 0) get NaN bands.
     """
     parts = []
     for (env, agent), group in frame.groupby(["env", "agent"], sort=True):
-        returns = group.pivot(index="trial_id", columns="point", values="eval_return").sort_index(axis=1)
+        returns = group.pivot(index="trial_id", columns="point", values=column).sort_index(axis=1)
         steps = group.groupby("point")["real_steps"].first().reindex(returns.columns)
         mean, low, high, n_seeds = _pattern_bands(
             returns.to_numpy(dtype=float),

@@ -39,6 +39,7 @@ EFFICIENCY_COLUMNS = [
     "paired_seeds",
     "estimable_share",
     "note",
+    "bound",
 ]
 # Percentile bounds are only reported when at least this share of resamples gives a ratio (see efficiency_ratios).
 MIN_ESTIMABLE_SHARE = 0.9
@@ -106,6 +107,15 @@ def _median_note(label: str, median: float, reached: int, paired: int) -> str:
     return ""
 
 
+def _coarse_note(label: str, resolution: float, *, both: bool) -> str:
+    """Why a median at the first evaluation point gives only a bound on the ratio."""
+    who = "both medians fall" if both else f"the median of {label} falls"
+    return (
+        f"{who} at the first evaluation point (at or before {resolution:,.0f} real steps), so the data "
+        "bound the ratio but give no interval; a finer evaluation `every` would measure it"
+    )
+
+
 def _pair_row(
     env: str,
     agent: str,
@@ -116,13 +126,18 @@ def _pair_row(
     confidence: float,
     n_resamples: int,
     seed: int,
+    resolution: float,
 ) -> dict[str, object]:
-    """Ratio, interval and counts for one agent against the baseline on one environment."""
+    """Ratio, interval and counts for one agent against the baseline on one environment.
+
+    A median at the first evaluation point (`resolution` real steps) only says "at or before" that step, so a
+    ratio involving it is a bound ("at least" or "at most" in `bound`) without an interval.
+    """
     seeds = [value for value in baseline_trials.index if value in agent_trials.index]
     row: dict[str, object] = {"env": env, "agent": agent, "baseline": baseline, "confidence": confidence}
     row.update(ratio=np.nan, low=np.nan, high=np.nan, includes_one=pd.NA, paired_seeds=len(seeds))
     row.update(agent_median=np.nan, baseline_median=np.nan, agent_reached=0, baseline_reached=0)
-    row.update(estimable_share=np.nan, note="")
+    row.update(estimable_share=np.nan, note="", bound="")
     if not seeds:
         row["note"] = f"no seed was run by both {agent} and {baseline}"
         return row
@@ -143,6 +158,14 @@ def _pair_row(
         row["note"] = "; ".join(note for note in notes if note)
         return row
     row["ratio"] = baseline_median / agent_median
+    coarse = [median <= resolution for median in (agent_median, baseline_median)]
+    if any(coarse):
+        row["note"] = _coarse_note(agent if coarse[0] else baseline, resolution, both=all(coarse))
+        if all(coarse):
+            row["ratio"] = np.nan
+        else:
+            row["bound"] = "at least" if coarse[0] else "at most"
+        return row
     counts = seed_counts(len(seeds), n_resamples, keyed_rng(seed, "efficiency", env, agent, baseline))
     with np.errstate(divide="ignore", invalid="ignore"):
         baseline_medians = weighted_km_medians(times[1], reached[1], counts)
@@ -168,6 +191,7 @@ def efficiency_ratios(
     confidence: float = 0.95,
     n_resamples: int = 2000,
     seed: int = 0,
+    resolution: Mapping[str, float] | None = None,
 ) -> pd.DataFrame:
     """Per (env, agent other than `baseline`): baseline's median real steps to threshold over the agent's.
 
@@ -178,6 +202,9 @@ def efficiency_ratios(
     half) or zero gives no ratio: such resamples are counted as not estimable, `estimable_share` reports the
     share that were, and bounds are computed from the estimable ones only when that share is at least
     MIN_ESTIMABLE_SHARE (90%), otherwise they are NaN. A NaN ratio or bounds come with a `note` saying why.
+    `resolution` gives each environment's first evaluation step after 0: a median there means "at or before
+    it", so the ratio is only a bound (`bound` "at least" or "at most", no interval; NaN when both medians are
+    there). Without it, medians are taken at face value.
 
     Parameters
     ----------
@@ -209,6 +236,7 @@ def efficiency_ratios(
                     confidence=confidence,
                     n_resamples=n_resamples,
                     seed=seed,
+                    resolution=float((resolution or {}).get(str(env), 0.0)),
                 )
             )
     table = pd.DataFrame.from_records(rows, columns=EFFICIENCY_COLUMNS)
@@ -234,6 +262,12 @@ def _sentence(row: pd.Series, threshold_label: str | Mapping[str, str]) -> str:
     if pd.isna(row["ratio"]):
         return f"On {env}, there is no step ratio for {agent} against {baseline} to reach {label}: {row['note']}."
     ratio, low, high = float(row["ratio"]), float(row["low"]), float(row["high"])
+    if row.get("bound") in ("at least", "at most"):
+        direction, factor = ("fewer", ratio) if ratio >= 1.0 else ("more", 1.0 / ratio)
+        return (
+            f"On {env}, {agent} needed at least {_number(factor)}x {direction} real steps than {baseline} to "
+            f"reach {label}: {row['note']}."
+        )
     level = f"{round(100 * float(row['confidence']), 1):g}%"
     counts = (
         f"{row['agent_reached']}/{row['paired_seeds']} and {row['baseline_reached']}/{row['paired_seeds']} "

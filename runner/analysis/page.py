@@ -11,7 +11,7 @@ import json
 import math
 import os
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING
@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 
 from runner.analysis.costs import BREAK_EVEN_COLUMNS, COST_COLUMNS, COST_TRIAL_COLUMNS, format_cpu_time
+from runner.analysis.measures import MEASURES
 from runner.analysis.tables import format_interval, format_number
 
 if TYPE_CHECKING:
@@ -40,14 +41,17 @@ __all__ = [
     "break_even_view",
     "comparisons_view",
     "costs_view",
+    "earnings_view",
     "efficiency_view",
     "env_views",
     "frontier_view",
     "glance_sentences",
     "markdown_sections",
+    "recovery_view",
     "render_page",
     "summary_view",
     "threshold_view",
+    "windows_view",
     "write_page",
 ]
 
@@ -95,6 +99,12 @@ class ReportTables:
     advice: pd.DataFrame
     compute: pd.DataFrame
     frontier: pd.DataFrame
+    earning_bands: pd.DataFrame = field(default_factory=pd.DataFrame)
+    earnings: pd.DataFrame = field(default_factory=pd.DataFrame)
+    recovery: pd.DataFrame = field(default_factory=pd.DataFrame)
+    rsummary: pd.DataFrame = field(default_factory=pd.DataFrame)
+    rratios: pd.DataFrame = field(default_factory=pd.DataFrame)
+    windows: pd.DataFrame = field(default_factory=pd.DataFrame)
     break_even: pd.DataFrame = field(default_factory=lambda: _empty(BREAK_EVEN_COLUMNS))
     costs: pd.DataFrame = field(default_factory=lambda: _empty(COST_COLUMNS))
     priced: pd.DataFrame = field(default_factory=lambda: _empty(COST_TRIAL_COLUMNS))
@@ -166,10 +176,27 @@ def _steps(value: float) -> str:
     return f"{float(value):,.0f}"
 
 
-def _steps_interval(estimate: float, low: float, high: float) -> str:
-    """Steps with their interval, e.g. "1,200 [1,000, 1,600]"; bounds that could not be found read "n/a"."""
+def _steps_interval(estimate: float, low: float, high: float, first_point: float = math.nan) -> str:
+    """Steps with their interval, e.g. "1,200 [1,000, 1,600]"; bounds that could not be found read "n/a".
+
+    An estimate at the first evaluation point (`first_point`) reads "at or before 1,000": the protocol cannot
+    tell when in that first interval the threshold was reached, so no interval is given.
+    """
+    if not pd.isna(estimate) and not pd.isna(first_point) and 0 < float(estimate) <= float(first_point):
+        return f"at or before {_steps(estimate)}"
     bounds = ["n/a" if pd.isna(bound) else _steps(bound) for bound in (low, high)]
     return f"{_steps(estimate)} [{bounds[0]}, {bounds[1]}]"
+
+
+def _first(row: pd.Series) -> float:
+    """A summary row's first evaluation step after 0 (NaN when the table does not carry it)."""
+    return float(row["first_point"]) if "first_point" in row.index and not pd.isna(row["first_point"]) else math.nan
+
+
+_FINER = (
+    ' "at or before": the median falls at the first evaluation point, so it is only bounded; a finer evaluation '
+    "`every` would measure it."
+)
 
 
 def _p_value(value: float) -> str:
@@ -211,25 +238,29 @@ def threshold_view(rows: pd.DataFrame, confidence: float) -> TableView:
         (
             "median real steps [low, high]",
             True,
-            lambda r: _steps_interval(r["median_steps"], r["median_low"], r["median_high"]),
+            lambda r: _steps_interval(r["median_steps"], r["median_low"], r["median_high"], _first(r)),
         ),
-        ("25% of trials by", True, lambda r: _steps_interval(r["q25_steps"], r["q25_low"], r["q25_high"])),
-        ("75% of trials by", True, lambda r: _steps_interval(r["q75_steps"], r["q75_low"], r["q75_high"])),
+        ("25% of trials by", True, lambda r: _steps_interval(r["q25_steps"], r["q25_low"], r["q25_high"], _first(r))),
+        ("75% of trials by", True, lambda r: _steps_interval(r["q75_steps"], r["q75_low"], r["q75_high"], _first(r))),
     ]
     note = (
         "Kaplan-Meier estimates: a trial that never reached the threshold counts as censored at its last step, "
         f'never dropped. Intervals are {confidence:.0%} (complementary log-log). "not reached": fewer than that '
         'share of trials is estimated to get there within the budget; "unbounded": the data set no upper end.'
     )
-    return _view(rows, columns, note, "Real steps to threshold")
+    return _view(rows, columns, note + _FINER, "Real steps to threshold")
 
 
-def efficiency_view(rows: pd.DataFrame) -> TableView:
+def efficiency_view(rows: pd.DataFrame, title: str = "Real steps against the baseline") -> TableView:
     """Baseline median over agent median of real steps to threshold, with its paired-bootstrap interval."""
 
     def ratio(r: pd.Series) -> str:
         if pd.isna(r["ratio"]):
             return "n/a"
+        if r.get("bound") == "at least":
+            return f">= {_number(r['ratio'])}"
+        if r.get("bound") == "at most":
+            return f"<= {_number(r['ratio'])}"
         return format_interval(r["ratio"], r["low"], r["high"]) if not pd.isna(r["low"]) else _number(r["ratio"])
 
     columns: list[_Column] = [
@@ -249,17 +280,84 @@ def efficiency_view(rows: pd.DataFrame) -> TableView:
         "A ratio above 1 means the agent needed fewer real steps than the baseline; an interval that includes 1 "
         "shows no clear difference. Seeds are resampled in pairs (both agents' trials of a seed together)."
     )
-    return _view(rows, columns, note, "Real steps against the baseline")
+    return _view(rows, columns, note, title)
 
 
-def comparisons_view(rows: pd.DataFrame, confidence: float) -> TableView:
-    """Welch-Holm tests and probability of improvement on AUC for every pair of agents of one environment."""
+def earnings_view(rows: pd.DataFrame) -> TableView:
+    """Reward earned while learning per agent: in total, per real step, and over the last evaluation interval."""
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("seeds", True, lambda r: str(int(r["seeds"]))),
+        (
+            "reward earned [low, high]",
+            True,
+            lambda r: format_interval(r["earned_mean"], r["earned_low"], r["earned_high"]),
+        ),
+        ("per real step [low, high]", True, lambda r: format_interval(r["rate_mean"], r["rate_low"], r["rate_high"])),
+        (
+            "per real step, last interval [low, high]",
+            True,
+            lambda r: format_interval(r["final_rate_mean"], r["final_rate_low"], r["final_rate_high"]),
+        ),
+    ]
+    note = (
+        "Reward of every real step taken while learning, exploration included (the measure of Sutton & Barto "
+        "2018, Examples 8.2 and 8.3); per real step it is the earning rate. Means over seeds with bootstrap intervals."
+    )
+    return _view(rows, columns, note, "Reward earned while learning")
+
+
+def recovery_view(rows: pd.DataFrame, confidence: float) -> TableView:
+    """Per change and agent: seeds that regained the threshold and Kaplan-Meier quartiles of real steps after it."""
+
+    def first(r: pd.Series) -> float:
+        return float(r["first_point"])
+
+    columns: list[_Column] = [
+        ("change", False, lambda r: f"{int(r['change'])} at {_steps(r['at'])}"),
+        ("agent", False, lambda r: str(r["agent"])),
+        ("regained", True, lambda r: f"{int(r['reached'])} of {int(r['trials'])}"),
+        (
+            "median real steps after the change [low, high]",
+            True,
+            lambda r: _steps_interval(r["median_steps"], r["median_low"], r["median_high"], first(r)),
+        ),
+        ("25% by", True, lambda r: _steps_interval(r["q25_steps"], r["q25_low"], r["q25_high"], first(r))),
+        ("75% by", True, lambda r: _steps_interval(r["q75_steps"], r["q75_low"], r["q75_high"], first(r))),
+    ]
+    note = (
+        "Real steps from the change until the measure is back at the threshold, within the phase the change "
+        "starts; seeds that never get back are censored at the phase end (Kaplan-Meier, "
+        f"{confidence:.0%} complementary log-log intervals)." + _FINER
+    )
+    return _view(rows, columns, note, "Adaptation after the change")
+
+
+def windows_view(rows: pd.DataFrame) -> TableView:
+    """The measure in windows before, just after and at the end of the phase each change starts."""
+    columns: list[_Column] = [
+        ("change", False, lambda r: f"{int(r['change'])} at {_steps(r['at'])}"),
+        ("agent", False, lambda r: str(r["agent"])),
+        ("window", False, lambda r: f"{r['window']} ({_steps(r['from_step'])}-{_steps(r['to_step'])}]"),
+        ("seeds", True, lambda r: str(int(r["seeds"]))),
+        ("mean [low, high]", True, lambda r: format_interval(r["mean"], r["low"], r["high"])),
+    ]
+    note = (
+        "The primary measure averaged over each window's evaluation points, then over seeds, with bootstrap "
+        "intervals. Windows are a quarter of the shorter neighbouring phase."
+    )
+    return _view(rows, columns, note, "The measure around each change")
+
+
+def comparisons_view(rows: pd.DataFrame, confidence: float, score: str = "AUC") -> TableView:
+    """Welch-Holm tests and probability of improvement on a per-trial score (AUC, or reward earned per real
+    step when that is the primary measure) for every pair of agents of one environment."""
     alpha = 1.0 - confidence
     columns: list[_Column] = [
         ("agent A", False, lambda r: str(r["agent_a"])),
         ("agent B", False, lambda r: str(r["agent_b"])),
-        ("mean AUC A", True, lambda r: _number(r["mean_a"])),
-        ("mean AUC B", True, lambda r: _number(r["mean_b"])),
+        (f"mean {score} A", True, lambda r: _number(r["mean_a"])),
+        (f"mean {score} B", True, lambda r: _number(r["mean_b"])),
         ("A - B", True, lambda r: _number(r["difference"])),
         ("Welch t (df)", True, lambda r: "n/a" if pd.isna(r["t"]) else f"{r['t']:.2f} ({r['df']:.1f})"),
         ("p", True, lambda r: _p_value(r["p_value"])),
@@ -276,11 +374,11 @@ def comparisons_view(rows: pd.DataFrame, confidence: float) -> TableView:
         ),
     ]
     note = (
-        "Welch's t-test on AUC (unequal variances), Holm-adjusted over the pairs of this environment so the chance "
-        f"of any false alarm stays at {alpha:.0%}. P(A > B): chance that a random trial of A scores a higher AUC "
-        "than one of B (ties count half), with a bootstrap interval; 0.5 means no tendency either way."
+        f"Welch's t-test on {score} (unequal variances), Holm-adjusted over the pairs of this environment so the "
+        f"chance of any false alarm stays at {alpha:.0%}. P(A > B): chance that a random trial of A scores a higher "
+        f"{score} than one of B (ties count half), with a bootstrap interval; 0.5 means no tendency either way."
     )
-    return _view(rows, columns, note, "Are the differences real? (AUC)")
+    return _view(rows, columns, note, f"Are the differences real? ({score})")
 
 
 def frontier_view(rows: pd.DataFrame) -> TableView:
@@ -414,9 +512,20 @@ def env_views(data: ReportTables, facts: ExperimentFacts, env: str) -> dict[str,
     efficiency = _env_rows(data.efficiency, env)
     views["efficiency"] = efficiency_view(efficiency) if len(efficiency) else None
     comparisons = _env_rows(data.comparisons, env)
-    views["comparisons"] = comparisons_view(comparisons, facts.confidence) if len(comparisons) else None
+    score = "AUC" if facts.measure == "greedy_return" else "reward per real step"
+    views["comparisons"] = comparisons_view(comparisons, facts.confidence, score) if len(comparisons) else None
     frontier = _env_rows(data.frontier, env)
     views["frontier"] = frontier_view(frontier) if len(frontier) else None
+    earnings = _env_rows(data.earnings, env)
+    views["earnings"] = earnings_view(earnings) if len(earnings) else None
+    recovery = _env_rows(data.rsummary, env)
+    views["recovery"] = recovery_view(recovery, facts.confidence) if len(recovery) else None
+    ratios = _env_rows(data.rratios, env)
+    views["recovery_ratios"] = (
+        efficiency_view(ratios, "Real steps to recover against the baseline") if len(ratios) else None
+    )
+    windows = _env_rows(data.windows, env)
+    views["windows"] = windows_view(windows) if len(windows) else None
     break_even = _env_rows(data.break_even, env)
     views["break_even"] = break_even_view(break_even) if len(break_even) else None
     costs = _env_rows(data.costs, env)
@@ -486,16 +595,27 @@ def _runs(runs: pd.DataFrame) -> list[dict[str, object]]:
     return described
 
 
-def glance_sentences(tsummary: pd.DataFrame, pages: Sequence[EnvPage]) -> list[str]:
-    """One sentence per environment with a threshold: each agent's median real steps to it, fastest first."""
+def glance_sentences(
+    tsummary: pd.DataFrame, pages: Sequence[EnvPage], changes: Mapping[str, Sequence[int]] | None = None
+) -> list[str]:
+    """One sentence per environment with a threshold: each agent's median real steps to it, fastest first.
+
+    For an environment that changes (`changes`), the sentence says the steps count from the start, before the
+    first change, so that it is not read as adaptation.
+    """
     sentences = []
     for page in pages:
         rows = _env_rows(tsummary, page.env)
         if page.threshold_text is None or rows.empty:
             continue
         parts = []
+        coarse = False
         for _, row in rows.sort_values("median_steps", na_position="last", kind="stable").iterrows():
-            if pd.isna(row["median_steps"]):
+            at_first = _steps_interval(row["median_steps"], np.nan, np.nan, _first(row)).startswith("at or")
+            coarse = coarse or at_first
+            if at_first:
+                parts.append(f"{row['agent']} {_steps_interval(row['median_steps'], np.nan, np.nan, _first(row))}")
+            elif pd.isna(row["median_steps"]):
                 parts.append(
                     f"{row['agent']} not within the budget ({int(row['reached'])} of {int(row['trials'])} "
                     "trials reached it)"
@@ -506,7 +626,17 @@ def glance_sentences(tsummary: pd.DataFrame, pages: Sequence[EnvPage]) -> list[s
                 parts.append(
                     f"{row['agent']} {_steps_interval(row['median_steps'], row['median_low'], row['median_high'])}"
                 )
-        sentences.append(f"On {page.env}, median real steps to reach {page.threshold_text}: {'; '.join(parts)}.")
+        finer = (
+            " (at or before: the median falls at the first evaluation point; a finer evaluation `every` would "
+            "measure it)"
+            if coarse
+            else ""
+        )
+        steps = (changes or {}).get(page.env)
+        when = f" from the start (the map first changes at {int(steps[0]):,} real steps)" if steps else ""
+        sentences.append(
+            f"On {page.env}, median real steps{when} to reach {page.threshold_text}: {'; '.join(parts)}{finer}."
+        )
     return sentences
 
 
@@ -531,7 +661,13 @@ def _data_uri(path: Path | None) -> str | None:
 _FIGURE_TEXT = {
     "curves": (
         "Learning curves",
-        "Mean greedy evaluation return against real environment steps; shaded: bootstrap interval over seeds.",
+        "Mean greedy evaluation return against real environment steps; shaded: bootstrap interval over seeds; "
+        "dotted vertical lines: the map changes, labelled with the phase they start (phase 1 is the first map).",
+    ),
+    "earning": (
+        "Reward earned while learning",
+        "Reward earned per real step over each evaluation interval, exploration included (the slope of the "
+        "cumulative reward); shaded: bootstrap interval over seeds; dotted vertical lines: the map changes.",
     ),
     "threshold": (
         "Time to threshold",
@@ -580,9 +716,14 @@ def _env_context(page: EnvPage, index: int, data: ReportTables, facts: Experimen
     blocks = [
         ("figure", figures.get("curves")),
         ("table", views["summary"]),
+        ("figure", figures.get("earning")),
+        ("table", views["earnings"]),
         ("figure", figures.get("threshold")),
         ("table", views["threshold"]),
         ("table", views["efficiency"]),
+        ("table", views["recovery"]),
+        ("table", views["recovery_ratios"]),
+        ("table", views["windows"]),
         ("table", views["comparisons"]),
         ("figure", figures.get("budget")),
         ("figure", figures.get("frontier")),
@@ -606,7 +747,7 @@ def _headline_note(facts: ExperimentFacts, headline: list[str]) -> str:
         return ""
     if not facts.baseline:
         return "No real-step ratios: the experiment declares no baseline agent."
-    if all(value is None for value in facts.thresholds.values()):
+    if all(value is None for value in facts.primary_thresholds.values()):
         return "No real-step ratios: no environment declares a return threshold."
     return "No real-step ratios could be formed (the baseline has no trials in an environment with a threshold)."
 
@@ -633,6 +774,7 @@ def render_page(
     envs: Sequence[EnvPage],
     headline: list[str],
     records: ExperimentRecords,
+    warnings: Sequence[str] = (),
 ) -> str:
     """The report page as HTML text."""
     environment = jinja2.Environment(
@@ -651,6 +793,8 @@ def render_page(
         facts=facts,
         thresholds=thresholds,
         headline=headline,
+        warnings=list(warnings),
+        measure=MEASURES[facts.measure].noun,
         headline_note=_headline_note(facts, headline),
         caution=CAUTION,
         envs=[_env_context(page, index, data, facts) for index, page in enumerate(envs)],
@@ -661,7 +805,7 @@ def render_page(
         records=record_views,
         counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs")},
         runs=_runs(records.runs),
-        glance=glance_sentences(data.tsummary, envs),
+        glance=glance_sentences(data.tsummary, envs, facts.changes),
         experiment_texts=_experiment_texts(records.runs),
     )
 
@@ -674,9 +818,10 @@ def write_page(
     envs: Sequence[EnvPage],
     headline: list[str],
     records: ExperimentRecords,
+    warnings: Sequence[str] = (),
 ) -> Path:
     """Write `report.html` into out_dir atomically and return its path."""
-    text = render_page(facts=facts, data=data, envs=envs, headline=headline, records=records)
+    text = render_page(facts=facts, data=data, envs=envs, headline=headline, records=records, warnings=warnings)
     path = Path(out_dir) / "report.html"
     temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
     try:

@@ -134,16 +134,32 @@ def _draw_threshold_line(axes: Axes, threshold: float | None) -> None:
 
 
 def _draw(
-    bands: pd.DataFrame, agents: list[str], threshold: float | None, title: str, changes: Sequence[int] = ()
+    bands: pd.DataFrame,
+    agents: list[str],
+    threshold: float | None,
+    title: str,
+    changes: Sequence[int] = (),
+    ylabel: str = "mean greedy evaluation return",
 ) -> Figure:
-    """Build the figure: one line and shaded band per agent, a dashed threshold line, dotted change events."""
+    """Build the figure: one line and shaded band per agent, a dashed threshold line, labelled change events."""
     figure = Figure(figsize=(7.0, 4.5), layout="constrained")
     axes = figure.add_subplot()
     _draw_bands(axes, bands, agent_styles(agents))
     _draw_threshold_line(axes, threshold)
     for i, step in enumerate(changes):
         axes.axvline(step, color="#555555", linestyle=":", linewidth=1.2, label="the map changes" if i == 0 else None)
-    _finish(axes, "real environment steps", "mean greedy evaluation return", title)
+        axes.annotate(
+            f"phase {i + 2} from {step:,}",
+            xy=(step, 1.0),
+            xycoords=("data", "axes fraction"),
+            xytext=(3, -3),
+            textcoords="offset points",
+            ha="left",
+            va="top",
+            fontsize="small",
+            color="#555555",
+        )
+    _finish(axes, "real environment steps", ylabel, title)
     return figure
 
 
@@ -156,18 +172,21 @@ def plot_curves(
     out_dir: Path,
     title: str,
     changes: Sequence[int] = (),
+    ylabel: str = "mean greedy evaluation return",
+    stem: str = "curves",
 ) -> list[Path]:
-    """Write `curves_<env>.png` and `.svg` for one environment and return their paths.
+    """Write `<stem>_<env>.png` and `.svg` for one environment and return their paths.
 
-    Shaded areas are the bootstrap bands from `curve_bands`; dotted vertical lines mark the real steps after which
-    a changing environment switched maps. Figures are built without pyplot, so no global figure state is
-    touched and nothing stays open after the call.
+    Shaded areas are the bootstrap bands from `curve_bands`; dotted vertical lines, labelled with the phase they
+    start, mark the real steps after which a changing environment switched maps. Figures are built without
+    pyplot, so no global figure state is touched and nothing stays open after the call.
     """
     env_bands = bands[bands["env"] == env]
     if env_bands.empty:
         raise ValueError(f"no curve bands for environment {env!r}")
-    figure = _draw(env_bands, ordered_labels(pd.unique(env_bands["agent"]), agent_order), threshold, title, changes)
-    return _save_both(figure, out_dir, f"curves_{safe_name(env)}")
+    agents = ordered_labels(pd.unique(env_bands["agent"]), agent_order)
+    figure = _draw(env_bands, agents, threshold, title, changes, ylabel)
+    return _save_both(figure, out_dir, f"{stem}_{safe_name(env)}")
 
 
 def plot_threshold(

@@ -22,6 +22,16 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
+from runner.analysis.adaptation import (
+    RECOVERY_COLUMNS,
+    RECOVERY_RATIO_COLUMNS,
+    RECOVERY_SUMMARY_COLUMNS,
+    adaptation_sentences,
+    recovery_ratios,
+    recovery_summary,
+    recovery_times,
+    window_means,
+)
 from runner.analysis.bootstrap import keyed_rng, mean_and_interval
 from runner.analysis.compare import PAIRWISE_COLUMNS, pairwise_welch
 from runner.analysis.costs import (
@@ -37,6 +47,7 @@ from runner.analysis.costs import (
 )
 from runner.analysis.curves import curve_bands, trial_scores
 from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
+from runner.analysis.measures import EARNING_COLUMNS, GREEDY_RETURN, MEASURES, earning_summary, with_earning_rate
 from runner.analysis.page import (
     EnvPage,
     ExperimentRecords,
@@ -76,6 +87,7 @@ __all__ = [
     "budget_families",
     "compute_table",
     "pareto_front",
+    "threshold_warnings",
     "write_report",
 ]
 
@@ -131,7 +143,9 @@ class ExperimentFacts:
 
     `consecutive` is how many evaluation points in a row the return must stay at or above the threshold;
     `variant_params` maps an agent label to its parameters, used to find families that vary a planning
-    budget (labels such as "Dyna-Q (planning_steps=5)" are parsed when it is empty).
+    budget (labels such as "Dyna-Q (planning_steps=5)" are parsed when it is empty). `measure` is the primary
+    measure (`greedy_return` against `thresholds`, or `earning_rate` against `earning_thresholds`): time to
+    threshold, the ratios against the baseline, adaptation after changes and the headline follow it.
     """
 
     name: str
@@ -147,7 +161,15 @@ class ExperimentFacts:
     consecutive: int = 1
     description: str = ""
     variant_params: dict[str, dict] = field(default_factory=dict)
+    measure: str = GREEDY_RETURN
+    earning_thresholds: dict[str, float | None] = field(default_factory=dict)
+
     costs: dict[str, object] | None = None
+
+    @property
+    def primary_thresholds(self) -> dict[str, float | None]:
+        """Thresholds of the primary measure, per environment."""
+        return self.thresholds if self.measure == GREEDY_RETURN else self.earning_thresholds
 
     @property
     def prices(self) -> Prices:
@@ -164,6 +186,7 @@ class ReportOutput:
     files: list[Path]
     terminal_text: str
     headline: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
 
 
 def _write_text_atomic(path: Path, text: str) -> Path:
@@ -252,29 +275,107 @@ def compute_table(frame: pd.DataFrame, envs: list[str], agents: list[str], facts
 
 
 def _threshold_label(facts: ExperimentFacts, env: str) -> str:
-    """Wording of one environment's threshold, including how long the return must stay above it."""
-    value = facts.thresholds.get(env)
+    """Wording of one environment's primary threshold, including how long the measure must stay above it."""
+    value = facts.primary_thresholds.get(env)
     if value is None:
         return "the threshold"
     held = f" held for {facts.consecutive} evaluations in a row" if facts.consecutive > 1 else ""
-    return f"a return of {value:g}{held}"
+    return f"{MEASURES[facts.measure].threshold_text(value)}{held}"
 
 
-def _efficiency(crossings: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agents: list[str]) -> pd.DataFrame:
+def _earned_per_step(frame: pd.DataFrame) -> pd.DataFrame:
+    """Per trial: reward earned while learning over its real steps (the mean of its earning-rate curve)."""
+    last = frame.loc[
+        frame.groupby("trial_id", sort=False)["point"].idxmax(), ["trial_id", "real_steps", "reward_earned"]
+    ]
+    steps = last["real_steps"].to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rate = np.where(steps > 0, last["reward_earned"].to_numpy(dtype=float) / steps, np.nan)
+    return pd.DataFrame({"trial_id": last["trial_id"].to_numpy(), "earned_per_step": rate})
+
+
+def _first_points(frame: pd.DataFrame) -> dict[str, float]:
+    """Each environment's first evaluation step after 0: a crossing there only says "at or before" it."""
+    positive = frame.loc[frame["real_steps"] > 0, ["env", "real_steps"]]
+    return {str(env): float(step) for env, step in positive.groupby("env", sort=False)["real_steps"].min().items()}
+
+
+def _efficiency(
+    crossings: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agents: list[str], first: dict[str, float]
+) -> pd.DataFrame:
     """Real-step ratios of every agent against the baseline, in report order (empty without a baseline)."""
     if not facts.baseline or crossings.empty:
         return pd.DataFrame(columns=EFFICIENCY_COLUMNS)
     ratios = efficiency_ratios(
-        crossings, facts.baseline, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
+        crossings,
+        facts.baseline,
+        confidence=facts.confidence,
+        n_resamples=facts.n_resamples,
+        seed=facts.seed,
+        resolution=first,
     )
     return _sort_by_order(ratios, envs, agents) if len(ratios) else ratios
 
 
+def threshold_warnings(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str]) -> list[str]:
+    """Warnings for return thresholds that untrained agents already meet: greedy returns at step 0 at or above them.
+
+    (The earning rate is undefined at step 0, so its threshold gets no such warning.)
+    """
+    warnings = []
+    start = frame[frame["point"] == 0]
+    for env in envs:
+        value = facts.thresholds.get(env)
+        rows = start[start["env"] == env]
+        if value is None or rows.empty:
+            continue
+        met = rows["eval_return"].to_numpy(dtype=float) >= value
+        if met.any():
+            who = sorted(set(rows.loc[met, "agent"]), key=list(rows["agent"]).index)
+            warnings.append(
+                f"On {env}, {int(met.sum())} of {met.size} trials already met the return threshold {value:g} at "
+                f"step 0, before learning anything ({', '.join(who)}): the threshold does not tell trained from "
+                "untrained agents; raise it, shorten the evaluation cap (evaluation.step_cap or step_limit), or "
+                "give a per-step cost (step_reward) so that reaching the goal sooner scores higher."
+            )
+    return warnings
+
+
+def _adaptation(
+    frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agents: list[str]
+) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Recovery times per trial, their Kaplan-Meier summary, paired ratios and the windows around each change."""
+    column = MEASURES[facts.measure].column
+    changes = {env: steps for env, steps in facts.changes.items() if steps and env in envs}
+    if not changes or "env_phase" not in frame.columns:
+        empty = (RECOVERY_COLUMNS, RECOVERY_SUMMARY_COLUMNS, RECOVERY_RATIO_COLUMNS)
+        return (*(pd.DataFrame(columns=c) for c in empty), pd.DataFrame())
+    options = {"confidence": facts.confidence, "n_resamples": facts.n_resamples, "seed": facts.seed}
+    per_trial = recovery_times(frame, changes, facts.primary_thresholds, column=column, consecutive=facts.consecutive)
+    summary = recovery_summary(per_trial, facts.confidence) if len(per_trial) else None
+    ratios = recovery_ratios(per_trial, facts.baseline, **options) if facts.baseline and len(per_trial) else None
+    windows = window_means(frame, changes, facts.budget, column=column, **options)
+
+    def ordered(table: pd.DataFrame | None, columns: list[str]) -> pd.DataFrame:
+        if table is None or table.empty:
+            return pd.DataFrame(columns=columns)
+        return _sort_by_order(table, envs, agents).sort_values(["change"], kind="stable").reset_index(drop=True)
+
+    return (
+        ordered(per_trial, RECOVERY_COLUMNS),
+        ordered(summary, RECOVERY_SUMMARY_COLUMNS),
+        ordered(ratios, RECOVERY_RATIO_COLUMNS),
+        ordered(windows, list(windows.columns)),
+    )
+
+
 def _comparisons(scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts) -> pd.DataFrame:
-    """Welch-Holm tests and probability of improvement on AUC for every pair of variants, env by env."""
+    """Welch-Holm tests and probability of improvement for every pair of variants, env by env, on the primary
+    measure's per-trial score: AUC of the greedy return, or reward earned per real step over the whole trial."""
+    metric = "auc" if facts.measure == GREEDY_RETURN else "earned_per_step"
     parts = [
         pairwise_welch(
-            scores, env, agents, "auc", confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
+            scores, env, agents, metric, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed
         )
         for env in envs
     ]
@@ -502,7 +603,9 @@ def _env_figures(
     env: str, agents: list[str], data: ReportTables, frame: pd.DataFrame, facts: ExperimentFacts, out_dir: Path
 ) -> _Figures:
     """Write every figure of one environment."""
-    figures = _Figures(png=dict.fromkeys(("curves", "threshold", "model_error", "budget", "frontier", "costs")))
+    figures = _Figures(
+        png=dict.fromkeys(("curves", "earning", "threshold", "model_error", "budget", "frontier", "costs"))
+    )
     title = f"{facts.name}: {env}"
     threshold = facts.thresholds.get(env)
     env_bands = data.bands[data.bands["env"] == env]
@@ -518,6 +621,23 @@ def _env_figures(
             changes=facts.changes.get(env, ()),
         ),
     )
+    earning_bands = data.earning_bands[data.earning_bands["env"] == env] if len(data.earning_bands) else None
+    if earning_bands is not None and earning_bands["mean"].notna().any():
+        figures.add(
+            "earning",
+            plot_curves(
+                earning_bands,
+                env,
+                agent_order=agents,
+                threshold=facts.earning_thresholds.get(env),
+                out_dir=out_dir,
+                title=title,
+                changes=facts.changes.get(env, ()),
+                ylabel=MEASURES["earning_rate"].axis,
+                stem="earning",
+            ),
+        )
+    threshold = facts.primary_thresholds.get(env)
     if threshold is not None and len(data.crossings):
         km_steps, censored = _km_figure_data(data.crossings, env, facts.confidence)
         if len(km_steps):
@@ -629,6 +749,8 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
     """Every table of the report, computed once and shared by the CSV, Markdown, figures and page."""
     bands = curve_bands(frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed)
     scores = trial_scores(frame)
+    if "reward_earned" in frame.columns:
+        scores = scores.merge(_earned_per_step(frame), on="trial_id", how="left")
     summary = summary_table(
         scores,
         agent_order=agents,
@@ -637,14 +759,35 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         n_resamples=facts.n_resamples,
         seed=facts.seed,
     )
-    crossings = steps_to_threshold(frame, facts.thresholds, facts.consecutive)
+    column = MEASURES[facts.measure].column
+    first = _first_points(frame)
+    crossings = steps_to_threshold(frame, facts.primary_thresholds, facts.consecutive, column=column)
     if len(crossings):
         crossings = _sort_by_order(crossings, envs, agents, "seed")
         tsummary = _sort_by_order(threshold_summary(crossings, facts.confidence), envs, agents)
     else:
         crossings = pd.DataFrame(columns=CROSSING_COLUMNS)
         tsummary = pd.DataFrame(columns=THRESHOLD_SUMMARY_COLUMNS)
+    tsummary = tsummary.assign(first_point=tsummary["env"].map(first).astype(float))
     compute = compute_table(frame, envs, agents, facts)
+    recovery, rsummary, rratios, windows = _adaptation(frame, facts, envs, agents)
+    has_earning = "earning_rate" in frame.columns
+    earning_bands = (
+        curve_bands(
+            frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed, column="earning_rate"
+        )
+        if has_earning
+        else pd.DataFrame()
+    )
+    earnings = (
+        _sort_by_order(
+            earning_summary(frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed),
+            envs,
+            agents,
+        )
+        if has_earning
+        else pd.DataFrame(columns=EARNING_COLUMNS)
+    )
     priced = cost_trials(frame, crossings)
     priced = priced[priced["cpu_seconds"].notna()] if len(priced) else priced
     options = {"confidence": facts.confidence, "n_resamples": facts.n_resamples, "seed": facts.seed}
@@ -664,11 +807,17 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         summary=summary,
         crossings=crossings,
         tsummary=tsummary,
-        efficiency=_efficiency(crossings, facts, envs, agents),
+        efficiency=_efficiency(crossings, facts, envs, agents, first),
         comparisons=_comparisons(scores, envs, agents, facts),
         advice=_advice(frame, scores, envs, agents, facts),
         compute=compute,
         frontier=_frontier(compute, summary, tsummary, envs, agents),
+        earning_bands=earning_bands,
+        earnings=earnings,
+        recovery=recovery,
+        rsummary=rsummary,
+        rratios=rratios,
+        windows=windows,
         break_even=break_even,
         costs=costs,
         priced=priced,
@@ -677,16 +826,33 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
 
 def _headline(data: ReportTables, facts: ExperimentFacts, labels: dict[str, str]) -> list[str]:
     """The report's first sentences: the decision at the user's prices (when given), real-step ratios against
-    the baseline, then the break-even price of a real step for each agent against the baseline."""
-    decision = decision_sentences(data.costs, facts.prices) if len(data.costs) else []
-    ratios = efficiency_sentences(data.efficiency, labels) if len(data.efficiency) else []
-    against_baseline = data.break_even[data.break_even["rival"] == facts.baseline] if facts.baseline else None
+    the baseline, then the break-even price of a real step for each agent against the baseline; then, for
+    environments that change, who adapts and how fast.
+
+    For an environment that changes, "who adapts, and how fast" is the headline: steps (and costs) to first reach
+    the threshold from the start say nothing about the change, so they stay in that environment's tables.
+    """
+    changing = {env for env, steps in facts.changes.items() if steps}
+
+    def steady(table: pd.DataFrame) -> pd.DataFrame:
+        return table[~table["env"].isin(changing)] if len(table) else table
+
+    costs, efficiency, break_even = steady(data.costs), steady(data.efficiency), steady(data.break_even)
+    decision = decision_sentences(costs, facts.prices) if len(costs) else []
+    ratios = efficiency_sentences(efficiency, labels) if len(efficiency) else []
+    against_baseline = break_even[break_even["rival"] == facts.baseline] if facts.baseline else None
     prices = break_even_sentences(against_baseline, facts.prices) if against_baseline is not None else []
-    return [*decision, *ratios, *prices]
+    adaptation = adaptation_sentences(data.rsummary, labels, facts.confidence) if len(data.rsummary) else []
+    return [*decision, *ratios, *prices, *adaptation]
 
 
 def _markdown(
-    data: ReportTables, facts: ExperimentFacts, envs: list[str], headline: list[str], glance: list[str]
+    data: ReportTables,
+    facts: ExperimentFacts,
+    envs: list[str],
+    headline: list[str],
+    glance: list[str],
+    warnings: list[str],
 ) -> str:
     """Compose the Markdown report: experiment facts, headline, then per environment every table, then advice."""
     baseline = f"`{facts.baseline}`" if facts.baseline else "none declared"
@@ -701,14 +867,15 @@ def _markdown(
         "AUC is the time-averaged greedy evaluation return over the real-step budget; intervals are "
         f"{facts.confidence:.0%} percentile bootstrap intervals over seeds ({facts.n_resamples} resamples).",
     ]
+    lines += ["", f"Primary measure: {MEASURES[facts.measure].noun}."]
     if headline or glance:
         lines += ["", "## Headline", "", *(f"- {sentence}" for sentence in [*headline, *glance])]
+    if warnings:
+        lines += ["", "## Warnings", "", *(f"- {warning}" for warning in warnings)]
     for env in envs:
         lines += ["", f"## {env}", ""]
-        threshold = facts.thresholds.get(env)
-        if threshold is not None:
-            held = f", held for {facts.consecutive} evaluations in a row" if facts.consecutive > 1 else ""
-            lines += [f"Return threshold: {threshold:g}{held}.", ""]
+        if facts.primary_thresholds.get(env) is not None:
+            lines += [f"Threshold: {_threshold_label(facts, env)}.", ""]
         lines.append(to_markdown(data.summary[data.summary["env"] == env].drop(columns=["env"])).rstrip("\n"))
         for view in markdown_sections(data, facts, env):
             lines += ["", f"### {view.title}", "", to_markdown(view.frame()).rstrip("\n"), "", view.note]
@@ -731,6 +898,15 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
         "frontier.csv": data.frontier,
         "break_even.csv": data.break_even,
     }
+    # Written only when they apply: earnings need `reward_earned`, the adaptation tables a map that changes.
+    optional = {
+        "earnings.csv": data.earnings,
+        "recovery.csv": data.recovery,
+        "recovery_summary.csv": data.rsummary,
+        "recovery_ratios.csv": data.rratios,
+        "change_windows.csv": data.windows,
+    }
+    tables.update({name: table for name, table in optional.items() if len(table)})
     if len(data.costs):
         tables["costs.csv"] = data.costs
     return [_write_text_atomic(out_dir / name, table.to_csv(index=False)) for name, table in tables.items()]
@@ -748,8 +924,12 @@ def write_report(
     if frame.empty:
         raise ValueError("no stored metric rows to report")
     missing = [column for column in REQUIRED_COLUMNS if column not in frame.columns]
+    if facts.measure != GREEDY_RETURN and "reward_earned" not in frame.columns:
+        missing.append("reward_earned")
     if missing:
         raise ValueError(f"results frame lacks columns: {', '.join(missing)}")
+    if "reward_earned" in frame.columns:
+        frame = with_earning_rate(frame)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
     envs = ordered_labels(pd.unique(frame["env"]), facts.env_order)
@@ -757,6 +937,7 @@ def write_report(
     data = _analyse(frame, facts, envs, agents)
     labels = {env: _threshold_label(facts, env) for env in envs}
     headline = _headline(data, facts, labels)
+    warnings = threshold_warnings(frame, facts, envs)
     files: list[Path] = []
     pages = []
     for env in envs:
@@ -766,19 +947,27 @@ def write_report(
         pages.append(
             EnvPage(
                 env=env,
-                threshold_text=labels[env] if facts.thresholds.get(env) is not None else None,
+                threshold_text=labels[env] if facts.primary_thresholds.get(env) is not None else None,
                 figures=figures.png,
             )
         )
     files += _write_tables(data, envs, agents, out_dir)
-    glance = glance_sentences(data.tsummary, pages)
-    files.append(_write_text_atomic(out_dir / "summary.md", _markdown(data, facts, envs, headline, glance)))
+    glance = glance_sentences(data.tsummary, pages, facts.changes)
+    markdown = _markdown(data, facts, envs, headline, glance, warnings)
+    files.append(_write_text_atomic(out_dir / "summary.md", markdown))
     files.append(
         write_page(
-            out_dir, facts=facts, data=data, envs=pages, headline=headline, records=records or ExperimentRecords()
+            out_dir,
+            facts=facts,
+            data=data,
+            envs=pages,
+            headline=headline,
+            records=records or ExperimentRecords(),
+            warnings=warnings,
         )
     )
     header = f"{facts.name} (budget {facts.budget} real steps, baseline: {facts.baseline or 'none declared'})"
-    lead = "\n".join(headline) + "\n\n" if headline else ""
+    lead = "\n".join([*headline, *(f"warning: {w}" for w in warnings)])
+    lead = f"{lead}\n\n" if lead else ""
     terminal_text = f"{lead}{header}\n\n{to_terminal(data.summary)}"
-    return ReportOutput(files=files, terminal_text=terminal_text, headline=headline)
+    return ReportOutput(files=files, terminal_text=terminal_text, headline=headline, warnings=warnings)

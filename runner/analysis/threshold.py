@@ -107,12 +107,13 @@ def first_sustained_crossing(
 
 
 def steps_to_threshold(
-    frame: pd.DataFrame, thresholds: Mapping[str, float | None], consecutive: int = 1
+    frame: pd.DataFrame, thresholds: Mapping[str, float | None], consecutive: int = 1, column: str = "eval_return"
 ) -> pd.DataFrame:
     """One row per trial: real steps to its first sustained crossing of its environment's threshold.
 
     Columns: env, agent, kind, trial_id, seed, steps, reached. Trials that never qualify get their last real
     step with reached False (censored). Environments without a threshold (missing or None) are skipped.
+    `column` is the measure compared with the threshold (greedy return, or `earning_rate`; NaN counts as below).
     Trials keep the order in which they first appear in `frame`; the work is vectorised over all rows.
     """
     _check_consecutive(consecutive)
@@ -123,7 +124,7 @@ def steps_to_threshold(
         return pd.DataFrame({column: pd.Series(dtype=object) for column in CROSSING_COLUMNS})
     codes = rows.groupby(_TRIAL_KEYS, sort=False, dropna=False).ngroup().to_numpy()
     order = np.lexsort((rows["point"].to_numpy(), codes))
-    met = rows["eval_return"].to_numpy(dtype=float)[order] >= threshold[~np.isnan(threshold)][order]
+    met = rows[column].to_numpy(dtype=float)[order] >= threshold[~np.isnan(threshold)][order]
     steps, reached = _crossings(codes[order], rows["real_steps"].to_numpy()[order], met, int(consecutive))
     ordered = rows.iloc[order]
     firsts = ordered.loc[np.r_[True, codes[order][1:] != codes[order][:-1]], _TRIAL_KEYS].reset_index(drop=True)
