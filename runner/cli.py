@@ -16,6 +16,7 @@ from runner.errors import (
     UnknownKindError,
     UntrustedCodeError,
 )
+from runner.store_faults import faults_as_store_errors
 from runner.trust import TRUST_FLAG
 
 __all__ = ["main"]
@@ -123,13 +124,17 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "check":
             return _check(args)
         if args.command == "report":
-            return _report(Path(args.folder), args.out)
+            with faults_as_store_errors(args.folder):
+                return _report(Path(args.folder), args.out)
         if args.command == "rerun":
-            return _rerun(args)
+            with faults_as_store_errors(args.folder):
+                return _rerun(args)
         if args.command == "seeds":
-            return _seeds(args)
+            with faults_as_store_errors(args.folder):
+                return _seeds(args)
         if args.command == "migrate":
-            return _migrate(Path(args.folder))
+            with faults_as_store_errors(args.folder):
+                return _migrate(Path(args.folder))
         return _list(args.what)
     except _USER_ERRORS as err:
         print(f"stepmeter: error: {' '.join(str(err).split())}", file=sys.stderr)
@@ -184,7 +189,8 @@ def _run(args: argparse.Namespace) -> int:
     for line in summary.failed:
         print(f"failed: {line}", file=sys.stderr)
     if not args.no_report and summary.planned > len(summary.failed):
-        _report(summary.folder, None)
+        with faults_as_store_errors(summary.folder):
+            _report(summary.folder, None)
     if summary.failed:
         print(f"{len(summary.failed)} trials failed; their errors are stored in {summary.folder}", file=sys.stderr)
         return 1

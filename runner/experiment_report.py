@@ -10,12 +10,14 @@ import pandas as pd
 from runner.analysis.frames import load_results, missing_trials, open_store, undeclared_trials
 from runner.analysis.page import FAILURE_COLUMNS, RUN_COLUMNS, ExperimentRecords
 from runner.analysis.report import ExperimentFacts, ReportOutput, write_report
+from runner.safe_files import ensure_folder
 from runner.store import Store
+from runner.store_check import refuse_incomplete
 
 __all__ = ["experiment_records", "report_experiment", "variant_params"]
 
 
-def experiment_records(folder: str | Path) -> ExperimentRecords:
+def experiment_records(folder: str | Path | Store) -> ExperimentRecords:
     """Runs (provenance), failures with their trial labels, missing and undeclared trials of a stored experiment.
 
     A failure's labels come from the current declaration, or from the stored trial when the experiment file no
@@ -51,14 +53,17 @@ def variant_params(store: Store) -> dict[str, dict]:
 def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> tuple[ReportOutput, str]:
     """Write the report of results/<experiment> into its report/ folder (or out_dir).
 
-    Returns the report output and a one-line note on declared trials with no stored result.
+    Returns the report output and a one-line note on declared trials with no stored result. Everything is
+    read in one transaction, so a run writing meanwhile cannot make the tables disagree; a store with an
+    incomplete trial is refused with one line (a run re-runs such trials).
     """
     folder = Path(folder)
-    with open_store(folder) as store:
+    with open_store(folder) as store, store.snapshot():
+        refuse_incomplete(store)
         facts = store.facts()
         params = variant_params(store)
-    frame = load_results(folder)
-    records = experiment_records(folder)
+        frame = load_results(store)
+        records = experiment_records(store)
     missing = records.missing
     experiment_facts = ExperimentFacts(
         name=facts["name"],
@@ -77,7 +82,8 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
         variant_params=params,
         costs=facts.get("costs"),
     )
-    output = write_report(frame, experiment_facts, Path(out_dir) if out_dir else folder / "report", records)
+    target = Path(out_dir) if out_dir else ensure_folder(folder / "report", below=folder)
+    output = write_report(frame, experiment_facts, target, records)
     declared = frame["trial_id"].nunique() + len(missing)
     note = f"{declared - len(missing)} of {declared} declared trials have stored results"
     if len(missing):

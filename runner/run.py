@@ -16,8 +16,11 @@ from runner.lock import ExperimentLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
 from runner.provenance import platform_text, versions
+from runner.safe_files import remove_leftovers
 from runner.schedule import TrialOutcome, run_parallel, warm_up
 from runner.store import Store, experiment_dir, remove_store
+from runner.store_check import repair_store
+from runner.store_faults import faults_as_store_errors
 
 __all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
 
@@ -95,13 +98,18 @@ def run_experiment(
     _confirm(experiment, options, ask)
     trials = plan_trials(experiment)
     folder = experiment_dir(results_root, experiment.name)
-    with ExperimentLock(folder) as lock:
+    with faults_as_store_errors(folder), ExperimentLock(folder) as lock:
         if lock.stale_owner:
             print(f"cleared a stale lock left by a run that no longer exists ({lock.stale_owner})", file=out)
         if options.start_over:
             remove_store(folder)
+        remove_leftovers(folder)
+        remove_leftovers(folder / "report")
         with Store(folder, create=True) as store:
-            return _run_locked(experiment, trials, store, folder, path, options, command, out)
+            health = repair_store(store)
+            if not health.whole:
+                print(f"{health.describe()}: their rows were removed and they run again", file=out)
+            return _run_locked(experiment, trials, store, lock, path, options, command, out)
 
 
 def _confirm(experiment: Experiment, options: RunOptions, ask: Callable[[str], bool] | None) -> None:
@@ -122,7 +130,7 @@ def _run_locked(
     experiment: Experiment,
     trials: list[PlannedTrial],
     store: Store,
-    folder: Path,
+    lock: ExperimentLock,
     path: str | Path,
     options: RunOptions,
     command: str,
@@ -134,7 +142,7 @@ def _run_locked(
     if options.failed_only:
         failed = store.failed_ids()
         todo = [t for t in todo if t.trial_id in failed]
-    summary = RunSummary(folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
+    summary = RunSummary(store.folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
     n_jobs = max(1, min(options.jobs or default_jobs(), len(todo) or 1))
     where = f"the cluster at {options.cluster}" if options.cluster else f"{n_jobs} process{'es' if n_jobs > 1 else ''}"
     which = "previously failed trials" if options.failed_only else "to run"
@@ -161,6 +169,7 @@ def _run_locked(
     progress = Progress(len(todo))
 
     def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
+        lock.check_held()
         if outcome.rows is None:
             store.write_failure(trial.trial_id, run_id, outcome.error_type, outcome.message, outcome.traceback)
             summary.failed.append(

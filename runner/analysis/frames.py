@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from contextlib import AbstractContextManager, nullcontext
 from pathlib import Path
 
 import numpy as np
@@ -16,13 +17,18 @@ _CHUNK = 100_000
 __all__ = ["load_failures", "load_results", "missing_trials", "open_store", "undeclared_trials"]
 
 
-def open_store(path: str | Path) -> Store:
-    """Open an experiment store given its folder (results/<experiment>) or its database file."""
+def open_store(path: str | Path | Store) -> AbstractContextManager[Store]:
+    """Open an experiment store given its folder (results/<experiment>) or its database file.
+
+    Given an open Store, hand it back unclosed, so several readers can share one snapshot (`Store.snapshot`).
+    """
+    if isinstance(path, Store):
+        return nullcontext(path)
     path = Path(path)
     return Store(path.parent if path.name == DB_NAME else path)
 
 
-def load_results(path: str | Path) -> pd.DataFrame:
+def load_results(path: str | Path | Store) -> pd.DataFrame:
     """One row per (declared trial, evaluation point) of a stored experiment.
 
     Columns: env, agent, kind, trial_id, seed, point, then the metric columns (real_steps, episodes,
@@ -55,7 +61,7 @@ def load_results(path: str | Path) -> pd.DataFrame:
     return frame
 
 
-def missing_trials(path: str | Path) -> pd.DataFrame:
+def missing_trials(path: str | Path | Store) -> pd.DataFrame:
     """Declared trials that have no stored result (not run yet, interrupted or failed)."""
     with open_store(path) as store:
         rows = store.query(
@@ -65,7 +71,7 @@ def missing_trials(path: str | Path) -> pd.DataFrame:
     return pd.DataFrame.from_records(rows, columns=["env", "agent", "seed", "trial_id"])
 
 
-def undeclared_trials(path: str | Path) -> pd.DataFrame:
+def undeclared_trials(path: str | Path | Store) -> pd.DataFrame:
     """Stored trials the current experiment file no longer declares (kept in the store, left out of reports)."""
     with open_store(path) as store:
         rows = store.query(
@@ -75,7 +81,7 @@ def undeclared_trials(path: str | Path) -> pd.DataFrame:
     return pd.DataFrame.from_records(rows, columns=["env", "agent", "seed", "trial_id"])
 
 
-def load_failures(path: str | Path) -> pd.DataFrame:
+def load_failures(path: str | Path | Store) -> pd.DataFrame:
     """Every recorded failure, newest last."""
     with open_store(path) as store:
         rows = store.query(

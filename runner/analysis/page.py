@@ -9,8 +9,6 @@ from __future__ import annotations
 import base64
 import json
 import math
-import os
-import threading
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,6 +21,7 @@ import pandas as pd
 from runner.analysis.costs import BREAK_EVEN_COLUMNS, COST_COLUMNS, COST_TRIAL_COLUMNS, format_cpu_time
 from runner.analysis.measures import MEASURES
 from runner.analysis.tables import format_interval, format_number
+from runner.safe_files import write_atomic
 
 if TYPE_CHECKING:
     from runner.analysis.report import ExperimentFacts
@@ -822,12 +821,4 @@ def write_page(
 ) -> Path:
     """Write `report.html` into out_dir atomically and return its path."""
     text = render_page(facts=facts, data=data, envs=envs, headline=headline, records=records, warnings=warnings)
-    path = Path(out_dir) / "report.html"
-    temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
-    try:
-        temp_path.write_text(text, encoding="utf-8")
-        os.replace(temp_path, path)
-    except BaseException:
-        temp_path.unlink(missing_ok=True)
-        raise
-    return path
+    return write_atomic(Path(out_dir) / "report.html", lambda stream: stream.write(text.encode("utf-8")))

@@ -8,9 +8,7 @@ from __future__ import annotations
 
 import hashlib
 import math
-import os
 import re
-import threading
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -21,6 +19,7 @@ from matplotlib.axes import Axes
 from matplotlib.figure import Figure
 
 from runner.analysis.tables import ordered_labels
+from runner.safe_files import ensure_folder, write_atomic
 
 __all__ = [
     "PALETTE",
@@ -81,22 +80,14 @@ def agent_styles(agents: Sequence[str]) -> dict[str, tuple[str, str]]:
 
 
 def _save_atomic(figure: Figure, path: Path, file_format: str) -> None:
-    """Save a figure under a temporary name in the target folder, then rename it into place."""
-    temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
-    try:
-        with temp_path.open("wb") as stream:
-            metadata = {"Date": None} if file_format == "svg" else None
-            figure.savefig(stream, format=file_format, dpi=_DPI, metadata=metadata)
-        os.replace(temp_path, path)
-    except BaseException:
-        temp_path.unlink(missing_ok=True)
-        raise
+    """Save a figure under a temporary name in the target folder, then rename it into place (no link followed)."""
+    metadata = {"Date": None} if file_format == "svg" else None
+    write_atomic(path, lambda stream: figure.savefig(stream, format=file_format, dpi=_DPI, metadata=metadata))
 
 
 def _save_both(figure: Figure, out_dir: Path, stem: str) -> list[Path]:
     """Write `<stem>.png` and `<stem>.svg` into out_dir, release the figure, and return both paths."""
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    out_dir = ensure_folder(out_dir)
     paths = []
     for file_format in ("png", "svg"):
         path = out_dir / f"{stem}.{file_format}"

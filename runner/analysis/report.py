@@ -11,9 +11,7 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import re
-import threading
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -76,6 +74,7 @@ from runner.analysis.threshold import (
     steps_to_threshold,
     threshold_summary,
 )
+from runner.safe_files import ensure_folder, remove_leftovers, write_atomic
 
 __all__ = [
     "ADVICE_SHARES",
@@ -191,15 +190,7 @@ class ReportOutput:
 
 def _write_text_atomic(path: Path, text: str) -> Path:
     """Write text under a temporary name in the same folder, then rename, so readers never see half a file."""
-    temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
-    try:
-        with temp_path.open("w", encoding="utf-8", newline="") as stream:
-            stream.write(text)
-        os.replace(temp_path, path)
-    except BaseException:
-        temp_path.unlink(missing_ok=True)
-        raise
-    return path
+    return write_atomic(path, lambda stream: stream.write(text.encode("utf-8")))
 
 
 def _sort_by_order(frame: pd.DataFrame, envs: list[str], agents: list[str], last: str | None = None) -> pd.DataFrame:
@@ -984,8 +975,8 @@ def write_report(
         raise ValueError(f"results frame lacks columns: {', '.join(missing)}")
     if "reward_earned" in frame.columns:
         frame = with_earning_rate(frame)
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    out_dir = ensure_folder(out_dir)
+    remove_leftovers(out_dir)
     envs = ordered_labels(pd.unique(frame["env"]), facts.env_order)
     agents = ordered_labels(pd.unique(frame["agent"]), facts.agent_order)
     data = _analyse(frame, facts, envs, agents)
