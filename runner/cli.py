@@ -72,7 +72,15 @@ def _parser() -> argparse.ArgumentParser:
         metavar="ADDRESS",
         default=None,
         help="run trials on the dask.distributed scheduler at ADDRESS (e.g. tcp://10.0.0.5:8786); "
-        "needs pip install '.[cluster]'",
+        "needs pip install '.[cluster]'; use only a cluster you trust (it exchanges pickled tasks)",
+    )
+    run.add_argument(
+        "--cluster-timeout",
+        type=float,
+        default=10.0,
+        metavar="SECONDS",
+        help="give up on the cluster when its scheduler does not answer, or no worker joins, within this many "
+        "seconds (default 10)",
     )
 
     rerun = sub.add_parser("rerun", help="re-run stored trials and check that their rows come out bit for bit")
@@ -163,6 +171,9 @@ def _run(args: argparse.Namespace) -> int:
     if args.trial_timeout < 0:
         print(f"stepmeter: error: --trial-timeout: expected seconds >= 0, got {args.trial_timeout}", file=sys.stderr)
         return 2
+    if not args.cluster_timeout > 0:
+        print(f"stepmeter: error: --cluster-timeout: expected seconds > 0, got {args.cluster_timeout}", file=sys.stderr)
+        return 2
     options = RunOptions(
         jobs=args.jobs,
         trial_path=args.path,
@@ -171,6 +182,7 @@ def _run(args: argparse.Namespace) -> int:
         failed_only=args.failed_only,
         cluster=args.cluster,
         assume_yes=args.yes,
+        cluster_timeout=args.cluster_timeout,
     )
     summary = run_experiment(
         args.experiment,

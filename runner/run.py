@@ -9,6 +9,7 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TextIO
 
+from runner.cluster import DEFAULT_TIMEOUT, check_address, check_reachable
 from runner.config import Experiment, load_experiment
 from runner.errors import ConfigError
 from runner.limits import CONFIRM_METRIC_ROWS, CONFIRM_TRIALS
@@ -76,6 +77,7 @@ class RunOptions:
     failed_only: bool = False
     cluster: str | None = None
     assume_yes: bool = False
+    cluster_timeout: float = DEFAULT_TIMEOUT
 
 
 def run_experiment(
@@ -94,6 +96,8 @@ def run_experiment(
     the user, given only on a terminal) says yes.
     """
     out = stream or sys.stdout
+    if options.cluster:
+        check_address(options.cluster)
     experiment = load_experiment(path)
     _confirm(experiment, options, ask)
     trials = plan_trials(experiment)
@@ -154,9 +158,7 @@ def _run_locked(
     if not todo:
         return summary
     if options.cluster:
-        from runner.cluster import check_reachable
-
-        check_reachable(options.cluster)
+        check_reachable(options.cluster, options.cluster_timeout)
     run_id = store.begin_run(
         command=command or " ".join(sys.argv),
         experiment_file=str(Path(path).resolve()),
@@ -182,7 +184,9 @@ def _run_locked(
     outcome = "aborted"
     try:
         warm_up([(t.spec, options.trial_path) for t in todo])
-        run_parallel(todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster)
+        run_parallel(
+            todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster, options.cluster_timeout
+        )
         outcome = "failures" if summary.failed else "complete"
     except KeyboardInterrupt:
         summary.interrupted = True

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import functools
 import json
+import math
 import time
 from collections import deque
 from dataclasses import dataclass
@@ -43,12 +44,24 @@ class TrialResult:
     trial_path: str
 
 
-def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: int, stream: np.ndarray) -> float:
-    """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps."""
+def evaluate_greedy(
+    agent: TabularAgent,
+    env: gym.Env,
+    episodes: int,
+    step_cap: int,
+    stream: np.ndarray,
+    deadline: float = math.inf,
+) -> float:
+    """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps.
+
+    Raises TrialTimeout once `time.perf_counter()` passes `deadline`, so a huge step cap cannot outlive a limit.
+    """
     total = 0.0
     for _ in range(episodes):
         state, _ = env.reset()
         for _ in range(step_cap):
+            if time.perf_counter() > deadline:
+                raise TrialTimeout("the trial ran past its wall-clock limit during an evaluation")
             state, reward, terminated, truncated, _ = env.step(agent.greedy(int(state), stream))
             total += float(reward)
             if terminated or truncated:
@@ -175,6 +188,7 @@ def _run_gymnasium(
     phase = 0
     earned = 0.0
     start = time.perf_counter()
+    deadline = start + time_limit if time_limit > 0 else math.inf
     cpu_start = time.process_time()
     measured = 0.0
 
@@ -186,7 +200,7 @@ def _run_gymnasium(
         rows["reward_earned"][point] = earned
         rows["episodes"][point] = len(returns)
         rows["eval_return"][point] = evaluate_greedy(
-            agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation
+            agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation, deadline
         )
         rows["train_return"][point] = np.mean(recent) if recent else np.nan
         for name, value in zip(COUNTER_NAMES, agent.counters_, strict=True):
@@ -202,7 +216,7 @@ def _run_gymnasium(
         state = int(env.reset(seed=streams.reset_seed(streams.env))[0])
         episode_return, episode_length, point = 0.0, 0, 1
         for step in range(1, budget + 1):
-            if time_limit > 0 and step % 256 == 0 and time.perf_counter() - start > time_limit:
+            if time.perf_counter() > deadline:
                 raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
             if phase < len(facts.change_steps) and step > facts.change_steps[phase]:
                 phase += 1
