@@ -96,11 +96,8 @@ def _writer_alive(temp_name: str) -> bool:
     parts = temp_name.removesuffix(TEMP_SUFFIX).rsplit(".", 2)
     if len(parts) != 3 or not parts[1].isdigit():
         return False
-    pid = int(parts[1])
-    if pid == os.getpid():
-        return False
     try:
-        os.kill(pid, 0)
+        os.kill(int(parts[1]), 0)
     except ProcessLookupError:
         return False
     except PermissionError:

@@ -24,6 +24,7 @@ from runner.errors import StoreError
 from runner.metrics import INT_COLUMNS, METRIC_COLUMNS
 from runner.plan import PlannedTrial
 from runner.safe_files import TEMP_SUFFIX, check_no_links, ensure_folder
+from runner.store_faults import describe_fault
 
 __all__ = ["DB_NAME", "INT_COLUMNS", "SCHEMA_VERSION", "Store", "experiment_dir", "remove_store"]
 
@@ -196,22 +197,22 @@ class Store:
             _create_database(self.path)
         try:
             self.conn = sqlite3.connect(self.path, timeout=30.0)
-            self.conn.execute("PRAGMA journal_mode=WAL")
-            self.conn.execute("PRAGMA synchronous=NORMAL")
-            self.conn.execute("PRAGMA foreign_keys=ON")
             if existed and not self._has_meta():
                 self.conn.close()
                 raise StoreError(
                     f"{self.path}: not a stepmeter database (it has no `meta` table); nothing was changed: "
                     "move it away, or run the experiment with --start-over to replace it"
                 )
+            self.conn.execute("PRAGMA journal_mode=WAL")
+            self.conn.execute("PRAGMA synchronous=NORMAL")
+            self.conn.execute("PRAGMA foreign_keys=ON")
             if create:
                 with self.conn:
                     self.conn.executescript(_SCHEMA)
                     self.conn.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
             version = self.conn.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
         except sqlite3.DatabaseError as err:
-            raise StoreError(f"{self.path}: not a readable stepmeter database ({err})") from None
+            raise StoreError(describe_fault(err, self.folder)) from None
         if version is None or int(version[0]) != SCHEMA_VERSION:
             found = "no version" if version is None else f"store version {version[0]}"
             raise StoreError(
