@@ -11,15 +11,15 @@ distribution, not bit for bit.
 
 from __future__ import annotations
 
-import time
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from numba import literally, njit, objmode, typeof, types
+from numba import literally, njit, typeof, types
 from numba.extending import overload
 
 from runner.agents import agent_class
+from runner.clock import cpu_clock, wall_clock
 from runner.metrics import (
     CPU_SECONDS,
     ENV_PHASE,
@@ -133,20 +133,6 @@ def sample_outcome(offsets, cdf, pair, stream):
 
 
 @njit(cache=True)
-def _clock():
-    with objmode(now="float64"):
-        now = time.perf_counter()
-    return now
-
-
-@njit(cache=True)
-def _cpu_clock():
-    with objmode(now="float64"):
-        now = time.process_time()
-    return now
-
-
-@njit(cache=True)
 def _past_deadline(watch, deadline):
     """Whether the wall clock is past `deadline`, looking at the clock only every so many calls.
 
@@ -158,7 +144,7 @@ def _past_deadline(watch, deadline):
     watch[0] -= 1.0
     if watch[0] > 0.0:
         return False
-    now = _clock()
+    now = wall_clock()
     since = now - watch[2]
     if since < 0.01 and watch[1] < 1048576.0:
         watch[1] *= 2.0
@@ -225,10 +211,10 @@ def run_table_trial(
     start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
     q = arrays[0]
     n_actions = q.shape[1]
-    started = _clock()
+    started = wall_clock()
     deadline = started + time_limit if time_limit > 0 else 0.0
     watch = np.array([1.0, 64.0, started])
-    cpu_started = _cpu_clock()
+    cpu_started = cpu_clock()
     measured = 0.0
     earned = 0.0
     n_episodes = 0
@@ -261,7 +247,7 @@ def run_table_trial(
                 episode_length = 0
                 s = sample_start(start_cdf, env_stream)
         if step % every == 0:
-            measuring = _cpu_clock()
+            measuring = cpu_clock()
             rows[point, REAL_STEPS] = step
             rows[point, REWARD_EARNED] = earned
             rows[point, EPISODES] = n_episodes
@@ -283,9 +269,9 @@ def run_table_trial(
             rows[point, MODEL_TV_ERROR] = tv
             rows[point, MODEL_REWARD_ERROR] = reward_error
             rows[point, ENV_PHASE] = phase
-            rows[point, WALL_SECONDS] = _clock() - started
+            rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured
-            measured += _cpu_clock() - measuring
+            measured += cpu_clock() - measuring
             point += 1
     return n_episodes
 
