@@ -17,6 +17,7 @@ from runner.errors import (
     UntrustedCodeError,
 )
 from runner.trust import TRUST_FLAG
+from runner.wording import count
 
 __all__ = ["main"]
 
@@ -62,9 +63,14 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument(
         "--yes",
         action="store_true",
-        help="run an experiment of more than 100,000 trials or 10 million metric rows without asking",
+        help="answer yes for you: run an experiment of more than 100,000 trials or 10 million metric rows, "
+        "and let --start-over delete stored trials, without asking",
     )
-    run.add_argument("--start-over", action="store_true", help="delete the experiment's stored results first")
+    run.add_argument(
+        "--start-over",
+        action="store_true",
+        help="delete the experiment's stored results first (asks on a terminal; elsewhere needs --yes)",
+    )
     run.add_argument("--failed-only", action="store_true", help="run only trials that failed before")
     run.add_argument(
         "--cluster",
@@ -175,18 +181,23 @@ def _run(args: argparse.Namespace) -> int:
         ask=_ask if sys.stdin.isatty() else None,
     )
     if summary.interrupted:
+        again = "the command again without --start-over" if args.start_over else "the same command again"
         print(
-            f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "
-            "run the same command again to finish the rest",
+            f"stopped: {count(summary.ran, 'trial')} finished in this run {'is' if summary.ran == 1 else 'are'} "
+            f"stored in {summary.folder}; run {again} to keep them and finish the rest",
             file=sys.stderr,
         )
         return 130
     for line in summary.failed:
         print(f"failed: {line}", file=sys.stderr)
     if not args.no_report and summary.planned > len(summary.failed):
+        print(f"writing the report of {summary.folder} ...", flush=True)
         _report(summary.folder, None)
     if summary.failed:
-        print(f"{len(summary.failed)} trials failed; their errors are stored in {summary.folder}", file=sys.stderr)
+        print(
+            f"{count(len(summary.failed), 'trial')} failed; their errors are stored in {summary.folder}",
+            file=sys.stderr,
+        )
         return 1
     return 0
 
