@@ -93,6 +93,17 @@ def _parser() -> argparse.ArgumentParser:
         "only for results folders whose writers you trust",
     )
 
+    show = sub.add_parser(
+        "show", help="re-run one stored trial: its spec, its rows and, on grid maps, the greedy policy it learned"
+    )
+    show.add_argument("folder", help="the experiment's results folder, e.g. results/warehouse-spills")
+    show.add_argument("trial_id", metavar="TRIAL_ID", help="a trial id (or a unique prefix) as in trial_scores.csv")
+    show.add_argument(
+        TRUST_FLAG,
+        action="store_true",
+        help="let the stored spec import code outside stepmeter; only for results folders whose writers you trust",
+    )
+
     seeds = sub.add_parser("seeds", help="how many seeds an experiment needs to detect given AUC differences")
     seeds.add_argument("folder", help="a stored (pilot) experiment's results folder")
     seeds.add_argument(
@@ -134,6 +145,8 @@ def main(argv: list[str] | None = None) -> int:
             return _rerun(args)
         if args.command == "seeds":
             return _seeds(args)
+        if args.command == "show":
+            return _show(args)
         if args.command == "migrate":
             return _migrate(Path(args.folder))
         return _list(args.what)
@@ -232,6 +245,14 @@ def _rerun(args: argparse.Namespace) -> int:
     mismatched = sum(not c.matched for c in checks)
     print(f"{len(checks) - mismatched} of {len(checks)} re-run trials reproduced their stored rows")
     return 1 if mismatched else 0
+
+
+def _show(args: argparse.Namespace) -> int:
+    from runner.show import show_trial
+
+    shown = show_trial(Path(args.folder), args.trial_id, trust_code=args.trust_code)
+    print(shown.text())
+    return 0 if shown.difference is None else 1
 
 
 def _seeds(args: argparse.Namespace) -> int:
