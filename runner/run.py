@@ -42,6 +42,8 @@ def experiment_facts(experiment: Experiment) -> dict:
     return {
         "name": experiment.name,
         "description": experiment.description,
+        "experiment_hash": experiment.text_hash,
+        "experiment_text": experiment.text,
         "real_steps": experiment.real_steps,
         "baseline": experiment.baseline,
         "thresholds": {e.label: e.threshold for e in experiment.environments},
