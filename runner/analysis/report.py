@@ -189,6 +189,11 @@ class ReportOutput:
     warnings: list[str] = field(default_factory=list)
 
 
+def write_csv(path: Path, table: pd.DataFrame) -> Path:
+    """Write one table as CSV atomically (see `_write_text_atomic`)."""
+    return _write_text_atomic(path, table.to_csv(index=False))
+
+
 def _write_text_atomic(path: Path, text: str) -> Path:
     """Write text under a temporary name in the same folder, then rename, so readers never see half a file."""
     temp_path = path.with_name(f".{path.name}.{os.getpid()}.{threading.get_ident()}.tmp")
