@@ -56,11 +56,13 @@ def test_an_edited_map_keeps_earlier_trials_reachable_under_their_version(tmp_pa
     assert set(everything.loc[everything["version"] == 2, "env"]) == {"dock"}
 
     output, note = report_experiment(folder)
+    assert folder / "report" / "versions.csv" in output.files
     assert "the experiment file has 2 versions; the current one is v2 (environments[0].grid.map changed)" in note
     assert "4 stored trials of earlier versions are left out of this report" in note
     table = (folder / "report" / "versions.csv").read_text().splitlines()
     assert table[0] == "version,hash,first_run,runs,trials_stored,current,changes"
-    assert table[1].startswith(f"v1,{versions[0].hash[:12]},") and table[2].endswith(",4,yes,environments[0].grid.map changed")
+    assert table[1].startswith(f"v1,{versions[0].hash[:12]},")
+    assert table[2].endswith(",4,yes,environments[0].grid.map changed")
     assert "Versions of the experiment file (2)" in (folder / "report" / "report.html").read_text()
 
 
