@@ -104,6 +104,14 @@ def _parser() -> argparse.ArgumentParser:
         help="let the stored spec import code outside stepmeter; only for results folders whose writers you trust",
     )
 
+    compare = sub.add_parser(
+        "compare", help="one report of several results folders whose environments and protocols match"
+    )
+    compare.add_argument("folders", nargs="+", metavar="RESULTS", help="two or more results folders")
+    compare.add_argument(
+        "--out", default="comparison", help="where to write the report (default: comparison, in the current directory)"
+    )
+
     seeds = sub.add_parser("seeds", help="how many seeds an experiment needs to detect given AUC differences")
     seeds.add_argument("folder", help="a stored (pilot) experiment's results folder")
     seeds.add_argument(
@@ -147,6 +155,8 @@ def main(argv: list[str] | None = None) -> int:
             return _seeds(args)
         if args.command == "show":
             return _show(args)
+        if args.command == "compare":
+            return _compare(args)
         if args.command == "migrate":
             return _migrate(Path(args.folder))
         return _list(args.what)
@@ -245,6 +255,17 @@ def _rerun(args: argparse.Namespace) -> int:
     mismatched = sum(not c.matched for c in checks)
     print(f"{len(checks) - mismatched} of {len(checks)} re-run trials reproduced their stored rows")
     return 1 if mismatched else 0
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from runner.compare_results import compare_folders
+
+    output, note = compare_folders(args.folders, args.out)
+    print(output.terminal_text)
+    if note:
+        print(note)
+    print(f"comparison of {count(len(args.folders), 'results folder')} written to {Path(args.out).resolve()}")
+    return 0
 
 
 def _show(args: argparse.Namespace) -> int:
