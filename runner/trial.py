@@ -36,12 +36,14 @@ TRIAL_PATHS = ("auto", "compiled", "gymnasium")
 
 @dataclass
 class TrialResult:
-    """Metric rows (one array per column, one entry per evaluation point) and the training episodes."""
+    """Metric rows (one array per column, one entry per evaluation point), the training episodes and the
+    action values the agent ended with (shape (n_states, n_actions); what its greedy evaluation policy reads)."""
 
     rows: dict[str, np.ndarray]
     episode_returns: np.ndarray
     episode_lengths: np.ndarray
     trial_path: str
+    final_values: np.ndarray | None = None
 
 
 def evaluate_greedy(
@@ -168,6 +170,7 @@ def _run_compiled(
         episode_returns=returns[:n_episodes].copy(),
         episode_lengths=lengths[:n_episodes].copy(),
         trial_path="compiled",
+        final_values=agent.arrays_[0].copy(),
     )
 
 
@@ -247,4 +250,5 @@ def _run_gymnasium(
         episode_returns=np.asarray(returns, dtype=np.float64),
         episode_lengths=np.asarray(lengths, dtype=np.int64),
         trial_path="gymnasium",
+        final_values=agent.arrays_[0].copy(),
     )

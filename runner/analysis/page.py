@@ -21,6 +21,7 @@ import pandas as pd
 from runner.analysis.costs import BREAK_EVEN_COLUMNS, COST_COLUMNS, COST_TRIAL_COLUMNS, format_cpu_time
 from runner.analysis.measures import MEASURES
 from runner.analysis.tables import format_interval, format_number
+from runner.analysis.versions import VERSION_COLUMNS
 from runner.safe_files import write_atomic
 
 if TYPE_CHECKING:
@@ -116,13 +117,15 @@ class ExperimentRecords:
     runs: run_id, started, finished, outcome, command, experiment_file, experiment_text, experiment_hash,
     versions (JSON text), platform, jobs.
     failures: env, agent, seed, trial_id, run_id, error_type, message, at, stored_later.
-    missing and undeclared: env, agent, seed, trial_id.
+    missing and undeclared: env, agent, seed, trial_id (undeclared also version).
+    versions: the experiment file's versions (`runner.analysis.versions.VERSION_COLUMNS`).
     """
 
     runs: pd.DataFrame = field(default_factory=lambda: _empty(RUN_COLUMNS))
     failures: pd.DataFrame = field(default_factory=lambda: _empty(FAILURE_COLUMNS))
     missing: pd.DataFrame = field(default_factory=lambda: _empty(TRIAL_COLUMNS))
     undeclared: pd.DataFrame = field(default_factory=lambda: _empty(TRIAL_COLUMNS))
+    versions: pd.DataFrame = field(default_factory=lambda: _empty(VERSION_COLUMNS))
 
 
 @dataclass(frozen=True)
@@ -567,7 +570,24 @@ def _records_views(records: ExperimentRecords) -> dict[str, TableView]:
     return {
         "failures": _view(records.failures, failures, title="Failures"),
         "missing": _view(records.missing, trial, title="Missing trials"),
-        "undeclared": _view(records.undeclared, trial, title="Stored but undeclared trials"),
+        "undeclared": _view(
+            records.undeclared,
+            [*trial, ("version", False, lambda r: str(r.get("version", "")))],
+            title="Stored but undeclared trials",
+        ),
+        "versions": _view(
+            records.versions,
+            [
+                ("version", False, lambda r: str(r["version"])),
+                ("hash", False, lambda r: str(r["hash"])),
+                ("first run", False, lambda r: str(r["first_run"])),
+                ("runs", True, lambda r: str(r["runs"])),
+                ("trials stored", True, lambda r: f"{int(r['trials_stored']):,}"),
+                ("current", False, lambda r: str(r["current"])),
+                ("what changed from the version before", False, lambda r: str(r["changes"])),
+            ],
+            title="Versions of the experiment file",
+        ),
     }
 
 
@@ -802,7 +822,7 @@ def render_page(
         ],
         advice_note=advice_note(data.advice),
         records=record_views,
-        counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs")},
+        counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs", "versions")},
         runs=_runs(records.runs),
         glance=glance_sentences(data.tsummary, envs, facts.changes),
         experiment_texts=_experiment_texts(records.runs),

@@ -100,14 +100,20 @@ def _save_both(figure: Figure, out_dir: Path, stem: str) -> list[Path]:
 
 
 def _finish(axes: Axes, xlabel: str, ylabel: str, title: str | None = None, legend: bool = True) -> None:
-    """Labels, light grid and a frameless legend shared by every panel."""
+    """Labels, light grid and a frameless legend shared by every panel; the legend sits outside the panel, to its
+    right, so no number of variants hides the data (the constrained layout makes room for it)."""
     axes.set_xlabel(xlabel)
     axes.set_ylabel(ylabel)
     if title:
         axes.set_title(title)
     axes.grid(True, color=_GRID_COLOUR, linewidth=0.6)
     if legend and axes.get_legend_handles_labels()[0]:
-        axes.legend(loc="best", fontsize="small", frameon=False)
+        _legend_beside(axes)
+
+
+def _legend_beside(axes: Axes) -> None:
+    """A frameless legend to the right of the panel, outside the data area."""
+    axes.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0, fontsize="small", frameon=False)
 
 
 def _draw_bands(axes: Axes, bands: pd.DataFrame, styles: dict[str, tuple[str, str]]) -> None:
@@ -229,7 +235,7 @@ def plot_threshold(
     axes.set_xlim(0, 1.02 * max(float(budget), float(km_steps["time"].max()) if len(km_steps) else 1.0))
     axes.set_ylim(-0.02, 1.02)
     _finish(axes, "real environment steps", f"share of trials not yet at\n{threshold_text}", title, legend=False)
-    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    _legend_beside(axes)
     return _save_both(figure, out_dir, f"threshold_{safe_name(env)}")
 
 
@@ -425,7 +431,7 @@ def plot_costs(
     axes.set_xscale("log")
     axes.set_yscale("log")
     _finish(axes, f"price of one real step ({unit}, log scale)", f"median total cost to threshold ({unit})", title)
-    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    _legend_beside(axes)
     return _save_both(figure, out_dir, f"costs_{safe_name(env)}")
 
 
@@ -501,5 +507,5 @@ def plot_frontier(
         axes.set_xscale("symlog", linthresh=1.0)
     axes.set_ylim(0, budget * 1.2)
     _finish(axes, "updates per real step (real + planning + model, log scale)", "median real steps to threshold", title)
-    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    _legend_beside(axes)
     return _save_both(figure, out_dir, f"frontier_{safe_name(env)}")

@@ -188,6 +188,11 @@ class ReportOutput:
     warnings: list[str] = field(default_factory=list)
 
 
+def write_csv(path: Path, table: pd.DataFrame) -> Path:
+    """Write one table as CSV atomically (see `_write_text_atomic`)."""
+    return _write_text_atomic(path, table.to_csv(index=False))
+
+
 def _write_text_atomic(path: Path, text: str) -> Path:
     """Write text under a temporary name in the same folder, then rename, so readers never see half a file."""
     return write_atomic(path, lambda stream: stream.write(text.encode("utf-8")))
