@@ -130,7 +130,8 @@ def test_write_report_writes_every_file(tmp_path):
         assert f"## {env}" in markdown
     assert "Baseline agent: `q-learning`" in markdown
     assert "time-averaged greedy evaluation return" in markdown
-    assert "95% percentile bootstrap" in markdown
+    assert "95% bootstrap-t interval over seeds" in markdown
+    assert "## Methods" in markdown and "Kaplan & Meier (1958)" in markdown and "Holm (1979)" in markdown
 
     for agent, _, _ in _AGENTS:
         assert agent in output.terminal_text

@@ -20,6 +20,7 @@ __all__ = [
     "interval_caption",
     "keyed_rng",
     "mean_and_interval",
+    "median_and_interval",
     "percentile_interval",
     "studentized_interval",
 ]
@@ -174,3 +175,29 @@ def mean_and_interval(
     bounds = studentized_interval if method == "bootstrap-t" else percentile_interval
     low, high = bounds(data, confidence=confidence, n_resamples=n_resamples, rng=rng)
     return np.asarray(mean), np.asarray(np.minimum(low, mean)), np.asarray(np.maximum(high, mean))
+
+
+def median_and_interval(
+    samples: np.ndarray,
+    *,
+    confidence: float = 0.95,
+    n_resamples: int = 2000,
+    rng: np.random.Generator,
+) -> tuple[float, float, float]:
+    """Median of a 1-D sample over seeds with its percentile bootstrap interval, as (median, low, high).
+
+    A median is not a mean, so bootstrap-t (which needs a standard error per resample) does not apply; the
+    percentile method is defined for any statistic. One seed gives NaN bounds.
+    """
+    _check_settings(confidence, n_resamples)
+    data = _check_samples(samples)
+    if data.ndim != 1:
+        raise ValueError("median_and_interval takes a 1-D sample")
+    median = float(np.median(data))
+    if data.size == 1:
+        return median, np.nan, np.nan
+    picks = rng.integers(0, data.size, size=(n_resamples, data.size))
+    resampled = np.median(data[picks], axis=1)
+    alpha = 1.0 - confidence
+    low, high = np.quantile(resampled, [alpha / 2.0, 1.0 - alpha / 2.0])
+    return median, float(min(low, median)), float(max(high, median))
