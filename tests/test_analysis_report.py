@@ -110,7 +110,8 @@ def test_write_report_writes_every_file(tmp_path):
         assert (out_dir / f"curves_{safe_name(env)}.svg").read_text(encoding="utf-8").lstrip().startswith("<?xml")
 
     summary = pd.read_csv(out_dir / "summary.csv")
-    assert list(summary.columns) == SUMMARY_COLUMNS
+    assert list(summary.columns) == [*SUMMARY_COLUMNS, "interval"]
+    assert (summary["interval"] == "95% bootstrap-t interval over seeds").all()
     assert len(summary) == len(_ENVS) * len(_AGENTS)
     assert list(summary["env"]) == [env for env in _ENVS for _ in _AGENTS]
     assert list(summary["agent"]) == [agent for _ in _ENVS for agent, _, _ in _AGENTS]

@@ -334,6 +334,17 @@ def test_budget_families_from_labels_and_params():
     assert budget_families(["Q"], {"Q": "q_learning"}, {"Q": {"alpha": 0.1}}) == []
 
 
+def test_budget_families_follow_the_declared_role_not_the_name():
+    kinds = {"R (replays=1)": "replay_q_learning", "R (replays=8)": "replay_q_learning"}
+    kinds |= {"U (simulations=10)": "uct_search", "U (simulations=100)": "uct_search"}
+    found = budget_families(list(kinds), kinds, {})
+    assert [(param, name) for param, name, _ in found] == [("replays", "R"), ("simulations", "U")]
+    # a parameter named like a budget on a kind that does not declare it (or on an unregistered kind) is not one
+    other = {"C (max_sweeps=5)": "certainty_equivalence", "C (max_sweeps=50)": "certainty_equivalence"}
+    other |= {"M (planning_steps=1)": "mine.agents:Mine", "M (planning_steps=9)": "mine.agents:Mine"}
+    assert budget_families(list(other), other, {}) == []
+
+
 def test_pareto_front_marks_variants_no_other_beats():
     compute = np.array([1.0, 5.0, 50.0, 60.0, 7.0, np.nan, 2.0])
     steps = np.array([np.nan, 1400.0, 600.0, 700.0, 1400.0, 10.0, 1400.0])

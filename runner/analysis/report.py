@@ -1003,8 +1003,31 @@ def _markdown(
     return "\n".join(lines) + "\n"
 
 
-def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_dir: Path) -> list[Path]:
-    """Write every CSV of the report in a fixed order."""
+def _interval_names(confidence: float) -> dict[str, str]:
+    """The method behind the low/high columns of each CSV, written in its last column `interval`."""
+    mean = interval_caption(confidence)
+    paired = f"{interval_caption(confidence, 'percentile')}, seeds resampled in pairs"
+    km = f"{confidence:.0%} Kaplan-Meier interval, Greenwood variance on the complementary log-log scale"
+    return {
+        "summary.csv": mean,
+        "curves.csv": mean,
+        "earnings.csv": mean,
+        "change_windows.csv": mean,
+        "threshold_summary.csv": km,
+        "recovery_summary.csv": km,
+        "efficiency.csv": paired,
+        "recovery_ratios.csv": paired,
+        "break_even.csv": paired,
+        "costs.csv": paired,
+        "comparisons.csv": f"probability of improvement: {interval_caption(confidence, 'percentile')}",
+        "frontier.csv": f"CPU time: {interval_caption(confidence, 'percentile')} of the median; steps: {km}",
+    }
+
+
+def _write_tables(
+    data: ReportTables, envs: list[str], agents: list[str], out_dir: Path, confidence: float = 0.95
+) -> list[Path]:
+    """Write every CSV of the report in a fixed order; tables with intervals name their method in `interval`."""
     tables = {
         "summary.csv": data.summary,
         "trial_scores.csv": _sort_by_order(data.scores, envs, agents, "seed"),
@@ -1028,6 +1051,10 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
     tables.update({name: table for name, table in optional.items() if len(table)})
     if len(data.costs):
         tables["costs.csv"] = data.costs
+    methods = _interval_names(confidence)
+    tables = {
+        name: table.assign(interval=methods[name]) if name in methods else table for name, table in tables.items()
+    }
     return [_write_text_atomic(out_dir / name, table.to_csv(index=False)) for name, table in tables.items()]
 
 
@@ -1070,7 +1097,7 @@ def write_report(
                 figures=figures.png,
             )
         )
-    files += _write_tables(data, envs, agents, out_dir)
+    files += _write_tables(data, envs, agents, out_dir, facts.confidence)
     glance = glance_sentences(data.tsummary, pages, facts.changes)
     markdown = _markdown(data, facts, envs, headline, glance, warnings)
     files.append(_write_text_atomic(out_dir / "summary.md", markdown))
