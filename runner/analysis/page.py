@@ -24,6 +24,7 @@ from runner.analysis.bootstrap import interval_caption
 from runner.analysis.costs import BREAK_EVEN_COLUMNS, COST_COLUMNS, COST_TRIAL_COLUMNS, format_cpu_time
 from runner.analysis.measures import MEASURES
 from runner.analysis.methods import method_lines
+from runner.analysis.seeds import COLLAPSE_DROP, COLLAPSE_POINTS, OUTLIER_Z, SEED_FLAG_COLUMNS
 from runner.analysis.tables import format_interval, format_number
 
 if TYPE_CHECKING:
@@ -51,6 +52,7 @@ __all__ = [
     "markdown_sections",
     "recovery_view",
     "render_page",
+    "seeds_view",
     "summary_view",
     "threshold_view",
     "windows_view",
@@ -110,6 +112,7 @@ class ReportTables:
     break_even: pd.DataFrame = field(default_factory=lambda: _empty(BREAK_EVEN_COLUMNS))
     costs: pd.DataFrame = field(default_factory=lambda: _empty(COST_COLUMNS))
     priced: pd.DataFrame = field(default_factory=lambda: _empty(COST_TRIAL_COLUMNS))
+    seed_flags: pd.DataFrame = field(default_factory=lambda: _empty(SEED_FLAG_COLUMNS))
 
 
 @dataclass(frozen=True)
@@ -425,6 +428,25 @@ def frontier_view(rows: pd.DataFrame, confidence: float = 0.95) -> TableView:
     return _view(rows, columns, note, "Compute against real steps")
 
 
+def seeds_view(rows: pd.DataFrame) -> TableView:
+    """Seeds a mean hides: runs that collapsed after reaching the threshold or lie far from the other seeds."""
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("seed", True, lambda r: str(int(r["seed"]))),
+        ("trial id", False, lambda r: str(r["trial_id"])),
+        ("flag", False, lambda r: str(r["flag"])),
+        ("note", False, lambda r: str(r["detail"])),
+    ]
+    note = (
+        "collapsed: reached the threshold, then the mean of its last "
+        f"{COLLAPSE_POINTS} evaluations fell more than {COLLAPSE_DROP:.0%} of the environment's observed range "
+        "below it. far from the rest: a modified z-score (0.6745 x distance from the median / MAD over the agent's "
+        f"seeds) beyond {OUTLIER_Z:g}. The per-seed figure draws them dark; `stepmeter rerun` re-runs a trial "
+        "by its id."
+    )
+    return _view(rows, columns, note, "Seeds to look at")
+
+
 def _cpu_price(value: float) -> str:
     """A price of a real step in CPU time, or what a verdict means when there is no finite price."""
     if pd.isna(value):
@@ -548,6 +570,8 @@ def env_views(data: ReportTables, facts: ExperimentFacts, env: str) -> dict[str,
     )
     windows = _env_rows(data.windows, env)
     views["windows"] = windows_view(windows, facts.confidence) if len(windows) else None
+    flagged = _env_rows(data.seed_flags, env)
+    views["seeds"] = seeds_view(flagged) if len(flagged) else None
     break_even = _env_rows(data.break_even, env)
     views["break_even"] = break_even_view(break_even) if len(break_even) else None
     costs = _env_rows(data.costs, env)
@@ -691,6 +715,16 @@ _FIGURE_TEXT = {
         "Reward earned per real step over each evaluation interval, exploration included (the slope of the "
         "cumulative reward); shaded: {interval}; dotted vertical lines: the map changes.",
     ),
+    "curves_seeds": (
+        "Learning curves, seed by seed",
+        "Greedy evaluation return of every seed (thin lines), one panel per agent, axes shared across panels; "
+        "dark, labelled lines are seeds flagged below; dashed: the threshold; dotted: the map changes.",
+    ),
+    "earning_seeds": (
+        "Reward earned while learning, seed by seed",
+        "Reward earned per real step of every seed (thin lines), one panel per agent, axes shared across "
+        "panels; dark, labelled lines are seeds flagged below; dashed: the threshold; dotted: the map changes.",
+    ),
     "threshold": (
         "Time to threshold",
         "Share of trials that have not yet reached the threshold (Kaplan-Meier, with a pointwise interval); "
@@ -744,8 +778,11 @@ def _env_context(page: EnvPage, index: int, data: ReportTables, facts: Experimen
     blocks = [
         ("figure", figures.get("curves")),
         ("table", views["summary"]),
+        ("figure", figures.get("curves_seeds")),
         ("figure", figures.get("earning")),
         ("table", views["earnings"]),
+        ("figure", figures.get("earning_seeds")),
+        ("table", views["seeds"]),
         ("figure", figures.get("threshold")),
         ("table", views["threshold"]),
         ("table", views["efficiency"]),

@@ -70,6 +70,8 @@ from runner.analysis.plots import (
     plot_threshold,
 )
 from runner.analysis.power import ADVICE_COLUMNS, seeds_advice
+from runner.analysis.seed_plots import plot_seed_curves
+from runner.analysis.seeds import seed_flags
 from runner.analysis.tables import ordered_labels, summary_table, to_markdown, to_terminal
 from runner.analysis.threshold import (
     CROSSING_COLUMNS,
@@ -343,6 +345,30 @@ def threshold_warnings(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[s
                 "untrained agents; raise it, shorten the evaluation cap (evaluation.step_cap or step_limit), or "
                 "give a per-step cost (step_reward) so that reaching the goal sooner scores higher."
             )
+    return warnings
+
+
+# Flagged trials named one by one in a warning; the rest are counted (the table and CSV list them all).
+_NAMED_FLAGS = 5
+
+
+def seed_warnings(flags: pd.DataFrame, envs: list[str]) -> list[str]:
+    """One warning per environment with flagged seeds, naming the first few by agent, seed and trial id."""
+    warnings = []
+    for env in envs:
+        rows = flags[flags["env"] == env] if len(flags) else flags
+        if rows.empty:
+            continue
+        named = [
+            f"{row['agent']} seed {int(row['seed'])} {row['flag']} (trial {row['trial_id']})"
+            for _, row in rows.head(_NAMED_FLAGS).iterrows()
+        ]
+        more = f" and {len(rows) - _NAMED_FLAGS} more" if len(rows) > _NAMED_FLAGS else ""
+        noun = "seed is" if len(rows) == 1 else "seeds are"
+        warnings.append(
+            f"On {env}, {len(rows)} {noun} unlike the mean: {'; '.join(named)}{more}. See 'Seeds to look at', "
+            "flagged_seeds.csv and the per-seed figures."
+        )
     return warnings
 
 
@@ -711,7 +737,19 @@ def _env_figures(
 ) -> _Figures:
     """Write every figure of one environment (at most FIGURE_AGENTS variants in each, said in the title)."""
     figures = _Figures(
-        png=dict.fromkeys(("curves", "earning", "threshold", "model_error", "budget", "frontier", "costs"))
+        png=dict.fromkeys(
+            (
+                "curves",
+                "curves_seeds",
+                "earning",
+                "earning_seeds",
+                "threshold",
+                "model_error",
+                "budget",
+                "frontier",
+                "costs",
+            )
+        )
     )
     agents = _figure_agents(env, all_agents, data, facts)
     title = f"{facts.name}: {env}"
@@ -739,6 +777,12 @@ def _env_figures(
             changes=facts.changes.get(env, ()),
         ),
     )
+    flagged = set(data.seed_flags.loc[data.seed_flags["env"] == env, "trial_id"].astype(str))
+    seed_figure = {"frame": frame, "env": env, "agents": agents, "flagged": flagged, "out_dir": out_dir, "title": title}
+    seed_figure["changes"] = facts.changes.get(env, ())
+    figures.add(
+        "curves_seeds", plot_seed_curves(**seed_figure, column="eval_return", threshold=facts.thresholds.get(env))
+    )
     earning_bands = data.earning_bands[data.earning_bands["env"] == env] if len(data.earning_bands) else None
     if earning_bands is not None and earning_bands["mean"].notna().any():
         figures.add(
@@ -752,6 +796,16 @@ def _env_figures(
                 title=title,
                 changes=facts.changes.get(env, ()),
                 ylabel=MEASURES["earning_rate"].axis,
+                stem="earning",
+            ),
+        )
+        figures.add(
+            "earning_seeds",
+            plot_seed_curves(
+                **seed_figure,
+                column="earning_rate",
+                threshold=facts.earning_thresholds.get(env),
+                ylabel="reward earned per real step",
                 stem="earning",
             ),
         )
@@ -919,6 +973,13 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         if len(priced) and facts.prices.real_step is not None
         else pd.DataFrame(columns=COST_COLUMNS)
     )
+    flags = seed_flags(
+        frame,
+        scores,
+        facts.primary_thresholds,
+        column=column,
+        score="auc" if facts.measure == GREEDY_RETURN or "earned_per_step" not in scores else "earned_per_step",
+    )
     return ReportTables(
         bands=bands,
         scores=scores,
@@ -939,6 +1000,7 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         break_even=break_even,
         costs=costs,
         priced=priced,
+        seed_flags=_sort_by_order(flags, envs, agents, "seed") if len(flags) else flags,
     )
 
 
@@ -1039,6 +1101,7 @@ def _write_tables(
         "seeds_advice.csv": data.advice,
         "frontier.csv": data.frontier,
         "break_even.csv": data.break_even,
+        "flagged_seeds.csv": data.seed_flags,
     }
     # Written only when they apply: earnings need `reward_earned`, the adaptation tables a map that changes.
     optional = {
@@ -1083,7 +1146,7 @@ def write_report(
     data = _analyse(frame, facts, envs, agents)
     labels = {env: _threshold_label(facts, env) for env in envs}
     headline = _headline(data, facts, labels)
-    warnings = threshold_warnings(frame, facts, envs)
+    warnings = threshold_warnings(frame, facts, envs) + seed_warnings(data.seed_flags, envs)
     files: list[Path] = []
     pages = []
     for env in envs:
