@@ -93,9 +93,10 @@ def test_write_report_writes_every_file(tmp_path):
             "seeds_advice",
             "frontier",
             "break_even",
+            "flagged_seeds",
         )
     }
-    figures = {env: ["curves", "budget"] for env in _ENVS}
+    figures = {env: ["curves", "curves_seeds", "budget"] for env in _ENVS}
     figures["FrozenLake-v1 4x4"] += ["threshold", "frontier"]  # the only env with a threshold
     for env, stems in figures.items():
         expected |= {f"{stem}_{safe_name(env)}.{ext}" for stem in stems for ext in ("png", "svg")}

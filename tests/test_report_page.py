@@ -160,9 +160,10 @@ def _expected_files() -> set[str]:
         "frontier.csv",
         "break_even.csv",
         "costs.csv",
+        "flagged_seeds.csv",
     }
-    stems = {"grid A": ["curves", "threshold", "model_error", "budget", "frontier", "costs"]}
-    stems["grid B & co"] = ["curves", "model_error", "budget"]  # no threshold: no KM or frontier figure
+    stems = {"grid A": ["curves", "curves_seeds", "threshold", "model_error", "budget", "frontier", "costs"]}
+    stems["grid B & co"] = ["curves", "curves_seeds", "model_error", "budget"]  # no threshold: no KM or frontier figure
     for env, env_stems in stems.items():
         names |= {f"{stem}_{safe_name(env)}.{ext}" for stem in env_stems for ext in ("png", "svg")}
     return names
