@@ -384,7 +384,8 @@ def _list(what: str | None) -> int:
             print(f"\n  {kind}: {cls.summary}")
             print(f"    source: {cls.source}")
             for p in cls.schema:
-                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+                role = f" [{p.role}]" if p.role else ""
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}{role}")
     if what in (None, "environments"):
         print("\nenvironment sources (one per environment entry):")
         for name, meaning in SOURCES.items():

@@ -12,7 +12,7 @@ from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
 from runner.agents.kernels import epsilon_greedy, q_learning_update
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
 
 __all__ = ["DynaQPlus"]
@@ -71,7 +71,7 @@ class DynaQPlus(TabularAgent):
         GAMMA,
         EPSILON,
         INITIAL_Q,
-        Param("planning_steps", "int", 5, "simulated updates per real step (n)", low=0),
+        Param("planning_steps", "int", 5, "simulated updates per real step (n)", low=0, role=PLANNING_BUDGET),
         Param("kappa", "float", 1e-3, "size of the exploration bonus kappa * sqrt(tau)", low=0.0),
     )
 

@@ -11,7 +11,7 @@ from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
 from runner.agents.kernels import epsilon_greedy, q_learning_update
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
 
 __all__ = ["PrioritizedSweeping"]
 
@@ -150,7 +150,7 @@ class PrioritizedSweeping(TabularAgent):
         GAMMA,
         EPSILON,
         INITIAL_Q,
-        Param("planning_steps", "int", 5, "queued updates per real step at most (n)", low=0),
+        Param("planning_steps", "int", 5, "queued updates per real step at most (n)", low=0, role=PLANNING_BUDGET),
         Param("theta", "float", 1e-4, "smallest priority that enters the queue", low=0.0),
         Param("max_predecessors", "int", 64, "(state, action) pairs remembered as leading into one state", low=1),
     )
