@@ -18,19 +18,21 @@ from typing import Any
 import gymnasium as gym
 import numpy as np
 
-from runner.agents import COUNTER_NAMES, TabularAgent, make_agent
+from runner.agents import COUNTER_NAMES, OwnAgent, TabularAgent, agent_class, make_agent
 from runner.compiled_trial import run_kind_trial
-from runner.envs.sources import build_env, env_sizes
+from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.metrics import METRIC_COLUMNS
 from runner.seeding import TrialStreams, trial_streams
 from runner.streams import new_stream
+from runner.tags import EnvTags
 
 __all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
-"""`auto` takes the compiled path whenever the environment is table-backed."""
+"""`auto` takes the compiled path whenever the environment is table-backed and the agent has compiled kernels
+(their tags say so)."""
 
 
 @dataclass
@@ -43,13 +45,23 @@ class TrialResult:
     trial_path: str
 
 
-def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: int, stream: np.ndarray) -> float:
+def _reader(kind: str):
+    """What the agent is handed as an observation: a whole number (discrete) or a float64 vector (box)."""
+    if kind == "discrete":
+        return int
+    return lambda obs: np.asarray(obs, dtype=np.float64)
+
+
+def evaluate_greedy(
+    agent: TabularAgent | OwnAgent, env: gym.Env, episodes: int, step_cap: int, stream: np.ndarray
+) -> float:
     """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps."""
+    read = _reader("discrete" if isinstance(env.observation_space, gym.spaces.Discrete) else "box")
     total = 0.0
     for _ in range(episodes):
         state, _ = env.reset()
         for _ in range(step_cap):
-            state, reward, terminated, truncated, _ = env.step(agent.greedy(int(state), stream))
+            state, reward, terminated, truncated, _ = env.step(agent.greedy(read(state), stream))
             total += float(reward)
             if terminated or truncated:
                 break
@@ -58,8 +70,7 @@ def evaluate_greedy(agent: TabularAgent, env: gym.Env, episodes: int, step_cap: 
 
 @dataclass(frozen=True)
 class _EnvFacts:
-    n_states: int
-    n_actions: int
+    tags: EnvTags
     not_table_reason: str | None
     tables: tuple[TransitionTable, ...] | None
     change_steps: tuple[int, ...]
@@ -73,27 +84,33 @@ class _EnvFacts:
 
 @functools.lru_cache(maxsize=16)
 def _env_facts(env_json: str) -> _EnvFacts:
-    """Sizes and transition table of an environment spec, worked out once per process."""
-    env = build_env(json.loads(env_json))
+    """Tags and transition table of an environment spec, worked out once per process."""
+    spec = json.loads(env_json)
+    env = build_env(spec)
     try:
-        n_states, n_actions = env_sizes(env)
+        tags = environment_tags(env, spec)
         reason = why_not_table_backed(env)
         tables = phase_tables(env) if reason is None else None
         rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
         steps = change_steps(env)
     finally:
         env.close()
-    return _EnvFacts(n_states, n_actions, reason, tables, steps, rules)
+    return _EnvFacts(tags, reason, tables, steps, rules)
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
-    """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can)."""
+    """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can: a
+    table-backed environment and an agent kind with compiled kernels)."""
     if path not in TRIAL_PATHS:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
+    kind = spec["agent"]["kind"]
+    compiled_agent = agent_class(kind).tags.compiled
     if path == "compiled" and facts.table is None:
         raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {facts.not_table_reason}")
-    return "gymnasium" if path == "gymnasium" or facts.table is None else "compiled"
+    if path == "compiled" and not compiled_agent:
+        raise EnvironmentSourceError(f"the compiled path needs an agent kind with compiled kernels; {kind} has none")
+    return "gymnasium" if path == "gymnasium" or facts.table is None or not compiled_agent else "compiled"
 
 
 def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0) -> TrialResult:
@@ -105,13 +122,18 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
-    agent.setup(
-        facts.n_states,
-        facts.n_actions,
-        streams.agent,
-        facts.table.as_tuple() if facts.table else None,
-        facts.rules,
-    )
+    if isinstance(agent, OwnAgent):
+        env = build_env(spec["env"])
+        agent.setup(env.observation_space, env.action_space, streams.agent)
+        env.close()
+    else:
+        agent.setup(
+            facts.tags.observation_size,
+            facts.tags.action_size,
+            streams.agent,
+            facts.table.as_tuple() if facts.table else None,
+            facts.rules,
+        )
     if chosen == "gymnasium":
         return _run_gymnasium(spec, agent, streams, time_limit, facts)
     return _run_compiled(spec, facts, agent, streams, time_limit)
@@ -159,7 +181,7 @@ def _run_compiled(
 
 
 def _run_gymnasium(
-    spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
+    spec: dict[str, Any], agent: TabularAgent | OwnAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
@@ -172,6 +194,7 @@ def _run_gymnasium(
     lengths: list[int] = []
     recent: deque[float] = deque(maxlen=ev["training_window"])
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
+    read = _reader(facts.tags.observation)
     phase = 0
     earned = 0.0
     start = time.perf_counter()
@@ -199,7 +222,7 @@ def _run_gymnasium(
 
     try:
         record(0, 0)
-        state = int(env.reset(seed=streams.reset_seed(streams.env))[0])
+        state = read(env.reset(seed=streams.reset_seed(streams.env))[0])
         episode_return, episode_length, point = 0.0, 0, 1
         for step in range(1, budget + 1):
             if time_limit > 0 and step % 256 == 0 and time.perf_counter() - start > time_limit:
@@ -210,8 +233,8 @@ def _run_gymnasium(
                 eval_env.unwrapped.set_phase(phase)
             action = agent.act(state)
             next_state, reward, terminated, truncated, _ = env.step(action)
-            next_state = int(next_state)
-            agent.observe(state, action, float(reward), next_state, bool(terminated))
+            next_state = read(next_state)
+            agent.observe(state, action, float(reward), next_state, bool(terminated), bool(truncated))
             episode_return += float(reward)
             earned += float(reward)
             episode_length += 1
@@ -221,7 +244,7 @@ def _run_gymnasium(
                 lengths.append(episode_length)
                 recent.append(episode_return)
                 episode_return, episode_length = 0.0, 0
-                state = int(env.reset()[0])
+                state = read(env.reset()[0])
             if step % ev["every"] == 0:
                 record(point, step)
                 point += 1
