@@ -2,8 +2,9 @@
 
 Evaluation runs greedy episodes on a separate environment instance with its own stream; those steps never
 count as samples. A metric row is written at step 0 and then every `every` real steps. A trial runs on one of
-two paths: whole in compiled code when the environment is a known transition table (`runner.compiled_trial`),
-else step by step through gymnasium. Both call the same agent kernels.
+two paths: whole in compiled code when the agent kind has compiled kernels and the environment is a known
+transition table (`runner.compiled_trial`) or has compiled dynamics seen through bins
+(`runner.compiled_dynamics_trial`), else step by step through gymnasium. Both call the same agent kernels.
 """
 
 from __future__ import annotations
@@ -19,6 +20,7 @@ import gymnasium as gym
 import numpy as np
 
 from runner.agents import COUNTER_NAMES, OwnAgent, TabularAgent, agent_class, make_agent
+from runner.compiled_dynamics_trial import CompiledDynamics, compiled_dynamics, run_dynamics_kind_trial
 from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
@@ -75,6 +77,8 @@ class _EnvFacts:
     tables: tuple[TransitionTable, ...] | None
     change_steps: tuple[int, ...]
     rules: tuple | None
+    dynamics: CompiledDynamics | None
+    not_dynamics_reason: str
 
     @property
     def table(self) -> TransitionTable | None:
@@ -93,24 +97,31 @@ def _env_facts(env_json: str) -> _EnvFacts:
         tables = phase_tables(env) if reason is None else None
         rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
         steps = change_steps(env)
+        dynamics = compiled_dynamics(spec, env)
     finally:
         env.close()
-    return _EnvFacts(tags, reason, tables, steps, rules)
+    if isinstance(dynamics, str):
+        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics)
+    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "")
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
-    """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can: a
-    table-backed environment and an agent kind with compiled kernels)."""
+    """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can: an agent kind
+    with compiled kernels on a table-backed environment, or on a binned one with compiled dynamics)."""
     if path not in TRIAL_PATHS:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     kind = spec["agent"]["kind"]
     compiled_agent = agent_class(kind).tags.compiled
-    if path == "compiled" and facts.table is None:
-        raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {facts.not_table_reason}")
+    compiled_env = facts.table is not None or facts.dynamics is not None
+    if path == "compiled" and not compiled_env:
+        raise EnvironmentSourceError(
+            "the compiled path needs a table-backed environment or compiled dynamics seen through bins: "
+            f"{facts.not_table_reason}; {facts.not_dynamics_reason}"
+        )
     if path == "compiled" and not compiled_agent:
         raise EnvironmentSourceError(f"the compiled path needs an agent kind with compiled kernels; {kind} has none")
-    return "gymnasium" if path == "gymnasium" or facts.table is None or not compiled_agent else "compiled"
+    return "compiled" if path != "gymnasium" and compiled_env and compiled_agent else "gymnasium"
 
 
 def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0) -> TrialResult:
@@ -144,19 +155,11 @@ def _run_compiled(
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
-    tables = tuple(t.as_tuple() for t in facts.tables)
-    changes = np.array([*facts.change_steps, budget + 1], dtype=np.int64)
     rows = np.zeros((budget // ev["every"] + 1, len(METRIC_COLUMNS)))
     returns = np.zeros(budget, dtype=np.float64)
     lengths = np.zeros(budget, dtype=np.int64)
-    n_episodes = run_kind_trial(
-        spec["agent"]["kind"],
-        agent.arrays_,
-        agent.hyper_,
-        agent.counters_,
-        agent.stream_,
-        tables,
-        changes,
+    agent_args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_)
+    loop_args = (
         new_stream(streams.env),
         new_stream(streams.eval_env),
         streams.evaluation,
@@ -170,6 +173,13 @@ def _run_compiled(
         returns,
         lengths,
     )
+    kind = spec["agent"]["kind"]
+    if facts.tables:
+        tables = tuple(t.as_tuple() for t in facts.tables)
+        changes = np.array([*facts.change_steps, budget + 1], dtype=np.int64)
+        n_episodes = run_kind_trial(kind, *agent_args, tables, changes, *loop_args)
+    else:
+        n_episodes = run_dynamics_kind_trial(kind, facts.dynamics, *agent_args, *loop_args)
     if n_episodes < 0:
         raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
     return TrialResult(
