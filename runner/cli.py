@@ -143,7 +143,9 @@ def _parser() -> argparse.ArgumentParser:
     migrate = sub.add_parser("migrate", help="carry a results folder of the previous release over to this one")
     migrate.add_argument("folder", help="the results folder, e.g. results/warehouse-spills")
 
-    listing = sub.add_parser("list", help="list agent kinds with their parameters, and environment sources")
+    listing = sub.add_parser(
+        "list", help="list agent kinds with their parameters and tags, and environment sources with their keys"
+    )
     listing.add_argument("what", nargs="?", choices=("agents", "environments"), default=None)
     return parser
 
@@ -374,8 +376,9 @@ def _report(folder: Path, out: str | None) -> int:
 
 def _list(what: str | None) -> int:
     from runner.agents import AGENTS, agent_class
+    from runner.envs.dynamics import DYNAMICS
     from runner.envs.grid import CELL_MEANINGS
-    from runner.envs.sources import SOURCES
+    from runner.envs.sources import COMMON_KEYS, SOURCES
 
     if what in (None, "agents"):
         print("agent kinds (use as `kind:`; parameters go under `params:`; a list of values tries each):")
@@ -383,20 +386,37 @@ def _list(what: str | None) -> int:
             cls = agent_class(kind)
             print(f"\n  {kind}: {cls.summary}")
             print(f"    source: {cls.source}")
+            print(f"    takes: {cls.tags.describe()}")
             for p in cls.schema:
                 role = f" [{p.role}]" if p.role else ""
                 print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}{role}")
+        print(
+            "\n  package.module:Class: your own agent in any framework, run step by step (see runner/agents/own.py "
+            "and the README's example)"
+        )
     if what in (None, "environments"):
         print("\nenvironment sources (one per environment entry):")
-        for name, meaning in SOURCES.items():
-            print(f"  {name:<6} {meaning}")
+        for source in SOURCES.values():
+            print(f"\n  {source.name}: {source.summary}")
+            print(f"    gives: {source.gives}")
+            for key, meaning in source.keys:
+                print(f"    {key:<18} {meaning}")
+            for p in source.schema:
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+        print("\nkeys of every environment entry:")
+        for key, meaning in COMMON_KEYS:
+            print(f"  {key:<18} {meaning}")
         print("\ngrid map cells:")
         for cell, meaning in CELL_MEANINGS.items():
             print(f"  {cell}  {meaning}")
-        print(
-            "\ngrid keys: map, slip, step_reward, goal_reward, hazard_penalty, hazard_ends, and changes: "
-            "[{at: REAL_STEP, map: ...}] to replace the map after that many real steps"
-        )
+        print("\ngymnasium ids with compiled dynamics (box observations; the tabular kinds need `bins:`):")
+        for spec in DYNAMICS.values():
+            actions = (
+                f"{spec.action_size} discrete actions"
+                if spec.action_kind == "discrete"
+                else f"box action in [{spec.action_low:g}, {spec.action_high:g}]"
+            )
+            print(f"  {spec.env_id:<38} {spec.obs_size} numbers, {actions}; {spec.summary}")
         print(
             "\nbuilt-in game: entry runner.envs.takeaway:TakeAwayGame with options heaps, opponent (random or "
             "optimal), illegal_reward, start (heaps or random); agents that search game rules (negamax_search) need it"

@@ -9,6 +9,7 @@ from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
+from runner.tags import AgentTags
 
 __all__ = ["DynaQ", "last_outcome_arrays", "record_last_outcome"]
 
@@ -103,6 +104,8 @@ def dyna_q_model_error(arrays, table):
 
 class DynaQ(TabularAgent):
     """Tabular Dyna-Q with a deterministic last-outcome model and a planning budget per real step."""
+
+    tags = AgentTags(learned_model="table", planning_param="planning_steps")
 
     kind = "dyna_q"
     summary = "Q-learning plus n simulated updates per real step from a learned last-outcome model"

@@ -14,6 +14,7 @@ from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
+from runner.tags import AgentTags
 
 __all__ = ["DynaQPlus"]
 
@@ -62,6 +63,8 @@ def dyna_q_plus_observe(arrays, hyper, counters, state, action, reward, next_sta
 
 class DynaQPlus(TabularAgent):
     """Dyna-Q with an exploration bonus in planning, for environments that change."""
+
+    tags = AgentTags(learned_model="table", planning_param="planning_steps")
 
     kind = "dyna_q_plus"
     summary = "Dyna-Q whose planning rewards pairs untried for tau real steps with kappa * sqrt(tau)"

@@ -12,6 +12,7 @@ from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import PLANNING_BUDGET, Param
+from runner.tags import AgentTags
 
 __all__ = ["PrioritizedSweeping"]
 
@@ -141,6 +142,8 @@ def prioritized_sweeping_observe(arrays, hyper, counters, state, action, reward,
 
 class PrioritizedSweeping(TabularAgent):
     """Tabular prioritized sweeping with a deterministic model and a per-step update budget."""
+
+    tags = AgentTags(learned_model="table", planning_param="planning_steps")
 
     kind = "prioritized_sweeping"
     summary = "model-based updates ordered by priority |expected change|, spreading backwards through predecessors"

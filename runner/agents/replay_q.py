@@ -12,6 +12,7 @@ from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
+from runner.tags import AgentTags
 
 __all__ = ["ReplayQLearning"]
 
@@ -61,6 +62,8 @@ def replay_q_observe(arrays, hyper, counters, state, action, reward, next_state,
 
 class ReplayQLearning(TabularAgent):
     """Q-learning plus uniform replays from a buffer of recent real transitions."""
+
+    tags = AgentTags(planning_param="replays")
 
     kind = "replay_q_learning"
     summary = "Q-learning plus k uniform replays per real step from a buffer of recent real transitions"

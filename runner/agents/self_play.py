@@ -13,8 +13,6 @@ environment without them (e.g. a grid map) cannot be searched as a game.
 
 from __future__ import annotations
 
-from typing import ClassVar
-
 import numpy as np
 from numba import njit
 
@@ -24,6 +22,7 @@ from runner.errors import EnvironmentSourceError
 from runner.params import PLANNING_BUDGET, Param
 from runner.planning.negamax import make_search_arrays, most_visited, random_legal_move, uct_search
 from runner.streams import uniform
+from runner.tags import AgentTags
 
 __all__ = ["NegamaxSearch"]
 
@@ -103,7 +102,7 @@ class NegamaxSearch(TabularAgent):
     source = "Kocsis & Szepesvari (2006); Winands, Bjornsson & Saito (2008); Sutton & Barto (2018), section 8.11"
     schema = (SIMULATIONS, EXPLORATION, EPSILON, ALPHA, GAMMA)
 
-    needs_rules: ClassVar[bool] = True
+    tags = AgentTags(needs=("rules",), planning_param="simulations")
     """This kind searches a game tree, so `setup` requires the environment's game rules."""
 
     def setup(

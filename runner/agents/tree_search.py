@@ -45,6 +45,7 @@ from runner.planning.tree import (
     table_arrays,
 )
 from runner.streams import below, uniform
+from runner.tags import AgentTags
 
 __all__ = ["PUCTSearch", "UCTSearch"]
 
@@ -184,6 +185,8 @@ _SHARED = (
 
 class _TreeSearch(TabularAgent):
     """What UCT and PUCT share: arrays, hyper layout, kernels, oracle handling and accounting."""
+
+    tags = AgentTags(learned_model="table", planning_param="simulations")
 
     selection: ClassVar[int] = SELECT_UCT
 
