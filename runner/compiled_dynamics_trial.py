@@ -19,7 +19,7 @@ import gymnasium as gym
 import numpy as np
 from numba import literally, njit, typeof, types
 
-from runner.clock import wall_clock
+from runner.clock import cpu_clock, wall_clock
 from runner.compiled_trial import agent_act, agent_greedy, agent_observe
 from runner.envs.bins import BinnedObservation
 from runner.envs.dynamics import DYNAMICS
@@ -166,7 +166,7 @@ def run_dynamics_trial(
     eval_obs = np.zeros(obs_size)
     cap = step_cap if step_cap < step_limit else step_limit
     started = wall_clock()
-    cpu_started = cpuwall_clock()
+    cpu_started = cpu_clock()
     measured = 0.0
     earned = 0.0
     n_episodes = 0
@@ -199,7 +199,7 @@ def run_dynamics_trial(
                 env_observation(literally(env_id), state, params, obs)
                 s = bin_index(obs, edges, edge_offsets, strides)
         if step % every == 0:
-            measuring = cpuwall_clock()
+            measuring = cpu_clock()
             rows[point, REAL_STEPS] = step
             rows[point, REWARD_EARNED] = earned
             rows[point, EPISODES] = n_episodes
@@ -230,7 +230,7 @@ def run_dynamics_trial(
             rows[point, ENV_PHASE] = 0
             rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured
-            measured += cpuwall_clock() - measuring
+            measured += cpu_clock() - measuring
             point += 1
     return n_episodes
 
