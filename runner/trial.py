@@ -281,5 +281,5 @@ def _run_gymnasium(
         episode_returns=np.asarray(returns, dtype=np.float64),
         episode_lengths=np.asarray(lengths, dtype=np.int64),
         trial_path="gymnasium",
-        final_values=agent.arrays_[0].copy(),
+        final_values=agent.arrays_[0].copy() if isinstance(agent, TabularAgent) else None,
     )
