@@ -105,7 +105,7 @@ def dyna_q_model_error(arrays, table):
 class DynaQ(TabularAgent):
     """Tabular Dyna-Q with a deterministic last-outcome model and a planning budget per real step."""
 
-    tags = AgentTags(learned_model="table", planning_param="planning_steps")
+    tags = AgentTags(learned_model="table")
 
     kind = "dyna_q"
     summary = "Q-learning plus n simulated updates per real step from a learned last-outcome model"

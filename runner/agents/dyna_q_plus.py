@@ -64,7 +64,7 @@ def dyna_q_plus_observe(arrays, hyper, counters, state, action, reward, next_sta
 class DynaQPlus(TabularAgent):
     """Dyna-Q with an exploration bonus in planning, for environments that change."""
 
-    tags = AgentTags(learned_model="table", planning_param="planning_steps")
+    tags = AgentTags(learned_model="table")
 
     kind = "dyna_q_plus"
     summary = "Dyna-Q whose planning rewards pairs untried for tau real steps with kappa * sqrt(tau)"

@@ -143,7 +143,7 @@ def prioritized_sweeping_observe(arrays, hyper, counters, state, action, reward,
 class PrioritizedSweeping(TabularAgent):
     """Tabular prioritized sweeping with a deterministic model and a per-step update budget."""
 
-    tags = AgentTags(learned_model="table", planning_param="planning_steps")
+    tags = AgentTags(learned_model="table")
 
     kind = "prioritized_sweeping"
     summary = "model-based updates ordered by priority |expected change|, spreading backwards through predecessors"

@@ -63,7 +63,7 @@ def replay_q_observe(arrays, hyper, counters, state, action, reward, next_state,
 class ReplayQLearning(TabularAgent):
     """Q-learning plus uniform replays from a buffer of recent real transitions."""
 
-    tags = AgentTags(planning_param="replays")
+    tags = AgentTags()
 
     kind = "replay_q_learning"
     summary = "Q-learning plus k uniform replays per real step from a buffer of recent real transitions"

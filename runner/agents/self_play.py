@@ -102,7 +102,7 @@ class NegamaxSearch(TabularAgent):
     source = "Kocsis & Szepesvari (2006); Winands, Bjornsson & Saito (2008); Sutton & Barto (2018), section 8.11"
     schema = (SIMULATIONS, EXPLORATION, EPSILON, ALPHA, GAMMA)
 
-    tags = AgentTags(needs=("rules",), planning_param="simulations")
+    tags = AgentTags(needs=("rules",))
     """This kind searches a game tree, so `setup` requires the environment's game rules."""
 
     def setup(

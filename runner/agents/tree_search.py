@@ -186,7 +186,7 @@ _SHARED = (
 class _TreeSearch(TabularAgent):
     """What UCT and PUCT share: arrays, hyper layout, kernels, oracle handling and accounting."""
 
-    tags = AgentTags(learned_model="table", planning_param="simulations")
+    tags = AgentTags(learned_model="table")
 
     selection: ClassVar[int] = SELECT_UCT
 
