@@ -8,6 +8,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import itertools
+import json
 import math
 import re
 from collections.abc import Sequence
@@ -586,7 +587,7 @@ def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
             raise src.error((*path, "label"), f"expected a unique label, {variants[0].entry_label!r} is used twice")
         entry_labels.add(variants[0].entry_label)
         for variant in variants:
-            key = (variant.kind, tuple(sorted(variant.params.items())))
+            key = (variant.kind, json.dumps(variant.params, sort_keys=True))
             if key in seen:
                 raise src.error(path, f"expected distinct agents, this one repeats {seen[key]!r} exactly")
             seen[key] = variant.label
@@ -640,7 +641,8 @@ def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentV
             try:
                 fixed[name] = check_value(schema[name], raw)
             except ValueError as err:
-                raise src.error(ppath, str(err)) from None
+                inner = getattr(err, "subpath", ())
+                raise src.error((*ppath, *inner), getattr(err, "bare", str(err))) from None
     label = data.get("label", kind)
     if not isinstance(label, str) or not label.strip():
         raise src.error((*path, "label"), f"expected a non-empty text label, got {_kind(label)}")

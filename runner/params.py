@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
-from dataclasses import dataclass
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
 from typing import Any
 
 __all__ = [
@@ -34,7 +34,7 @@ class Param:
     """One parameter of a kind: its type, default, allowed range or choices, and a one-line meaning."""
 
     name: str
-    type: str  # "float", "int", "bool" or "choice"
+    type: str  # "float", "int", "bool", "choice" or "mapping"
     default: Any
     meaning: str
     low: float | None = None
@@ -43,9 +43,13 @@ class Param:
     high_open: bool = False
     choices: tuple[str, ...] = ()
     role: str = ""
+    check: Callable[[Any], Any] | None = field(default=None, compare=False)
+    """For a `mapping`: returns the canonical value or raises ValueError (a subclass may carry a key path)."""
 
     def __post_init__(self) -> None:
         """Reject a role that no part of stepmeter reads."""
+        if (self.type == "mapping") != (self.check is not None):
+            raise ValueError(f"parameter {self.name!r}: a mapping needs a check, and only a mapping has one")
         if self.role and self.role not in ROLES:
             raise ValueError(f"parameter {self.name!r}: role must be one of {ROLES} or empty, got {self.role!r}")
 
@@ -53,6 +57,8 @@ class Param:
         """Say in words what a valid value looks like."""
         if self.type == "bool":
             return "true or false"
+        if self.type == "mapping":
+            return "a mapping"
         if self.type == "choice":
             return "one of " + ", ".join(repr(c) for c in self.choices)
         noun = "a whole number" if self.type == "int" else "a number"
@@ -83,6 +89,8 @@ def _fmt(x: float) -> str:
 def check_value(param: Param, value: Any) -> Any:
     """Return the value converted to the parameter's type, or raise ValueError saying what was expected."""
     got = f"got {value!r}"
+    if param.check is not None:
+        return param.check(value)
     if param.type == "bool":
         if isinstance(value, bool):
             return value
@@ -128,5 +136,5 @@ def resolve_params(schema: tuple[Param, ...], given: Mapping[str, Any]) -> dict[
             except ValueError as err:
                 raise ValueError(f"{p.name}: {err}") from None
         else:
-            resolved[p.name] = p.default
+            resolved[p.name] = p.check(p.default) if p.check is not None else p.default
     return resolved
