@@ -18,7 +18,7 @@ from runner.errors import EnvironmentSourceError
 from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS
 from runner.planning.negamax import solve_negamax
 from runner.streams import new_stream
-from runner.trial import run_trial
+from runner.trial import resolve_path, run_trial
 from runner.trial_spec import TrialSpec
 
 __all__ = ["ContractError", "agent_checks", "check_agent", "check_environment", "environment_checks"]
@@ -126,12 +126,15 @@ def _drive(agent: AnyAgent, env_spec: dict, steps: int, seed: int) -> list[Any]:
 def _probes(agent: AnyAgent) -> list[Any]:
     """Observations to ask an agent's greedy policy about: every state, or 20 points of a bounded box."""
     if isinstance(agent, TabularAgent):
-        return list(range(agent.n_states_))
-    space = agent.observation_space_
-    if space.__class__.__name__ == "Discrete":
-        return list(range(int(space.n)))
-    low = np.maximum(np.asarray(space.low, dtype=np.float64), -10.0)
-    high = np.minimum(np.asarray(space.high, dtype=np.float64), 10.0)
+        if "box" not in agent.tags.observations:
+            return list(range(agent.n_states_))
+        bounds = agent.bounds_
+    elif agent.observation_space_.__class__.__name__ == "Discrete":
+        return list(range(int(agent.observation_space_.n)))
+    else:
+        bounds = (agent.observation_space_.low, agent.observation_space_.high)
+    low = np.maximum(np.asarray(bounds[0], dtype=np.float64), -10.0)
+    high = np.minimum(np.asarray(bounds[1], dtype=np.float64), 10.0)
     rng = np.random.default_rng(0)
     return [rng.uniform(low, high) for _ in range(20)]
 
@@ -244,9 +247,10 @@ def _check_counters_add_up(cls: type[AnyAgent], params: dict) -> None:
 
 
 def _check_trial_rows_reproducible(cls: type[AnyAgent], params: dict) -> None:
+    """On every path the trial can take (compiled when its tags and the task allow it, and step by step)."""
     columns = [c for c in METRIC_COLUMNS if c not in TIMING_COLUMNS]
     kind, task = _kind_name(cls), _task(cls, SLIPPERY)
-    for path in ("compiled", "gymnasium") if cls.tags.compiled else ("gymnasium",):
+    for path in dict.fromkeys((resolve_path(_trial_spec(kind, params, task, seed=9)), "gymnasium")):
         first = run_trial(_trial_spec(kind, params, task, seed=9), path).rows
         again = run_trial(_trial_spec(kind, params, task, seed=9), path).rows
         other = run_trial(_trial_spec(kind, params, task, seed=10), path).rows

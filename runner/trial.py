@@ -20,7 +20,7 @@ from typing import Any
 import gymnasium as gym
 import numpy as np
 
-from runner.agents import COUNTER_NAMES, OwnAgent, TabularAgent, agent_class, make_agent
+from runner.agents import COUNTER_NAMES, OwnAgent, TabularAgent, agent_class, make_agent, observation_bounds
 from runner.compiled_dynamics_trial import CompiledDynamics, compiled_dynamics, run_dynamics_kind_trial
 from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, environment_tags
@@ -92,6 +92,7 @@ class _EnvFacts:
     rules: tuple | None
     dynamics: CompiledDynamics | None
     not_dynamics_reason: str
+    bounds: tuple[np.ndarray, np.ndarray] | None = None
 
     @property
     def table(self) -> TransitionTable | None:
@@ -111,11 +112,12 @@ def _env_facts(env_json: str) -> _EnvFacts:
         rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
         steps = change_steps(env)
         dynamics = compiled_dynamics(spec, env)
+        bounds = observation_bounds(env.observation_space)
     finally:
         env.close()
     if isinstance(dynamics, str):
-        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics)
-    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "")
+        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics, bounds)
+    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "", bounds)
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
@@ -157,6 +159,7 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
             streams.agent,
             facts.table.as_tuple() if facts.table else None,
             facts.rules,
+            facts.bounds,
         )
     if chosen == "gymnasium":
         return _run_gymnasium(spec, agent, streams, time_limit, facts)

@@ -5,12 +5,24 @@ from __future__ import annotations
 from typing import Any
 
 import gymnasium as gym
+import numpy as np
 
 from runner.agents.base import COUNTER_NAMES, TabularAgent
 from runner.agents.own import OwnAgent, own_agent_class
+from runner.errors import EnvironmentSourceError
 from runner.registry import Registry, import_entry_point
+from runner.tags import space_kind
 
-__all__ = ["AGENTS", "COUNTER_NAMES", "OwnAgent", "TabularAgent", "agent_class", "make_agent", "setup_agent"]
+__all__ = [
+    "AGENTS",
+    "COUNTER_NAMES",
+    "OwnAgent",
+    "TabularAgent",
+    "agent_class",
+    "make_agent",
+    "observation_bounds",
+    "setup_agent",
+]
 
 AGENTS = Registry(
     "agent kind",
@@ -27,6 +39,8 @@ AGENTS = Registry(
         "negamax_search": "runner.agents.self_play:NegamaxSearch",
         "uct_search": "runner.agents.tree_search:UCTSearch",
         "puct_search": "runner.agents.tree_search:PUCTSearch",
+        "linear_q_learning": "runner.agents.linear:LinearQLearning",
+        "linear_sarsa": "runner.agents.linear:LinearSarsa",
     },
     base=TabularAgent,
     base_name="runner.agents.TabularAgent",
@@ -50,15 +64,32 @@ def make_agent(kind: str, params: dict) -> TabularAgent | OwnAgent:
     return agent_class(kind)(**params)
 
 
+def observation_bounds(space: gym.Space) -> tuple[np.ndarray, np.ndarray] | None:
+    """A box observation space's (low, high) as float64 arrays; None for other spaces."""
+    if isinstance(space, gym.spaces.Box):
+        return np.asarray(space.low, dtype=np.float64).ravel(), np.asarray(space.high, dtype=np.float64).ravel()
+    return None
+
+
+def _sizes(agent: TabularAgent, env: gym.Env) -> tuple[int, int]:
+    """(states or box observation dimensions, actions) as a compiled kind is set up with."""
+    from runner.envs.sources import env_sizes
+
+    observed, acted = space_kind(env.observation_space), space_kind(env.action_space)
+    if observed is None or observed[0] != "box" or "box" not in agent.tags.observations:
+        return env_sizes(env)
+    if acted is None or acted[0] != "discrete":
+        raise EnvironmentSourceError(f"{agent.kind} needs a Discrete action space, got {env.action_space}")
+    return observed[1], acted[1]
+
+
 def setup_agent(
     agent: TabularAgent | OwnAgent, env: gym.Env, stream: Any, table: tuple | None = None, rules: tuple | None = None
 ) -> None:
-    """Set an agent up on a built environment: tabular kinds get its sizes (and the table or rules they may use),
-    own agents its spaces."""
+    """Set an agent up on a built environment: compiled kinds get its sizes (and the table, rules or observation
+    bounds they may use), own agents its spaces."""
     if isinstance(agent, OwnAgent):
         agent.setup(env.observation_space, env.action_space, stream)
         return
-    from runner.envs.sources import env_sizes
-
-    n_states, n_actions = env_sizes(env)
-    agent.setup(n_states, n_actions, stream, table, rules)
+    n_states, n_actions = _sizes(agent, env)
+    agent.setup(n_states, n_actions, stream, table, rules, observation_bounds(env.observation_space))

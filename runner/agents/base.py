@@ -57,6 +57,7 @@ class TabularAgent:
         stream: int | np.random.SeedSequence | np.ndarray,
         table: tuple | None = None,
         rules: tuple | None = None,
+        bounds: tuple[np.ndarray, np.ndarray] | None = None,
     ) -> None:
         """Create the learned state for an environment of that size.
 
@@ -64,7 +65,8 @@ class TabularAgent:
         environment's true transition table as the compiled path's tuple, when it is known (see
         `runner.envs.table.TransitionTable.as_tuple`); only oracle kinds may use it. `rules` is what a
         game environment tells a player about its rules (`env.unwrapped.game_rules()`, a tuple of arrays), for
-        kinds that search a game tree.
+        kinds that search a game tree. `bounds` are a box observation space's (low, high) arrays, for kinds that
+        take boxes (`n_states` is then the number of observation dimensions); None: unbounded.
         """
         if self.uses_table() and table is None:
             raise EnvironmentSourceError(
@@ -76,6 +78,8 @@ class TabularAgent:
         self.n_states_ = int(n_states)
         self.n_actions_ = int(n_actions)
         self.stream_ = as_stream(stream)
+        unbounded = np.full(self.n_states_, np.inf)
+        self.bounds_ = (-unbounded, unbounded) if bounds is None else tuple(np.asarray(b, float) for b in bounds)
         self.counters_ = np.zeros(len(COUNTER_NAMES), dtype=np.int64)
         self.arrays_ = self.make_arrays(self.n_states_, self.n_actions_)
         self.hyper_ = np.asarray(self.make_hyper(), dtype=np.float64)

@@ -112,6 +112,7 @@ class NegamaxSearch(TabularAgent):
         stream: int | np.random.SeedSequence | np.ndarray,
         table: tuple | None = None,
         rules: tuple | None = None,
+        bounds: tuple[np.ndarray, np.ndarray] | None = None,
     ) -> None:
         """As `TabularAgent.setup`, but `rules` (the environment's `game_rules()`) are required and must match
         the environment's sizes."""
@@ -126,7 +127,7 @@ class NegamaxSearch(TabularAgent):
                 f"{self.kind}: the game rules cover {next_position.shape[0]} positions x {next_position.shape[1]} "
                 f"moves, but the environment has {n_states} states x {n_actions} actions"
             )
-        super().setup(n_states, n_actions, stream, table, rules)
+        super().setup(n_states, n_actions, stream, table, rules, bounds)
 
     def make_arrays(self, n_states: int, n_actions: int) -> tuple[np.ndarray, ...]:
         next_position, is_terminal, terminal_value = self.rules_[0], self.rules_[1], self.rules_[2]

@@ -1,0 +1,97 @@
+"""Compiled building blocks of the linear agents: action values from active features, epsilon-greedy choice
+and the semi-gradient update (Sutton & Barto 2018, sections 9.3 and 10.1).
+
+Every linear agent's arrays start with the same entries (`LINEAR_ARRAYS`): the weights (n_actions x n_features),
+the five arrays of the feature map (`runner.features.kernels`), scratch rows for the active features of two
+observations, and a scratch vector of action values. Kind-specific arrays follow.
+"""
+
+import numpy as np
+from numba import njit
+
+from runner.agents.kernels import argmax_random_tie
+from runner.features.kernels import feature_values
+from runner.streams import below, uniform
+
+__all__ = [
+    "LINEAR_ARRAYS",
+    "action_values",
+    "epsilon_greedy_values",
+    "linear_arrays",
+    "linear_greedy",
+    "observation_values",
+    "semi_gradient_update",
+]
+
+W, INTS, FLOATS, LOW, HIGH, TABLE, IDX, VAL, Q = range(9)
+LINEAR_ARRAYS = 9
+
+
+def linear_arrays(n_actions: int, feature_map: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
+    """The shared leading arrays: zero weights, the feature map, and scratch space."""
+    ints = feature_map[0]
+    n_features, n_active = int(ints[5]), int(ints[6])
+    return (
+        np.zeros((n_actions, n_features), dtype=np.float64),
+        *feature_map,
+        np.zeros((2, n_active), dtype=np.int64),
+        np.zeros((2, n_active), dtype=np.float64),
+        np.zeros(n_actions, dtype=np.float64),
+    )
+
+
+@njit(cache=True)
+def features_into(arrays, obs, slot):
+    """Active features of an observation into scratch row `slot` (0 or 1); returns how many."""
+    fmap = (arrays[INTS], arrays[FLOATS], arrays[LOW], arrays[HIGH], arrays[TABLE])
+    return feature_values(obs, fmap, arrays[IDX][slot], arrays[VAL][slot])
+
+
+@njit(cache=True)
+def action_values(w, idx, val, n, out):
+    """out[a] = w[a] . phi for the n active features (idx, val)."""
+    for a in range(w.shape[0]):
+        total = 0.0
+        for i in range(n):
+            total += w[a, idx[i]] * val[i]
+        out[a] = total
+
+
+@njit(cache=True)
+def observation_values(arrays, obs, slot):
+    """Action values of an observation (into the scratch vector, returned); its features stay in `slot`."""
+    n = features_into(arrays, obs, slot)
+    action_values(arrays[W], arrays[IDX][slot], arrays[VAL][slot], n, arrays[Q])
+    return arrays[Q]
+
+
+@njit(cache=True)
+def epsilon_greedy_values(q, epsilon, rng):
+    """With probability epsilon a uniform action, else a greedy one with random ties (draws as the tabular
+    `epsilon_greedy` does)."""
+    if uniform(rng) < epsilon:
+        return below(rng, q.shape[0])
+    return argmax_random_tie(q, rng)
+
+
+@njit(cache=True)
+def linear_greedy(arrays, hyper, state, rng):
+    """The evaluation kernel of every linear agent: greedy on the linear action values, ties from `rng`."""
+    return argmax_random_tie(observation_values(arrays, state, 0), rng)
+
+
+@njit(cache=True)
+def semi_gradient_update(w, action, idx, val, n, target, alpha):
+    """w[action] += alpha / (phi . phi) * (target - w[action] . phi) * phi: the semi-gradient step with the step
+    size divided by the squared feature norm (the number of tilings for tile coding, as Sutton & Barto 2018,
+    section 9.5.4, state step sizes), so `alpha` means the same for every feature kind."""
+    value = 0.0
+    norm = 0.0
+    for i in range(n):
+        value += w[action, idx[i]] * val[i]
+        norm += val[i] * val[i]
+    if norm == 0.0:
+        return
+    step = alpha / norm * (target - value)
+    for i in range(n):
+        w[action, idx[i]] += step * val[i]
