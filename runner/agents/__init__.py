@@ -41,6 +41,7 @@ AGENTS = Registry(
         "puct_search": "runner.agents.tree_search:PUCTSearch",
         "linear_q_learning": "runner.agents.linear:LinearQLearning",
         "linear_sarsa": "runner.agents.linear:LinearSarsa",
+        "linear_dyna": "runner.agents.linear_dyna:LinearDyna",
     },
     base=TabularAgent,
     base_name="runner.agents.TabularAgent",

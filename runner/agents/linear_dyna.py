@@ -1,0 +1,180 @@
+"""Linear Dyna (Sutton, Szepesvari, Geramifard & Bowling 2008): a linear expectation model learned online from
+real transitions, and `planning_steps` simulated updates per real step from previously visited states.
+
+Per action a, the model predicts the next feature vector as F_a phi and the reward as b_a . phi, both learned
+by least-mean-squares steps on every real transition (the paper's model updates; the step is divided by
+phi . phi, like the value step). The values are linear action values w_a . phi learned by semi-gradient
+Q-learning (so `planning_steps: 0` is `linear_q_learning` bit for bit); a planning update takes a visited
+(observation, action) pair uniformly from a memory of the last `memory` real steps and backs up
+b_a . phi + gamma max_a' w_a' . (F_a phi). A terminal next state has the zero feature vector, so the model
+learns how likely an episode is to end. F_a is n_features x n_features: keep the features few (hash the tiles).
+"""
+
+from dataclasses import replace
+
+import numpy as np
+from numba import njit
+
+from runner.agents.linear import LINEAR_SCHEMA, LinearAgent, linear_q_act, linear_q_observe
+from runner.agents.linear_kernels import IDX, INTS, LINEAR_ARRAYS, VAL, W, features_into, semi_gradient_update
+from runner.errors import EnvironmentSourceError
+from runner.features import DEFAULT_FEATURES, FEATURES_PARAM
+from runner.params import PLANNING_BUDGET, Param
+from runner.streams import below
+from runner.tags import AgentTags
+
+__all__ = ["MAX_MODEL_ENTRIES", "LinearDyna", "linear_model_update"]
+
+_ALPHA, _GAMMA, _EPSILON, _PLANNING, _MODEL_ALPHA = range(5)
+_F, _B, _PRED, _TARGET, _MEMORY, _MEMORY_ACTION, _MEMORY_META = range(LINEAR_ARRAYS, LINEAR_ARRAYS + 7)
+_N_ACTIVE = 6
+
+MAX_MODEL_ENTRIES = 1 << 24
+"""Most numbers in the model's matrices (n_actions x n_features**2, 128 MB of float64)."""
+
+
+@njit(cache=True)
+def predict_features(f, b, action, idx, val, n, out):
+    """out = F_action phi (dense); returns the predicted reward b_action . phi. `f[a, j]` is column j of F_a."""
+    out[:] = 0.0
+    reward = 0.0
+    for i in range(n):
+        out += val[i] * f[action, idx[i]]
+        reward += b[action, idx[i]] * val[i]
+    return reward
+
+
+@njit(cache=True)
+def linear_model_update(f, b, action, idx, val, n, next_idx, next_val, n_next, terminated, reward, alpha, pred, target):
+    """One least-mean-squares step of F_a and b_a towards phi' (zero when terminated) and r, with the step
+    divided by phi . phi. `pred` and `target` are scratch vectors of length n_features."""
+    norm = 0.0
+    for i in range(n):
+        norm += val[i] * val[i]
+    if norm == 0.0:
+        return
+    predicted_reward = predict_features(f, b, action, idx, val, n, pred)
+    target[:] = 0.0
+    if not terminated:
+        for k in range(n_next):
+            target[next_idx[k]] += next_val[k]
+    step = alpha / norm
+    reward_step = step * (reward - predicted_reward)
+    for i in range(n):
+        f[action, idx[i]] += step * val[i] * (target - pred)
+        b[action, idx[i]] += reward_step * val[i]
+
+
+@njit(cache=True)
+def linear_dyna_plan(arrays, hyper, counters, n_updates, rng):
+    """`n_updates` Q-learning backups through the model from visited (observation, action) pairs."""
+    w, f, b, pred = arrays[W], arrays[_F], arrays[_B], arrays[_PRED]
+    meta = arrays[_MEMORY_META]
+    for _ in range(n_updates):
+        j = below(rng, meta[0])
+        action = arrays[_MEMORY_ACTION][j]
+        n = features_into(arrays, arrays[_MEMORY][j], 0)
+        idx, val = arrays[IDX][0], arrays[VAL][0]
+        reward = predict_features(f, b, action, idx, val, n, pred)
+        best = -np.inf
+        for a in range(w.shape[0]):
+            best = max(best, np.dot(w[a], pred))
+        semi_gradient_update(w, action, idx, val, n, reward + hyper[_GAMMA] * best, hyper[_ALPHA])
+    counters[1] += n_updates
+
+
+@njit(cache=True)
+def linear_dyna_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
+    """The direct Q-learning update, the model update, the visited pair remembered, then the planning budget."""
+    linear_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng)
+    n = arrays[INTS][_N_ACTIVE]
+    linear_model_update(
+        arrays[_F],
+        arrays[_B],
+        action,
+        arrays[IDX][0],
+        arrays[VAL][0],
+        n,
+        arrays[IDX][1],
+        arrays[VAL][1],
+        n,
+        terminated,
+        reward,
+        hyper[_MODEL_ALPHA],
+        arrays[_PRED],
+        arrays[_TARGET],
+    )
+    counters[2] += 1
+    meta = arrays[_MEMORY_META]
+    arrays[_MEMORY][meta[1]] = state
+    arrays[_MEMORY_ACTION][meta[1]] = action
+    meta[1] = (meta[1] + 1) % arrays[_MEMORY].shape[0]
+    meta[0] = min(meta[0] + 1, arrays[_MEMORY].shape[0])
+    linear_dyna_plan(arrays, hyper, counters, np.int64(hyper[_PLANNING]), rng)
+
+
+class LinearDyna(LinearAgent):
+    """Linear Dyna: linear Q-learning plus planning through a learned linear expectation model."""
+
+    tags = AgentTags(observations=("box",), learned_model="function")
+    kind = "linear_dyna"
+    summary = "linear Q-learning plus n simulated updates per real step through a learned linear expectation model"
+    source = "Sutton, Szepesvari, Geramifard & Bowling (2008); Sutton & Barto (2018), section 8.2"
+    schema = (
+        *LINEAR_SCHEMA[:3],
+        replace(FEATURES_PARAM, default={**DEFAULT_FEATURES, "hash_size": 1024}),
+        Param(
+            "planning_steps",
+            "int",
+            5,
+            "simulated updates per real step (0 gives linear_q_learning)",
+            low=0,
+            role=PLANNING_BUDGET,
+        ),
+        Param(
+            "model_alpha",
+            "float",
+            0.1,
+            "step size of the model's updates, divided by the squared feature norm",
+            low=0.0,
+            high=1.0,
+            low_open=True,
+        ),
+        Param("memory", "int", 100_000, "visited (observation, action) pairs kept to plan from", low=1, high=10**7),
+    )
+
+    def make_arrays(self, n_states, n_actions):
+        shared = super().make_arrays(n_states, n_actions)
+        n_features = shared[W].shape[1]
+        if n_actions * n_features**2 > MAX_MODEL_ENTRIES:
+            raise EnvironmentSourceError(
+                f"linear_dyna: {n_features:,} features make a model of {n_actions} x {n_features:,}^2 numbers, more "
+                f"than {MAX_MODEL_ENTRIES:,}; use fewer features (e.g. features.hash_size: 1024)"
+            )
+        return (
+            *shared,
+            np.zeros((n_actions, n_features, n_features)),
+            np.zeros((n_actions, n_features)),
+            np.zeros(n_features),
+            np.zeros(n_features),
+            np.zeros((self._params["memory"], n_states)),
+            np.zeros(self._params["memory"], dtype=np.int64),
+            np.zeros(2, dtype=np.int64),
+        )
+
+    def make_hyper(self):
+        p = self._params
+        return [*super().make_hyper(), float(p["planning_steps"]), p["model_alpha"]]
+
+    def counter_problems(self, real_steps):
+        c = self.counters()
+        n = self._params["planning_steps"]
+        problems = super().counter_problems(real_steps)
+        if c["real_updates"] != real_steps or c["model_updates"] != real_steps:
+            problems.append(f"real and model updates should both equal real steps {real_steps}: {c}")
+        if c["planning_updates"] != n * c["real_updates"]:
+            problems.append(f"planning_updates {c['planning_updates']} != n x real_updates = {n * c['real_updates']}")
+        return problems
+
+    act_kernel = staticmethod(linear_q_act)
+    observe_kernel = staticmethod(linear_dyna_observe)
