@@ -42,6 +42,7 @@ AGENTS = Registry(
         "linear_q_learning": "runner.agents.linear:LinearQLearning",
         "linear_sarsa": "runner.agents.linear:LinearSarsa",
         "linear_dyna": "runner.agents.linear_dyna:LinearDyna",
+        "linear_gaussian": "runner.agents.linear_gaussian:LinearGaussian",
     },
     base=TabularAgent,
     base_name="runner.agents.TabularAgent",
