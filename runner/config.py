@@ -130,6 +130,7 @@ class EnvironmentDecl:
     step_cap: int
     earning_threshold: float | None = None
     tags: EnvTags | None = None
+    box_tags: EnvTags | None = None  # with `bins`: what the box itself gives (to kinds that take boxes)
 
 
 @dataclass(frozen=True)
@@ -391,10 +392,16 @@ def _environment(
     if "threshold" in data:
         threshold = _threshold(src, (*path, "threshold"), data["threshold"], "a return to reach")
     earning = _threshold(src, (*path, "earning_threshold"), data.get("earning_threshold"), "reward per real step")
-    tags = _check_buildable(src, path, source, spec, data.get("bins"))
+    tags, box_tags = _check_buildable(src, path, source, spec, data.get("bins"))
     step_cap = evaluation.step_cap or time_limit or _DEFAULT_STEP_CAP
     return EnvironmentDecl(
-        label=label, spec=spec, threshold=threshold, step_cap=int(step_cap), earning_threshold=earning, tags=tags
+        label=label,
+        spec=spec,
+        threshold=threshold,
+        step_cap=int(step_cap),
+        earning_threshold=earning,
+        tags=tags,
+        box_tags=box_tags,
     )
 
 
@@ -533,9 +540,11 @@ def _option_at_fault(spec: dict[str, Any], err: Exception) -> str | None:
     return hits[0] if len(hits) == 1 else None
 
 
-def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str, Any], bins: Any) -> EnvTags:
+def _check_buildable(
+    src: SourceText, path: KeyPath, source: str, spec: dict[str, Any], bins: Any
+) -> tuple[EnvTags, EnvTags | None]:
     """Build the environment once (a failure points at its options when it has any), resolve its `bins` against
-    its observation space into `spec`, and return what it gives."""
+    its observation space into `spec`, and return what it gives (and, with bins, what its box gives)."""
     at = (*path, "options") if spec.get("options") else (*path, source)
     try:
         env = build_env(spec)
@@ -554,14 +563,16 @@ def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str
             ) from None
         raise src.error(at, f"could not build {what}: {type(err).__name__}: {_short(err)}") from None
     try:
+        box_tags = None
         if bins is not None:
+            box_tags = environment_tags(env, spec)
             try:
                 spec["bins"] = resolve_bins(bins, env.observation_space)
             except BinsError as err:
                 raise src.error((*path, "bins", *err.key), str(err)) from None
             env.close()
             env = build_env(spec)
-        return environment_tags(env, spec)
+        return environment_tags(env, spec), box_tags
     except EnvironmentSourceError as err:
         raise src.error(at, str(err)) from None
     finally:
@@ -691,6 +702,7 @@ def _check_pairs(src: SourceText, environments: tuple[EnvironmentDecl, ...], age
             if key in seen or env.tags is None:
                 continue
             seen.add(key)
-            problem = pairing_problem(variant.kind, cls.tags, uses_table, env.label, env.tags)
+            gives = env.box_tags if env.box_tags is not None and "box" in cls.tags.observations else env.tags
+            problem = pairing_problem(variant.kind, cls.tags, uses_table, env.label, gives)
             if problem is not None:
                 raise src.error(("agents", variant.index, "kind"), problem)

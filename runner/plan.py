@@ -9,7 +9,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import Any
 
+from runner.agents import agent_class
 from runner.config import Experiment
+from runner.tags import seen_env_spec
 from runner.trial_spec import SPEC_FORMAT, TrialSpec, canonical_json, trial_id
 
 __all__ = ["SPEC_FORMAT", "PlannedTrial", "canonical_json", "plan_trials", "trial_id"]
@@ -27,14 +29,17 @@ class PlannedTrial:
 
 
 def plan_trials(experiment: Experiment) -> list[PlannedTrial]:
-    """Every (environment, agent variant, seed) of the experiment, environments first, then agents, then seeds."""
+    """Every (environment, agent variant, seed) of the experiment, environments first, then agents, then seeds.
+
+    Kinds that take box observations run on a binned environment's box itself (`runner.tags.seen_env_spec`)."""
     ev = experiment.evaluation
     trials = []
     for env in experiment.environments:
         for agent in experiment.agents:
+            env_spec = seen_env_spec(agent_class(agent.kind).tags, env.spec)
             for seed in experiment.seeds:
                 spec = TrialSpec.build(
-                    env.spec,
+                    env_spec,
                     agent.kind,
                     agent.params,
                     seed,

@@ -8,10 +8,11 @@ environment (its spaces, whether its steps are a known table, whether compiled d
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import gymnasium as gym
 
-__all__ = ["SPACE_KINDS", "AgentTags", "EnvTags", "pairing_problem", "space_kind"]
+__all__ = ["SPACE_KINDS", "AgentTags", "EnvTags", "pairing_problem", "seen_env_spec", "space_kind"]
 
 SPACE_KINDS = ("discrete", "box")
 _NEEDS = ("table", "rules")
@@ -84,6 +85,15 @@ class EnvTags:
             else f"discrete actions ({self.action_size})"
         )
         return f"{obs}, {act}"
+
+
+def seen_env_spec(agent: AgentTags, env_spec: dict[str, Any]) -> dict[str, Any]:
+    """The environment spec an agent kind runs on. `bins` are how kinds that take discrete observations see a box;
+    kinds that take box observations see the box itself, so for them the spec is the one without `bins` (the same
+    trial as on the environment declared without them)."""
+    if env_spec.get("bins") and "box" in agent.observations:
+        return {key: value for key, value in env_spec.items() if key != "bins"}
+    return env_spec
 
 
 def space_kind(space: gym.Space) -> tuple[str, int] | None:

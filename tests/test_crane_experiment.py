@@ -22,7 +22,18 @@ def test_crane_config_declares_bins_and_a_threshold():
     assert [len(e) + 1 for e in env.spec["bins"]["edges"]] == [12, 8, 3, 3]
     assert env.tags.observation == "discrete" and env.tags.observation_size == 864
     assert env.threshold == -150
-    assert {a.kind for a in experiment.agents} == {"q_learning", "dyna_q", "certainty_equivalence"}
+    assert {a.kind for a in experiment.agents} == {
+        "q_learning",
+        "dyna_q",
+        "certainty_equivalence",
+        "linear_sarsa",
+        "linear_dyna",
+        "linear_gaussian",
+    }
+    budgets = {a.kind: [] for a in experiment.agents}
+    for a in experiment.agents:
+        budgets[a.kind].append(a.params.get("planning_steps"))
+    assert budgets["linear_dyna"] == budgets["linear_gaussian"] == [0, 5, 20]
 
 
 def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
@@ -32,7 +43,7 @@ def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
     path.write_text(text)
     assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1"]) == 0
     frame = runner.load_results(tmp_path / "results" / "crane-loading-bay")
-    assert len(frame) == 4 * 3  # four agent variants x evaluation points at 0, 1000 and 2000 real steps
+    assert len(frame) == 11 * 3  # eleven agent variants x evaluation points at 0, 1000 and 2000 real steps
     assert np.isfinite(frame["eval_return"]).all()
     assert (tmp_path / "results" / "crane-loading-bay" / "report" / "report.html").exists()
 

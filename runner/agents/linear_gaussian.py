@@ -60,14 +60,21 @@ def standard_normal(rng):
 
 
 @njit(cache=True)
+def predictive_mean(mean, action, idx, val, n, out):
+    """Predictive mean into `out` (one entry per output): mu^T phi."""
+    out[:] = 0.0
+    for i in range(n):
+        out += val[i] * mean[action, idx[i]]
+
+
+@njit(cache=True)
 def predictive(cov, mean, action, idx, val, n, noise_var, gain, out):
     """Predictive mean into `out` (one entry per output); returns the predictive variance noise_var +
     phi^T Sigma phi. `gain` receives Sigma phi."""
+    predictive_mean(mean, action, idx, val, n, out)
     gain[:] = 0.0
-    out[:] = 0.0
     for i in range(n):
         gain += val[i] * cov[action, idx[i]]
-        out += val[i] * mean[action, idx[i]]
     spread = 0.0
     for i in range(n):
         spread += val[i] * gain[idx[i]]
@@ -94,10 +101,14 @@ def _simulate(arrays, hyper, obs, action, rng):
     returns whether the simulated episode ended."""
     cov, mean, pred, nxt = arrays[_COV], arrays[_MEAN], arrays[_PRED], arrays[_SIM_NEXT]
     n = features_into(arrays, obs, 0)
-    variance = predictive(cov, mean, action, arrays[IDX][0], arrays[VAL][0], n, hyper[_NOISE], arrays[_GAIN], pred)
-    dims = obs.shape[0]
     sampled = hyper[_SAMPLING] != 0.0
-    spread = math.sqrt(variance)
+    spread = 0.0
+    if sampled:
+        variance = predictive(cov, mean, action, arrays[IDX][0], arrays[VAL][0], n, hyper[_NOISE], arrays[_GAIN], pred)
+        spread = math.sqrt(variance)
+    else:
+        predictive_mean(mean, action, arrays[IDX][0], arrays[VAL][0], n, pred)
+    dims = obs.shape[0]
     for d in range(dims):
         nxt[d] = obs[d] + pred[d] + (spread * standard_normal(rng) if sampled else 0.0)
     reward = pred[dims] + (spread * standard_normal(rng) if sampled else 0.0)
@@ -239,17 +250,7 @@ class LinearGaussian(LinearAgent):
         out = np.zeros(obs.size + 2)
         arrays = self.arrays_
         n = features_into(arrays, obs, 0)
-        predictive(
-            arrays[_COV],
-            arrays[_MEAN],
-            int(action),
-            arrays[IDX][0],
-            arrays[VAL][0],
-            n,
-            1.0,
-            np.zeros(len(arrays[_GAIN])),
-            out,
-        )
+        predictive_mean(arrays[_MEAN], int(action), arrays[IDX][0], arrays[VAL][0], n, out)
         return obs + out[: obs.size], float(out[obs.size]), float(np.clip(out[obs.size + 1], 0.0, 1.0))
 
     def counter_problems(self, real_steps):
