@@ -4,7 +4,8 @@ Evaluation runs greedy episodes on a separate environment instance with its own 
 count as samples. A metric row is written at step 0 and then every `every` real steps. A trial runs on one of
 two paths: whole in compiled code when the agent kind has compiled kernels and the environment is a known
 transition table (`runner.compiled_trial`) or has compiled dynamics seen through bins
-(`runner.compiled_dynamics_trial`), else step by step through gymnasium. Both call the same agent kernels.
+(`runner.compiled_dynamics_trial`) or, for kinds that take boxes, seen as a box (`runner.compiled_box_trial`);
+else step by step through gymnasium. Both call the same agent kernels.
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ import gymnasium as gym
 import numpy as np
 
 from runner.agents import COUNTER_NAMES, OwnAgent, TabularAgent, agent_class, make_agent, observation_bounds
+from runner.compiled_box_trial import BoxDynamics, box_dynamics, run_box_kind_trial
 from runner.compiled_dynamics_trial import CompiledDynamics, compiled_dynamics, run_dynamics_kind_trial
 from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, environment_tags
@@ -34,8 +36,8 @@ from runner.tags import EnvTags
 __all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
-"""`auto` takes the compiled path whenever the environment is table-backed and the agent has compiled kernels
-(their tags say so)."""
+"""`auto` takes the compiled path whenever the agent has compiled kernels (its tags say so) and the environment
+is table-backed or has compiled dynamics (through bins, or as a box for kinds that take boxes)."""
 
 
 @dataclass
@@ -93,6 +95,8 @@ class _EnvFacts:
     dynamics: CompiledDynamics | None
     not_dynamics_reason: str
     bounds: tuple[np.ndarray, np.ndarray] | None = None
+    box: BoxDynamics | None = None
+    not_box_reason: str = ""
 
     @property
     def table(self) -> TransitionTable | None:
@@ -113,11 +117,13 @@ def _env_facts(env_json: str) -> _EnvFacts:
         steps = change_steps(env)
         dynamics = compiled_dynamics(spec, env)
         bounds = observation_bounds(env.observation_space)
+        box = box_dynamics(spec, env)
     finally:
         env.close()
+    box_facts = (None, box) if isinstance(box, str) else (box, "")
     if isinstance(dynamics, str):
-        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics, bounds)
-    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "", bounds)
+        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics, bounds, *box_facts)
+    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "", bounds, *box_facts)
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
@@ -127,12 +133,15 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     kind = spec["agent"]["kind"]
-    compiled_agent = agent_class(kind).tags.compiled
-    compiled_env = facts.table is not None or facts.dynamics is not None
+    tags = agent_class(kind).tags
+    compiled_agent = tags.compiled
+    box = facts.box is not None and "box" in tags.observations
+    compiled_env = facts.table is not None or facts.dynamics is not None or box
     if path == "compiled" and not compiled_env:
         raise EnvironmentSourceError(
-            "the compiled path needs a table-backed environment or compiled dynamics seen through bins: "
-            f"{facts.not_table_reason}; {facts.not_dynamics_reason}"
+            "the compiled path needs a table-backed environment or compiled dynamics (seen through bins, or as a "
+            f"box by kinds that take boxes): {facts.not_table_reason}; {facts.not_dynamics_reason}; "
+            f"{facts.not_box_reason}"
         )
     if path == "compiled" and not compiled_agent:
         raise EnvironmentSourceError(f"the compiled path needs an agent kind with compiled kernels; {kind} has none")
@@ -194,8 +203,10 @@ def _run_compiled(
         tables = tuple(t.as_tuple() for t in facts.tables)
         changes = np.array([*facts.change_steps, budget + 1], dtype=np.int64)
         n_episodes = run_kind_trial(kind, *agent_args, tables, changes, *loop_args)
-    else:
+    elif facts.dynamics is not None:
         n_episodes = run_dynamics_kind_trial(kind, facts.dynamics, *agent_args, *loop_args)
+    else:
+        n_episodes = run_box_kind_trial(kind, facts.box, *agent_args, *loop_args)
     if n_episodes < 0:
         raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
     return TrialResult(

@@ -60,14 +60,15 @@ def test_sarsa_takes_the_action_it_backed_up():
 
 @pytest.mark.parametrize("env_id", ["CartPole-v1", "MountainCar-v0", "Acrobot-v1", "stepmeter/OverheadCrane-v0"])
 @pytest.mark.parametrize("kind", ["linear_q_learning", "linear_sarsa"])
-def test_runs_step_by_step_on_classic_control(kind, env_id):
+def test_runs_on_both_paths_on_classic_control(kind, env_id):
     env = {"source": "gym", "id": env_id, "options": {}, "step_limit": 100}
     params = {"features": {"kind": "tiles", "tilings": 4, "tiles": 4, "hash_size": 512}}
     spec = TrialSpec.build(env, kind, params, 0, 300, every=150, episodes=1, step_cap=50, training_window=3).as_dict()
-    result = run_trial(spec)
-    assert result.trial_path == "gymnasium"
-    assert result.rows["real_updates"].tolist() == [0, 150, 300]
-    assert np.all(np.isfinite(result.rows["eval_return"]))
+    for path in ("gymnasium", "auto"):
+        result = run_trial(spec, path)
+        assert result.trial_path == ("gymnasium" if path == "gymnasium" else "compiled")
+        assert result.rows["real_updates"].tolist() == [0, 150, 300]
+        assert np.all(np.isfinite(result.rows["eval_return"]))
 
 
 @njit(cache=True)

@@ -1,0 +1,208 @@
+"""A whole trial in compiled code for compiled agent kinds that take box observations (the linear kinds) on
+compiled environment dynamics: agent kernels x environment kernels, resolved by name when the loop compiles.
+
+The loop mirrors `runner.compiled_dynamics_trial` (which serves the tabular kinds through bins) but hands the
+agent the observation itself (float32-rounded values as float64, as the step-by-step path does). Truncation at the
+step limit is the loop's, as gymnasium's `TimeLimit` does; an agent bootstraps on a truncated step. Start states
+come from a compiled stream, so this path and the step-by-step one are the same experiment in distribution.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import gymnasium as gym
+import numpy as np
+from numba import literally, njit, typeof, types
+
+from runner.clock import cpu_clock, wall_clock
+from runner.compiled_dynamics_trial import _time_limit
+from runner.compiled_trial import agent_act, agent_greedy, agent_observe
+from runner.envs.dynamics import DYNAMICS
+from runner.envs.dynamics.compiled import env_observation, env_reset, env_step
+from runner.metrics import (
+    CPU_SECONDS,
+    ENV_PHASE,
+    EPISODES,
+    EVAL_RETURN,
+    MODEL_REWARD_ERROR,
+    MODEL_TV_ERROR,
+    MODEL_UPDATES,
+    PLANNING_UPDATES,
+    REAL_STEPS,
+    REAL_UPDATES,
+    REWARD_EARNED,
+    TRAIN_RETURN,
+    WALL_SECONDS,
+)
+
+__all__ = ["BoxDynamics", "box_dynamics", "run_box_kind_trial", "run_box_trial"]
+
+
+@dataclass(frozen=True)
+class BoxDynamics:
+    """What the compiled loop needs of an environment with compiled dynamics and box observations."""
+
+    env_id: str
+    params: np.ndarray
+    step_limit: int
+    state_size: int
+    obs_size: int
+
+
+def box_dynamics(spec: dict[str, Any], env: gym.Env) -> BoxDynamics | str:
+    """The compiled form of a built environment seen as a box, or why it has none (a few words)."""
+    dynamics = DYNAMICS.get(spec.get("id", "")) if spec.get("source") == "gym" else None
+    if dynamics is None:
+        return "no compiled dynamics for this environment"
+    if dynamics.action_kind != "discrete":
+        return f"{dynamics.env_id} has box actions"
+    if spec.get("bins"):
+        return f"{dynamics.env_id} is seen through bins here"
+    try:
+        params = dynamics.default_params(**(spec.get("options") or {}))
+    except TypeError as err:
+        return f"its options differ from what the compiled dynamics take ({err})"
+    limit = _time_limit(env)
+    if limit >= np.iinfo(np.int64).max:
+        return "it has no step limit"
+    return BoxDynamics(dynamics.env_id, params, limit, dynamics.state_size, dynamics.obs_size)
+
+
+@njit(cache=True)
+def _evaluate(kind, env_id, arrays, hyper, params, cap, episodes, state, obs, env_stream, policy_stream):
+    total = 0.0
+    for _ in range(episodes):
+        env_reset(literally(env_id), state, params, env_stream)
+        env_observation(literally(env_id), state, params, obs)
+        for _ in range(cap):
+            a = agent_greedy(literally(kind), arrays, hyper, obs, policy_stream)
+            reward, done = env_step(literally(env_id), state, a, params, state)
+            total += reward
+            if done:
+                break
+            env_observation(literally(env_id), state, params, obs)
+    return total / episodes
+
+
+@njit(cache=True)
+def run_box_trial(
+    kind,
+    env_id,
+    arrays,
+    hyper,
+    counters,
+    agent_stream,
+    params,
+    sizes,
+    env_stream,
+    eval_env_stream,
+    eval_stream,
+    budget,
+    every,
+    eval_episodes,
+    step_cap,
+    window,
+    time_limit,
+    rows,
+    episode_returns,
+    episode_lengths,
+):
+    """Run the trial of agent kind `kind` on the compiled environment `env_id`; fill `rows` (n_points x the
+    columns of `runner.metrics.METRIC_COLUMNS`) and the episode arrays. `sizes` is (state size, observation size,
+    step limit). Returns the number of finished training episodes, or -1 past `time_limit` seconds (0: none)."""
+    state_size, obs_size, step_limit = sizes
+    state = np.zeros(state_size)
+    obs = np.zeros(obs_size)
+    next_obs = np.zeros(obs_size)
+    eval_state = np.zeros(state_size)
+    eval_obs = np.zeros(obs_size)
+    cap = step_cap if step_cap < step_limit else step_limit
+    started = wall_clock()
+    cpu_started = cpu_clock()
+    measured = 0.0
+    earned = 0.0
+    n_episodes = 0
+    point = 0
+    env_reset(literally(env_id), state, params, env_stream)
+    env_observation(literally(env_id), state, params, obs)
+    episode_return = 0.0
+    episode_length = 0
+    for step in range(budget + 1):
+        if time_limit > 0 and step % 4096 == 0 and wall_clock() - started > time_limit:
+            return -1
+        if step > 0:
+            a = agent_act(literally(kind), arrays, hyper, obs, agent_stream)
+            reward, done = env_step(literally(env_id), state, a, params, state)
+            env_observation(literally(env_id), state, params, next_obs)
+            agent_observe(literally(kind), arrays, hyper, counters, obs, a, reward, next_obs, done, agent_stream)
+            episode_return += reward
+            earned += reward
+            episode_length += 1
+            obs[:] = next_obs
+            if done or episode_length >= step_limit:
+                episode_returns[n_episodes] = episode_return
+                episode_lengths[n_episodes] = episode_length
+                n_episodes += 1
+                episode_return = 0.0
+                episode_length = 0
+                env_reset(literally(env_id), state, params, env_stream)
+                env_observation(literally(env_id), state, params, obs)
+        if step % every == 0:
+            measuring = cpu_clock()
+            rows[point, REAL_STEPS] = step
+            rows[point, REWARD_EARNED] = earned
+            rows[point, EPISODES] = n_episodes
+            rows[point, EVAL_RETURN] = _evaluate(
+                kind,
+                env_id,
+                arrays,
+                hyper,
+                params,
+                cap,
+                eval_episodes,
+                eval_state,
+                eval_obs,
+                eval_env_stream,
+                eval_stream,
+            )
+            if n_episodes == 0:
+                rows[point, TRAIN_RETURN] = np.nan
+            else:
+                first = n_episodes - window if n_episodes > window else 0
+                rows[point, TRAIN_RETURN] = episode_returns[first:n_episodes].mean()
+            rows[point, REAL_UPDATES] = counters[0]
+            rows[point, PLANNING_UPDATES] = counters[1]
+            rows[point, MODEL_UPDATES] = counters[2]
+            rows[point, MODEL_TV_ERROR] = np.nan
+            rows[point, MODEL_REWARD_ERROR] = np.nan
+            rows[point, ENV_PHASE] = 0
+            rows[point, WALL_SECONDS] = wall_clock() - started
+            rows[point, CPU_SECONDS] = measuring - cpu_started - measured
+            measured += cpu_clock() - measuring
+            point += 1
+    return n_episodes
+
+
+_ENTRY_POINTS: dict[tuple, Callable[..., int]] = {}
+_run_box_trial_uncached = njit(cache=False)(run_box_trial.py_func)
+"""The same loop for agent kinds from the user's own modules (see `runner.compiled_trial`)."""
+
+
+def run_box_kind_trial(kind: str, dynamics: BoxDynamics, *args: Any) -> int:
+    """Call `run_box_trial` for agent kind `kind` on `dynamics`, compiled once per kind, environment id and
+    argument types (as `runner.compiled_dynamics_trial.run_dynamics_kind_trial`). `args` are the agent's
+    (arrays, hyper, counters, stream) and then the loop's arguments from the environment stream on."""
+    sizes = (dynamics.state_size, dynamics.obs_size, dynamics.step_limit)
+    call = (dynamics.params, sizes, *args[4:])
+    head = args[:4]
+    arg_types = tuple(typeof(arg) for arg in (*head, *call))
+    key = (kind, dynamics.env_id, arg_types)
+    entry = _ENTRY_POINTS.get(key)
+    if entry is None:
+        loop = _run_box_trial_uncached if ":" in kind else run_box_trial
+        entry = loop.compile((types.literal(kind), types.literal(dynamics.env_id), *arg_types))
+        _ENTRY_POINTS[key] = entry
+    return entry(kind, dynamics.env_id, *head, *call)
