@@ -9,20 +9,23 @@ from runner.agents.common import EPSILON, model_free_counter_problems
 from runner.agents.linear_kernels import (
     IDX,
     LINEAR_ARRAYS,
+    STATE,
     VAL,
     W,
     epsilon_greedy_values,
-    features_into,
     linear_arrays,
     linear_greedy,
     observation_values,
+    remember_next,
+    same_observation,
     semi_gradient_update,
+    state_features,
 )
 from runner.features import FEATURES_PARAM, build_feature_map
 from runner.params import Param
 from runner.tags import AgentTags
 
-__all__ = ["LINEAR_SCHEMA", "LinearAgent", "LinearQLearning", "LinearSarsa"]
+__all__ = ["LINEAR_SCHEMA", "LinearAgent", "LinearQLearning", "LinearSarsa", "linear_q_update"]
 
 _ALPHA, _GAMMA, _EPSILON = 0, 1, 2
 _PENDING_OBS, _PENDING = LINEAR_ARRAYS, LINEAR_ARRAYS + 1  # Sarsa: next observation and [flag, action]
@@ -47,21 +50,29 @@ def linear_q_act(arrays, hyper, state, rng):
 
 
 @njit(cache=True)
-def linear_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
-    """One semi-gradient Q-learning update: towards r + gamma max_a w[a] . phi(s') (r alone when terminated)."""
+def linear_q_update(arrays, hyper, counters, state, action, reward, next_state, terminated):
+    """One semi-gradient Q-learning update: towards r + gamma max_a w[a] . phi(s') (r alone when terminated).
+    Leaves phi(s) in row `STATE` and phi(s') in row 1 (when not terminated) for model updates."""
     target = reward
     if not terminated:
         target += hyper[_GAMMA] * np.max(observation_values(arrays, next_state, 1))
-    n = features_into(arrays, state, 0)
-    semi_gradient_update(arrays[W], action, arrays[IDX][0], arrays[VAL][0], n, target, hyper[_ALPHA])
+    n = state_features(arrays, state)
+    semi_gradient_update(arrays[W], action, arrays[IDX][STATE], arrays[VAL][STATE], n, target, hyper[_ALPHA])
     counters[0] += 1
+
+
+@njit(cache=True)
+def linear_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
+    """Semi-gradient Q-learning from one real transition."""
+    linear_q_update(arrays, hyper, counters, state, action, reward, next_state, terminated)
+    remember_next(arrays, next_state, terminated)
 
 
 @njit(cache=True)
 def linear_sarsa_act(arrays, hyper, state, rng):
     """The action chosen for this observation by the last update, else a fresh epsilon-greedy one."""
     pending = arrays[_PENDING]
-    if pending[0] == 1 and np.array_equal(arrays[_PENDING_OBS], state):
+    if pending[0] == 1 and same_observation(arrays[_PENDING_OBS], state):
         pending[0] = 0
         return pending[1]
     return linear_q_act(arrays, hyper, state, rng)
@@ -80,9 +91,10 @@ def linear_sarsa_observe(arrays, hyper, counters, state, action, reward, next_st
         pending[0] = 1
         pending[1] = following
         arrays[_PENDING_OBS][:] = next_state
-    n = features_into(arrays, state, 0)
-    semi_gradient_update(arrays[W], action, arrays[IDX][0], arrays[VAL][0], n, target, hyper[_ALPHA])
+    n = state_features(arrays, state)
+    semi_gradient_update(arrays[W], action, arrays[IDX][STATE], arrays[VAL][STATE], n, target, hyper[_ALPHA])
     counters[0] += 1
+    remember_next(arrays, next_state, terminated)
 
 
 class LinearAgent(TabularAgent):

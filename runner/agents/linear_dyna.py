@@ -15,8 +15,18 @@ from dataclasses import replace
 import numpy as np
 from numba import njit
 
-from runner.agents.linear import LINEAR_SCHEMA, LinearAgent, linear_q_act, linear_q_observe
-from runner.agents.linear_kernels import IDX, INTS, LINEAR_ARRAYS, VAL, W, features_into, semi_gradient_update
+from runner.agents.linear import LINEAR_SCHEMA, LinearAgent, linear_q_act, linear_q_update
+from runner.agents.linear_kernels import (
+    IDX,
+    INTS,
+    LINEAR_ARRAYS,
+    STATE,
+    VAL,
+    W,
+    features_into,
+    remember_next,
+    semi_gradient_update,
+)
 from runner.errors import EnvironmentSourceError
 from runner.features import DEFAULT_FEATURES, FEATURES_PARAM
 from runner.params import PLANNING_BUDGET, Param
@@ -86,14 +96,14 @@ def linear_dyna_plan(arrays, hyper, counters, n_updates, rng):
 @njit(cache=True)
 def linear_dyna_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
     """The direct Q-learning update, the model update, the visited pair remembered, then the planning budget."""
-    linear_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng)
+    linear_q_update(arrays, hyper, counters, state, action, reward, next_state, terminated)
     n = arrays[INTS][_N_ACTIVE]
     linear_model_update(
         arrays[_F],
         arrays[_B],
         action,
-        arrays[IDX][0],
-        arrays[VAL][0],
+        arrays[IDX][STATE],
+        arrays[VAL][STATE],
         n,
         arrays[IDX][1],
         arrays[VAL][1],
@@ -105,6 +115,7 @@ def linear_dyna_observe(arrays, hyper, counters, state, action, reward, next_sta
         arrays[_TARGET],
     )
     counters[2] += 1
+    remember_next(arrays, next_state, terminated)
     meta = arrays[_MEMORY_META]
     arrays[_MEMORY][meta[1]] = state
     arrays[_MEMORY_ACTION][meta[1]] = action

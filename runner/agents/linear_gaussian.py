@@ -21,16 +21,18 @@ from dataclasses import replace
 import numpy as np
 from numba import njit
 
-from runner.agents.linear import LINEAR_SCHEMA, LinearAgent, linear_q_act, linear_q_observe
+from runner.agents.linear import LINEAR_SCHEMA, LinearAgent, linear_q_act, linear_q_update
 from runner.agents.linear_kernels import (
     IDX,
     INTS,
     LINEAR_ARRAYS,
+    STATE,
     VAL,
     W,
     epsilon_greedy_values,
     features_into,
     observation_values,
+    remember_next,
     semi_gradient_update,
 )
 from runner.errors import EnvironmentSourceError
@@ -146,7 +148,7 @@ def linear_gaussian_plan(arrays, hyper, counters, n_updates, rng):
 def linear_gaussian_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
     """The direct Q-learning update, the posterior conditioned on the real outcome, the visited pair kept, then
     the planning budget."""
-    linear_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng)
+    linear_q_update(arrays, hyper, counters, state, action, reward, next_state, terminated)
     y = arrays[_Y]
     dims = state.shape[0]
     for d in range(dims):
@@ -158,8 +160,8 @@ def linear_gaussian_observe(arrays, hyper, counters, state, action, reward, next
         arrays[_COV],
         arrays[_MEAN],
         action,
-        arrays[IDX][0],
-        arrays[VAL][0],
+        arrays[IDX][STATE],
+        arrays[VAL][STATE],
         n,
         y,
         hyper[_NOISE],
@@ -167,6 +169,7 @@ def linear_gaussian_observe(arrays, hyper, counters, state, action, reward, next
         arrays[_PRED],
     )
     counters[2] += 1
+    remember_next(arrays, next_state, terminated)
     meta = arrays[_MEMORY_META]
     arrays[_MEMORY][meta[1]] = state
     arrays[_MEMORY_ACTION][meta[1]] = action

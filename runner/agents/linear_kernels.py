@@ -15,39 +15,80 @@ from runner.streams import below, uniform
 
 __all__ = [
     "LINEAR_ARRAYS",
+    "STATE",
     "action_values",
     "epsilon_greedy_values",
     "linear_arrays",
     "linear_greedy",
     "observation_values",
+    "remember_next",
+    "same_observation",
     "semi_gradient_update",
+    "state_features",
 ]
 
-W, INTS, FLOATS, LOW, HIGH, TABLE, IDX, VAL, Q = range(9)
-LINEAR_ARRAYS = 9
+W, INTS, FLOATS, LOW, HIGH, TABLE, IDX, VAL, Q, CACHED_OBS, CACHED = range(11)
+LINEAR_ARRAYS = 11
+STATE = 2
+"""Scratch row 2 holds the features of the observation being learned from; when it equals the last next
+observation (`CACHED_OBS`, valid while `CACHED[0]` is 1) they are reused instead of computed again."""
 
 
 def linear_arrays(n_actions: int, feature_map: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
-    """The shared leading arrays: zero weights, the feature map, and scratch space."""
+    """The shared leading arrays: zero weights, the feature map, scratch space and the features' cache."""
     ints = feature_map[0]
-    n_features, n_active = int(ints[5]), int(ints[6])
+    dims, n_features, n_active = int(ints[1]), int(ints[5]), int(ints[6])
     return (
         np.zeros((n_actions, n_features), dtype=np.float64),
         *feature_map,
-        np.zeros((2, n_active), dtype=np.int64),
-        np.zeros((2, n_active), dtype=np.float64),
+        np.zeros((3, n_active), dtype=np.int64),
+        np.zeros((3, n_active), dtype=np.float64),
         np.zeros(n_actions, dtype=np.float64),
+        np.zeros(dims, dtype=np.float64),
+        np.zeros(1, dtype=np.int64),
     )
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def features_into(arrays, obs, slot):
-    """Active features of an observation into scratch row `slot` (0 or 1); returns how many."""
+    """Active features of an observation into scratch row `slot` (0 or 1; 2 is `STATE`); returns how many."""
     fmap = (arrays[INTS], arrays[FLOATS], arrays[LOW], arrays[HIGH], arrays[TABLE])
     return feature_values(obs, fmap, arrays[IDX][slot], arrays[VAL][slot])
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
+def state_features(arrays, state):
+    """The features of the observation learned from, into row `STATE`: reused when it is the last next
+    observation (the usual case within an episode), else computed."""
+    if arrays[CACHED][0] == 1 and same_observation(arrays[CACHED_OBS], state):
+        return arrays[INTS][6]
+    return features_into(arrays, state, STATE)
+
+
+@njit(cache=True, inline="always")
+def same_observation(a, b):
+    """Whether two observations are equal entry by entry (no temporary array, unlike numpy.array_equal)."""
+    same = True
+    for i in range(a.shape[0]):
+        if a[i] != b[i]:
+            same = False
+            break
+    return same
+
+
+@njit(cache=True, inline="always")
+def remember_next(arrays, next_state, terminated):
+    """Keep the next observation's features (row 1) in row `STATE` for the next update (not after an end)."""
+    if terminated:
+        arrays[CACHED][0] = 0
+        return
+    arrays[IDX][STATE][:] = arrays[IDX][1]
+    arrays[VAL][STATE][:] = arrays[VAL][1]
+    arrays[CACHED_OBS][:] = next_state
+    arrays[CACHED][0] = 1
+
+
+@njit(cache=True, inline="always")
 def action_values(w, idx, val, n, out):
     """out[a] = w[a] . phi for the n active features (idx, val)."""
     for a in range(w.shape[0]):
@@ -57,7 +98,7 @@ def action_values(w, idx, val, n, out):
         out[a] = total
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def observation_values(arrays, obs, slot):
     """Action values of an observation (into the scratch vector, returned); its features stay in `slot`."""
     n = features_into(arrays, obs, slot)

@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 from runner.errors import EnvironmentSourceError
-from runner.features.kernels import KIND_CODES
+from runner.features.kernels import KIND_CODES, tile_shifts
 from runner.params import Param, check_value
 
 __all__ = [
@@ -159,6 +159,7 @@ def build_feature_map(spec: dict[str, Any], low: np.ndarray, high: np.ndarray) -
         full = tilings * (tiles + 1) ** dims
         hash_size = spec["hash_size"] if full > spec["hash_size"] > 0 else 0
         n_features, n_active = (hash_size or full), tilings
+        table = tile_shifts(tilings, dims)
     elif kind == "raw":
         n_features = n_active = dims + 1
     else:
