@@ -70,6 +70,11 @@ METHODS: tuple[Method, ...] = (
         "Colas, Sigaud & Oudeyer (2018), How many random seeds? Statistical power analysis in deep reinforcement "
         "learning experiments, arXiv:1806.08295",
     ),
+    Method(
+        "Modified z-score",
+        "seeds far from their agent's other seeds (0.6745 x distance from the median / MAD beyond 3.5)",
+        "Iglewicz & Hoaglin (1993), How to Detect and Handle Outliers, ASQC Quality Press",
+    ),
 )
 
 
