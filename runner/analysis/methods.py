@@ -48,7 +48,7 @@ METHODS: tuple[Method, ...] = (
     ),
     Method(
         "Welch's unequal-variance t-test",
-        "is the difference in mean AUC (or reward per real step) between two variants real?",
+        "whether the difference in mean AUC (or reward per real step) between two variants is real",
         "Welch (1947), The generalization of 'Student's' problem when several different population variances are "
         "involved, Biometrika 34, 28-35",
     ),
