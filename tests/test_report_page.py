@@ -482,3 +482,30 @@ def test_report_of_a_stored_experiment_carries_its_records(tmp_path):
     assert len(output.headline) == 2 * len(ratios)  # no costs block: ratios, then break-even prices
     # On the maze: dyna x 3 and ce against q, each with a ratio and a break-even price.
     assert sum(sentence.startswith("On maze,") for sentence in output.headline) == 8
+
+
+def test_frontier_reads_a_median_at_the_first_point_as_a_bound():
+    from runner.analysis.page import frontier_view
+
+    rows = pd.DataFrame(
+        {
+            "env": "aisle",
+            "agent": ["coarse", "measured"],
+            "kind": "dyna_q",
+            "updates_per_real": [6.0, 1.0],
+            "planning_per_real": [5.0, 0.0],
+            "cpu_us_per_real": [40.0, np.nan],
+            "cpu_us_low": [35.0, np.nan],
+            "cpu_us_high": [45.0, np.nan],
+            "reached_share": [1.0, 1.0],
+            "median_steps": [1000.0, 3000.0],
+            "median_low": [np.nan, 2000.0],
+            "median_high": [np.nan, 4000.0],
+            "first_point": [1000.0, 1000.0],
+            "on_frontier": [True, False],
+        }
+    )
+    view = frontier_view(rows)
+    cells = dict(zip(view.frame()["agent"], view.frame()["median real steps [low, high]"], strict=True))
+    assert cells == {"coarse": "at or before 1,000", "measured": "3,000 [2,000, 4,000]"}
+    assert view.frame()["CPU µs per real step, median [low, high]"].tolist()[1] == "n/a"
