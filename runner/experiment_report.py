@@ -65,7 +65,7 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
     with open_store(folder) as store:
         facts = store.facts()
         params = variant_params(store)
-    frame = load_results(folder)
+    frame = load_results(folder, params=False)  # the report reads parameters per variant (variant_params)
     records = experiment_records(folder)
     missing = records.missing
     experiment_facts = ExperimentFacts(
