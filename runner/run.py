@@ -4,11 +4,12 @@ from __future__ import annotations
 
 import os
 import sys
-import threading
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TextIO
+
+from numba.core import event
 
 from runner.config import Experiment, load_experiment
 from runner.errors import ConfigError
@@ -118,22 +119,27 @@ def _where_note(results_root: str | Path) -> str:
     return f" (under the current directory {Path.cwd()}; --results chooses another folder)"
 
 
+class _SayCompiling(event.Listener):
+    """Says once that numba is compiling, when its first compilation starts (loading its cache compiles nothing)."""
+
+    def __init__(self, out: TextIO) -> None:
+        self.out = out
+        self.said = False
+
+    def on_start(self, _event: event.Event) -> None:
+        if not self.said:
+            self.said = True
+            print("compiling (first run only; later runs load the compiled code from numba's cache) ...", file=self.out)
+            self.out.flush()
+
+    def on_end(self, _event: event.Event) -> None:
+        """Nothing to say when a compilation ends."""
+
+
 def _warm_up_saying_when_compiling(runs: list[tuple[dict, str]], out: TextIO) -> None:
-    """Warm the compiled kernels; when that takes over a second (numba compiling, not loading its cache),
-    say so once, so the wait before the first trial is explained."""
-    done = threading.Event()
-
-    def note() -> None:
-        if not done.wait(1.0):
-            print("compiling (first run only; later runs load the compiled code from numba's cache) ...", file=out)
-
-    waiter = threading.Thread(target=note, daemon=True)
-    waiter.start()
-    try:
+    """Warm the compiled kernels, saying so while numba compiles, so the wait before the first trial is explained."""
+    with event.install_listener("numba:compile", _SayCompiling(out)):
         warm_up(runs)
-    finally:
-        done.set()
-        waiter.join()
 
 
 def _confirm(experiment: Experiment, options: RunOptions, ask: Callable[[str], bool] | None) -> None:
