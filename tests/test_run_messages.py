@@ -40,8 +40,9 @@ def test_the_compiling_note_shows_on_a_cold_cache_only(tmp_path):
     env = {**os.environ, "NUMBA_CACHE_DIR": str(tmp_path / "numba-cache")}
     outputs = []
     for results in ("first", "second"):  # two results folders: both runs have a trial to run
+        command = ["run", "mezzanine.yaml", "--jobs", "1", "--no-report", "--results", results]
         done = subprocess.run(
-            [sys.executable, "-m", "runner", "run", "mezzanine.yaml", "--jobs", "1", "--no-report", "--results", results],
+            [sys.executable, "-m", "runner", *command],
             cwd=tmp_path,
             env=env,
             capture_output=True,
