@@ -342,9 +342,10 @@ def _check(args: argparse.Namespace) -> int:
     experiment = load_experiment(args.experiment)
     size = experiment.size
     print(
-        f"{experiment.file}: experiment {experiment.name!r} is valid: {len(experiment.environments)} environments x "
-        f"{len(experiment.agents)} agent variants x {len(experiment.seeds)} seeds = {size.trials} trials of "
-        f"{experiment.real_steps} real steps"
+        f"{experiment.file}: experiment {experiment.name!r} is valid: "
+        f"{count(len(experiment.environments), 'environment')} x {count(len(experiment.agents), 'agent variant')} x "
+        f"{count(len(experiment.seeds), 'seed')} = {count(size.trials, 'trial')} of "
+        f"{count(experiment.real_steps, 'real step')}"
     )
     print(f"expected: {size.describe()}")
     if size.needs_confirmation():
