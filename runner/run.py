@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import os
 import sys
+import threading
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -120,20 +121,37 @@ def _where_note(results_root: str | Path) -> str:
 
 
 class _SayCompiling(event.Listener):
-    """Says once that numba is compiling, when its first compilation starts (loading its cache compiles nothing)."""
+    """Says once that numba is compiling, when a compilation has gone on for `after` seconds.
 
-    def __init__(self, out: TextIO) -> None:
+    Loading numba's cache compiles nothing; a few tiny functions that cannot be cached (they call back into
+    Python for the clocks) compile in milliseconds on every run, so only a compilation that lasts is worth a word.
+    """
+
+    def __init__(self, out: TextIO, after: float = 1.0) -> None:
         self.out = out
+        self.after = after
+        self.depth = 0
+        self.timer: threading.Timer | None = None
         self.said = False
 
     def on_start(self, _event: event.Event) -> None:
+        self.depth += 1
+        if self.depth == 1 and not self.said:
+            self.timer = threading.Timer(self.after, self._say)
+            self.timer.daemon = True
+            self.timer.start()
+
+    def on_end(self, _event: event.Event) -> None:
+        self.depth -= 1
+        if self.depth == 0 and self.timer is not None:
+            self.timer.cancel()
+            self.timer = None
+
+    def _say(self) -> None:
         if not self.said:
             self.said = True
             print("compiling (first run only; later runs load the compiled code from numba's cache) ...", file=self.out)
             self.out.flush()
-
-    def on_end(self, _event: event.Event) -> None:
-        """Nothing to say when a compilation ends."""
 
 
 def _warm_up_saying_when_compiling(runs: list[tuple[dict, str]], out: TextIO) -> None:
