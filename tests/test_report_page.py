@@ -216,7 +216,7 @@ def test_efficiency_headline_and_terminal_text(report):
     break_even = pd.read_csv(out_dir / "break_even.csv")
     assert len(rest) == len(ratios) + int((break_even["rival"] == "Q-learning").sum())
     assert output.terminal_text.startswith(output.headline[0])
-    assert "page experiment (budget 2000 real steps" in output.terminal_text
+    assert "page experiment (budget 2,000 real steps" in output.terminal_text
     markdown = (out_dir / "summary.md").read_text(encoding="utf-8")
     assert "## Headline" in markdown
     assert output.headline[0] in markdown

@@ -1015,7 +1015,7 @@ def write_report(
             warnings=warnings,
         )
     )
-    header = f"{facts.name} (budget {facts.budget} real steps, baseline: {facts.baseline or 'none declared'})"
+    header = f"{facts.name} (budget {facts.budget:,} real steps, baseline: {facts.baseline or 'none declared'})"
     lead = "\n".join([*headline, *(f"warning: {w}" for w in warnings)])
     lead = f"{lead}\n\n" if lead else ""
     terminal_text = f"{lead}{header}\n\n{to_terminal(data.summary)}"
