@@ -16,6 +16,7 @@ from runner.errors import (
     UnknownKindError,
     UntrustedCodeError,
 )
+from runner.store_faults import faults_as_store_errors
 from runner.trust import TRUST_FLAG
 from runner.wording import count
 
@@ -77,7 +78,15 @@ def _parser() -> argparse.ArgumentParser:
         metavar="ADDRESS",
         default=None,
         help="run trials on the dask.distributed scheduler at ADDRESS (e.g. tcp://10.0.0.5:8786); "
-        "needs pip install '.[cluster]'",
+        "needs pip install '.[cluster]'; use only a cluster you trust (it exchanges pickled tasks)",
+    )
+    run.add_argument(
+        "--cluster-timeout",
+        type=float,
+        default=10.0,
+        metavar="SECONDS",
+        help="give up on the cluster when its scheduler does not answer, or no worker joins, within this many "
+        "seconds (default 10)",
     )
 
     rerun = sub.add_parser("rerun", help="re-run stored trials and check that their rows come out bit for bit")
@@ -135,7 +144,9 @@ def _parser() -> argparse.ArgumentParser:
     migrate = sub.add_parser("migrate", help="carry a results folder of the previous release over to this one")
     migrate.add_argument("folder", help="the results folder, e.g. results/warehouse-spills")
 
-    listing = sub.add_parser("list", help="list agent kinds with their parameters, and environment sources")
+    listing = sub.add_parser(
+        "list", help="list agent kinds with their parameters and tags, and environment sources with their keys"
+    )
     listing.add_argument("what", nargs="?", choices=("agents", "environments"), default=None)
     return parser
 
@@ -149,17 +160,21 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "check":
             return _check(args)
         if args.command == "report":
-            return _report(Path(args.folder), args.out)
+            with faults_as_store_errors(args.folder):
+                return _report(Path(args.folder), args.out)
         if args.command == "rerun":
-            return _rerun(args)
+            with faults_as_store_errors(args.folder):
+                return _rerun(args)
         if args.command == "seeds":
-            return _seeds(args)
+            with faults_as_store_errors(args.folder):
+                return _seeds(args)
         if args.command == "show":
             return _show(args)
         if args.command == "compare":
             return _compare(args)
         if args.command == "migrate":
-            return _migrate(Path(args.folder))
+            with faults_as_store_errors(args.folder):
+                return _migrate(Path(args.folder))
         return _list(args.what)
     except _USER_ERRORS as err:
         print(f"stepmeter: error: {' '.join(str(err).split())}", file=sys.stderr)
@@ -188,6 +203,9 @@ def _run(args: argparse.Namespace) -> int:
     if args.trial_timeout < 0:
         print(f"stepmeter: error: --trial-timeout: expected seconds >= 0, got {args.trial_timeout}", file=sys.stderr)
         return 2
+    if not args.cluster_timeout > 0:
+        print(f"stepmeter: error: --cluster-timeout: expected seconds > 0, got {args.cluster_timeout}", file=sys.stderr)
+        return 2
     options = RunOptions(
         jobs=args.jobs,
         trial_path=args.path,
@@ -196,6 +214,7 @@ def _run(args: argparse.Namespace) -> int:
         failed_only=args.failed_only,
         cluster=args.cluster,
         assume_yes=args.yes,
+        cluster_timeout=args.cluster_timeout,
     )
     summary = run_experiment(
         args.experiment,
@@ -216,7 +235,8 @@ def _run(args: argparse.Namespace) -> int:
         print(f"failed: {line}", file=sys.stderr)
     if not args.no_report and summary.planned > len(summary.failed):
         print(f"writing the report of {summary.folder} ...", flush=True)
-        _report(summary.folder, None)
+        with faults_as_store_errors(summary.folder):
+            _report(summary.folder, None)
     if summary.failed:
         print(
             f"{count(len(summary.failed), 'trial')} failed; their errors are stored in {summary.folder}",
@@ -371,8 +391,9 @@ def _report(folder: Path, out: str | None) -> int:
 
 def _list(what: str | None) -> int:
     from runner.agents import AGENTS, agent_class
+    from runner.envs.dynamics import DYNAMICS
     from runner.envs.grid import CELL_MEANINGS
-    from runner.envs.sources import SOURCES
+    from runner.envs.sources import COMMON_KEYS, SOURCES
 
     if what in (None, "agents"):
         print("agent kinds (use as `kind:`; parameters go under `params:`; a list of values tries each):")
@@ -380,19 +401,37 @@ def _list(what: str | None) -> int:
             cls = agent_class(kind)
             print(f"\n  {kind}: {cls.summary}")
             print(f"    source: {cls.source}")
+            print(f"    takes: {cls.tags.describe()}")
             for p in cls.schema:
-                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+                role = f" [{p.role}]" if p.role else ""
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}{role}")
+        print(
+            "\n  package.module:Class: your own agent in any framework, run step by step (see runner/agents/own.py "
+            "and the README's example)"
+        )
     if what in (None, "environments"):
         print("\nenvironment sources (one per environment entry):")
-        for name, meaning in SOURCES.items():
-            print(f"  {name:<6} {meaning}")
+        for source in SOURCES.values():
+            print(f"\n  {source.name}: {source.summary}")
+            print(f"    gives: {source.gives}")
+            for key, meaning in source.keys:
+                print(f"    {key:<18} {meaning}")
+            for p in source.schema:
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+        print("\nkeys of every environment entry:")
+        for key, meaning in COMMON_KEYS:
+            print(f"  {key:<18} {meaning}")
         print("\ngrid map cells:")
         for cell, meaning in CELL_MEANINGS.items():
             print(f"  {cell}  {meaning}")
-        print(
-            "\ngrid keys: map, slip, step_reward, goal_reward, hazard_penalty, hazard_ends, and changes: "
-            "[{at: REAL_STEP, map: ...}] to replace the map after that many real steps"
-        )
+        print("\ngymnasium ids with compiled dynamics (box observations; the tabular kinds need `bins:`):")
+        for spec in DYNAMICS.values():
+            actions = (
+                f"{spec.action_size} discrete actions"
+                if spec.action_kind == "discrete"
+                else f"box action in [{spec.action_low:g}, {spec.action_high:g}]"
+            )
+            print(f"  {spec.env_id:<38} {spec.obs_size} numbers, {actions}; {spec.summary}")
         print(
             "\nbuilt-in game: entry runner.envs.takeaway:TakeAwayGame with options heaps, opponent (random or "
             "optimal), illegal_reward, start (heaps or random); agents that search game rules (negamax_search) need it"

@@ -11,13 +11,15 @@ from runner.analysis.frames import load_results, missing_trials, open_store, und
 from runner.analysis.page import FAILURE_COLUMNS, RUN_COLUMNS, ExperimentRecords
 from runner.analysis.report import ExperimentFacts, ReportOutput, write_csv, write_report
 from runner.analysis.versions import experiment_versions, trial_versions, versions_note, versions_table
+from runner.safe_files import ensure_folder
 from runner.store import Store
+from runner.store_check import refuse_incomplete
 from runner.wording import count
 
 __all__ = ["experiment_records", "report_experiment", "variant_params"]
 
 
-def experiment_records(folder: str | Path) -> ExperimentRecords:
+def experiment_records(folder: str | Path | Store) -> ExperimentRecords:
     """Runs (provenance), failures with their trial labels, missing and undeclared trials (with the version of
     the experiment file each belongs to) and the versions of a stored experiment.
 
@@ -59,14 +61,18 @@ def variant_params(store: Store) -> dict[str, dict]:
 def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> tuple[ReportOutput, str]:
     """Write the report of results/<experiment> into its report/ folder (or out_dir).
 
-    Returns the report output and a one-line note on declared trials with no stored result.
+    Returns the report output and a one-line note on declared trials with no stored result. Everything is
+    read in one transaction, so a run writing meanwhile cannot make the tables disagree; a store with an
+    incomplete trial is refused with one line (a run re-runs such trials).
     """
     folder = Path(folder)
-    with open_store(folder) as store:
+    with open_store(folder) as store, store.snapshot():
+        refuse_incomplete(store)
         facts = store.facts()
         params = variant_params(store)
-    frame = load_results(folder, params=False)  # the report reads parameters per variant (variant_params)
-    records = experiment_records(folder)
+        frame = load_results(store, params=False)  # the report reads parameters per variant (variant_params)
+        records = experiment_records(store)
+        versions_line = versions_note(experiment_versions(store), len(records.undeclared))
     missing = records.missing
     experiment_facts = ExperimentFacts(
         name=facts["name"],
@@ -85,15 +91,13 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
         variant_params=params,
         costs=facts.get("costs"),
     )
-    target = Path(out_dir) if out_dir else folder / "report"
+    target = Path(out_dir) if out_dir else ensure_folder(folder / "report", below=folder)
     output = write_report(frame, experiment_facts, target, records)
     output.files.append(write_csv(target / "versions.csv", records.versions))
     declared = frame["trial_id"].nunique() + len(missing)
     note = f"{declared - len(missing):,} of {count(declared, 'declared trial')} have stored results"
     if len(missing):
         note += f"; {len(missing):,} missing (not run yet, interrupted or failed): run the experiment again to add them"
-    with open_store(folder) as store:
-        versions_line = versions_note(experiment_versions(store), len(records.undeclared))
     if versions_line:
         note += "\n" + versions_line
     elif len(records.undeclared):

@@ -12,6 +12,7 @@ from typing import TextIO
 
 from numba.core import event
 
+from runner.cluster import DEFAULT_TIMEOUT, check_address, check_reachable
 from runner.config import Experiment, load_experiment
 from runner.errors import ConfigError
 from runner.limits import CONFIRM_METRIC_ROWS, CONFIRM_TRIALS
@@ -19,9 +20,12 @@ from runner.lock import ExperimentLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
 from runner.provenance import platform_text, versions
+from runner.safe_files import remove_leftovers
 from runner.schedule import TrialOutcome, run_parallel, warm_up
 from runner.start_over import confirm_start_over
 from runner.store import Store, experiment_dir, remove_store
+from runner.store_check import repair_store
+from runner.store_faults import faults_as_store_errors
 from runner.wording import count
 
 __all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
@@ -80,6 +84,7 @@ class RunOptions:
     failed_only: bool = False
     cluster: str | None = None
     assume_yes: bool = False
+    cluster_timeout: float = DEFAULT_TIMEOUT
 
 
 def run_experiment(
@@ -98,19 +103,26 @@ def run_experiment(
     the user, given only on a terminal) says yes; so does `options.start_over` when trials are stored.
     """
     out = stream or sys.stdout
+    if options.cluster:
+        check_address(options.cluster)
     experiment = load_experiment(path)
     _confirm(experiment, options, ask)
     trials = plan_trials(experiment)
     folder = experiment_dir(results_root, experiment.name)
     print(f"results folder: {folder}{_where_note(results_root)}", file=out)
-    with ExperimentLock(folder) as lock:
+    with faults_as_store_errors(folder), ExperimentLock(folder) as lock:
         if lock.stale_owner:
             print(f"cleared a stale lock left by a run that no longer exists ({lock.stale_owner})", file=out)
         if options.start_over:
             confirm_start_over(folder, assume_yes=options.assume_yes, ask=ask)
             remove_store(folder)
+        remove_leftovers(folder)
+        remove_leftovers(folder / "report")
         with Store(folder, create=True) as store:
-            return _run_locked(experiment, trials, store, folder, path, options, command, out)
+            health = repair_store(store)
+            if not health.whole:
+                print(f"{health.describe()}: their rows were removed and they run again", file=out)
+            return _run_locked(experiment, trials, store, lock, path, options, command, out)
 
 
 def _where_note(results_root: str | Path) -> str:
@@ -178,7 +190,7 @@ def _run_locked(
     experiment: Experiment,
     trials: list[PlannedTrial],
     store: Store,
-    folder: Path,
+    lock: ExperimentLock,
     path: str | Path,
     options: RunOptions,
     command: str,
@@ -190,7 +202,7 @@ def _run_locked(
     if options.failed_only:
         failed = store.failed_ids()
         todo = [t for t in todo if t.trial_id in failed]
-    summary = RunSummary(folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
+    summary = RunSummary(store.folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
     n_jobs = max(1, min(options.jobs or default_jobs(), len(todo) or 1))
     where = f"the cluster at {options.cluster}" if options.cluster else count(n_jobs, "process")
     which = "previously failed trials" if options.failed_only else "to run"
@@ -202,9 +214,7 @@ def _run_locked(
     if not todo:
         return summary
     if options.cluster:
-        from runner.cluster import check_reachable
-
-        check_reachable(options.cluster)
+        check_reachable(options.cluster, options.cluster_timeout)
     run_id = store.begin_run(
         command=command or " ".join(sys.argv),
         experiment_file=str(Path(path).resolve()),
@@ -217,6 +227,7 @@ def _run_locked(
     progress = Progress(len(todo))
 
     def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
+        lock.check_held()
         if outcome.rows is None:
             store.write_failure(trial.trial_id, run_id, outcome.error_type, outcome.message, outcome.traceback)
             summary.failed.append(
@@ -230,7 +241,9 @@ def _run_locked(
     try:
         _warm_up_saying_when_compiling([(t.spec, options.trial_path) for t in todo], out)
         progress.restart()
-        run_parallel(todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster)
+        run_parallel(
+            todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster, options.cluster_timeout
+        )
         outcome = "failures" if summary.failed else "complete"
     except KeyboardInterrupt:
         summary.interrupted = True

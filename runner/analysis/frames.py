@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+from contextlib import AbstractContextManager, nullcontext
 from pathlib import Path
 
 import numpy as np
@@ -18,8 +19,13 @@ _CHUNK = 100_000
 __all__ = ["VERSION_CHOICES", "load_failures", "load_results", "missing_trials", "open_store", "undeclared_trials"]
 
 
-def open_store(path: str | Path) -> Store:
-    """Open an experiment store given its folder (results/<experiment>) or its database file."""
+def open_store(path: str | Path | Store) -> AbstractContextManager[Store]:
+    """Open an experiment store given its folder (results/<experiment>) or its database file.
+
+    Given an open Store, hand it back unclosed, so several readers can share one snapshot (`Store.snapshot`).
+    """
+    if isinstance(path, Store):
+        return nullcontext(path)
     path = Path(path)
     return Store(path.parent if path.name == DB_NAME else path)
 
@@ -27,7 +33,7 @@ def open_store(path: str | Path) -> Store:
 VERSION_CHOICES = ("current", "all")
 
 
-def load_results(path: str | Path, *, versions: str = "current", params: bool = True) -> pd.DataFrame:
+def load_results(path: str | Path | Store, *, versions: str = "current", params: bool = True) -> pd.DataFrame:
     """One row per (trial, evaluation point) of a stored experiment.
 
     Columns: env, agent, kind, trial_id, seed, version (the number of the experiment file's version the trial
@@ -132,7 +138,7 @@ def _param_table(specs: pd.Series) -> pd.DataFrame:
     return pd.DataFrame.from_records(records, index=range(len(records)))
 
 
-def missing_trials(path: str | Path) -> pd.DataFrame:
+def missing_trials(path: str | Path | Store) -> pd.DataFrame:
     """Declared trials that have no stored result (not run yet, interrupted or failed)."""
     with open_store(path) as store:
         rows = store.query(
@@ -142,7 +148,7 @@ def missing_trials(path: str | Path) -> pd.DataFrame:
     return pd.DataFrame.from_records(rows, columns=["env", "agent", "seed", "trial_id"])
 
 
-def undeclared_trials(path: str | Path) -> pd.DataFrame:
+def undeclared_trials(path: str | Path | Store) -> pd.DataFrame:
     """Stored trials the current experiment file no longer declares (kept in the store, left out of reports)."""
     with open_store(path) as store:
         rows = store.query(
@@ -152,7 +158,7 @@ def undeclared_trials(path: str | Path) -> pd.DataFrame:
     return pd.DataFrame.from_records(rows, columns=["env", "agent", "seed", "trial_id"])
 
 
-def load_failures(path: str | Path) -> pd.DataFrame:
+def load_failures(path: str | Path | Store) -> pd.DataFrame:
     """Every recorded failure, newest last."""
     with open_store(path) as store:
         rows = store.query(
