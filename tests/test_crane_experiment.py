@@ -26,8 +26,8 @@ def test_crane_config_declares_bins_and_a_threshold():
 
 
 def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
-    text = CONFIG.read_text().replace("seeds: 6", "seeds: 1").replace("real_steps: 40000", "real_steps: 2000")
-    text = text.replace("every: 4000 ", "every: 1000 ").replace("episodes: 5 ", "episodes: 1 ")
+    text = CONFIG.read_text().replace("seeds: 6", "seeds: 1").replace("real_steps: 100000", "real_steps: 2000")
+    text = text.replace("every: 5000 ", "every: 1000 ").replace("episodes: 5 ", "episodes: 1 ")
     path = tmp_path / "crane.yaml"
     path.write_text(text)
     assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1"]) == 0
