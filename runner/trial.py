@@ -26,7 +26,8 @@ from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.metrics import METRIC_COLUMNS
-from runner.seeding import TrialStreams, trial_streams
+from runner.models.held_out import collect_held_out, model_errors
+from runner.seeding import TrialStreams, held_out_sequence, trial_streams
 from runner.streams import new_stream
 from runner.tags import EnvTags
 
@@ -205,6 +206,11 @@ def _run_gymnasium(
     recent: deque[float] = deque(maxlen=ev["training_window"])
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
     read = _reader(facts.tags.observation)
+    held = None
+    if isinstance(agent, OwnAgent) and agent.has_model() and facts.tags.observation == "box":
+        held_env = build_env(spec["env"])
+        held = collect_held_out(held_env, held_out_sequence(spec["seed"]))
+        held_env.close()
     phase = 0
     earned = 0.0
     start = time.perf_counter()
@@ -226,6 +232,12 @@ def _run_gymnasium(
             rows[name][point] = value
         errors = agent.model_error(tables[phase]) if tables is not None else (np.nan, np.nan)
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
+        if held is not None:
+            one_step, reward_error, *rollouts = model_errors(agent.predict, held)
+            rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
+            rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
+        else:
+            rows["model_error_1"][point] = rows["model_error_5"][point] = rows["model_error_20"][point] = np.nan
         rows["env_phase"][point] = phase
         rows["wall_seconds"][point] = time.perf_counter() - start
         measured += time.process_time() - measuring
