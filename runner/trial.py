@@ -34,8 +34,8 @@ from runner.tags import EnvTags
 __all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
-"""`auto` takes the compiled path whenever the environment is table-backed and the agent has compiled kernels
-(their tags say so)."""
+"""`auto` takes the compiled path whenever the agent has compiled kernels (its tags say so) and the environment
+is table-backed or has compiled dynamics seen through bins."""
 
 
 @dataclass
