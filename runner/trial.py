@@ -31,7 +31,15 @@ from runner.seeding import TrialStreams, held_out_sequence, trial_streams
 from runner.streams import new_stream
 from runner.tags import EnvTags
 
-__all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
+__all__ = [
+    "METRIC_COLUMNS",
+    "TRIAL_PATHS",
+    "TrialResult",
+    "environment_path",
+    "evaluate_greedy",
+    "resolve_path",
+    "run_trial",
+]
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
 """`auto` takes the compiled path whenever the agent has compiled kernels (its tags say so) and the environment
@@ -123,6 +131,16 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
     if path == "compiled" and not compiled_agent:
         raise EnvironmentSourceError(f"the compiled path needs an agent kind with compiled kernels; {kind} has none")
     return "compiled" if path != "gymnasium" and compiled_env and compiled_agent else "gymnasium"
+
+
+def environment_path(env_spec: dict[str, Any]) -> str:
+    """How trials of agent kinds with compiled kernels run on this environment, in a few words (for `check`)."""
+    facts = _env_facts(json.dumps(env_spec, sort_keys=True))
+    if facts.table is not None:
+        return "compiled kinds run whole trials compiled (table-backed)"
+    if facts.dynamics is not None:
+        return "compiled kinds run whole trials compiled (compiled dynamics through bins)"
+    return "trials run step by step"
 
 
 def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0) -> TrialResult:

@@ -67,3 +67,10 @@ def test_classic_control_ids_run_in_experiments(tmp_path, monkeypatch):
         frame = runner.load_results(tmp_path / "results" / name)
         assert frame["env"].nunique() == envs and frame["agent"].nunique() == agents
         assert len(frame) == envs * agents * 3 and np.isfinite(frame["eval_return"]).all()
+
+
+def test_check_says_what_the_crane_gives_and_how_its_trials_run(capsys):
+    assert main(["check", str(CONFIG)]) == 0
+    out = capsys.readouterr().out
+    assert "gives discrete observations (864 states), discrete actions (3); compiled kinds run whole trials " in out
+    assert "(compiled dynamics through bins)" in out
