@@ -209,6 +209,14 @@ def _run_compiled(
     )
 
 
+def _predicts(agent: TabularAgent | OwnAgent) -> bool:
+    """Whether the agent has a function model the trial can ask: an own agent with `predict`, or a kind whose
+    tags say `learned_model="function"` and that has `predict(observation, action)`."""
+    if isinstance(agent, OwnAgent):
+        return agent.has_model()
+    return agent.tags.learned_model == "function" and callable(getattr(agent, "predict", None))
+
+
 def _run_gymnasium(
     spec: dict[str, Any], agent: TabularAgent | OwnAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
 ) -> TrialResult:
@@ -225,7 +233,7 @@ def _run_gymnasium(
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
     read = _reader(facts.tags.observation)
     held = None
-    if isinstance(agent, OwnAgent) and agent.has_model() and facts.tags.observation == "box":
+    if _predicts(agent) and facts.tags.observation == "box":
         held_env = build_env(spec["env"])
         held = collect_held_out(held_env, held_out_sequence(spec["seed"]))
         held_env.close()
