@@ -16,7 +16,9 @@ from runner.errors import (
     UnknownKindError,
     UntrustedCodeError,
 )
+from runner.store_faults import faults_as_store_errors
 from runner.trust import TRUST_FLAG
+from runner.wording import count
 
 __all__ = ["main"]
 
@@ -63,16 +65,29 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument(
         "--yes",
         action="store_true",
-        help="run an experiment of more than 100,000 trials or 10 million metric rows without asking",
+        help="answer yes for you: run an experiment of more than 100,000 trials or 10 million metric rows, "
+        "and let --start-over delete stored trials, without asking",
     )
-    run.add_argument("--start-over", action="store_true", help="delete the experiment's stored results first")
+    run.add_argument(
+        "--start-over",
+        action="store_true",
+        help="delete the experiment's stored results first (asks on a terminal; elsewhere needs --yes)",
+    )
     run.add_argument("--failed-only", action="store_true", help="run only trials that failed before")
     run.add_argument(
         "--cluster",
         metavar="ADDRESS",
         default=None,
         help="run trials on the dask.distributed scheduler at ADDRESS (e.g. tcp://10.0.0.5:8786); "
-        "needs pip install '.[cluster]'",
+        "needs pip install '.[cluster]'; use only a cluster you trust (it exchanges pickled tasks)",
+    )
+    run.add_argument(
+        "--cluster-timeout",
+        type=float,
+        default=10.0,
+        metavar="SECONDS",
+        help="give up on the cluster when its scheduler does not answer, or no worker joins, within this many "
+        "seconds (default 10)",
     )
 
     rerun = sub.add_parser("rerun", help="re-run stored trials and check that their rows come out bit for bit")
@@ -86,6 +101,25 @@ def _parser() -> argparse.ArgumentParser:
         action="store_true",
         help="let stored specs import code outside stepmeter (your own agent kinds and environment classes); "
         "only for results folders whose writers you trust",
+    )
+
+    show = sub.add_parser(
+        "show", help="re-run one stored trial: its spec, its rows and, on grid maps, the greedy policy it learned"
+    )
+    show.add_argument("folder", help="the experiment's results folder, e.g. results/warehouse-spills")
+    show.add_argument("trial_id", metavar="TRIAL_ID", help="a trial id (or a unique prefix) as in trial_scores.csv")
+    show.add_argument(
+        TRUST_FLAG,
+        action="store_true",
+        help="let the stored spec import code outside stepmeter; only for results folders whose writers you trust",
+    )
+
+    compare = sub.add_parser(
+        "compare", help="one report of several results folders whose environments and protocols match"
+    )
+    compare.add_argument("folders", nargs="+", metavar="RESULTS", help="two or more results folders")
+    compare.add_argument(
+        "--out", default="comparison", help="where to write the report (default: comparison, in the current directory)"
     )
 
     seeds = sub.add_parser("seeds", help="how many seeds an experiment needs to detect given AUC differences")
@@ -126,13 +160,21 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "check":
             return _check(args)
         if args.command == "report":
-            return _report(Path(args.folder), args.out)
+            with faults_as_store_errors(args.folder):
+                return _report(Path(args.folder), args.out)
         if args.command == "rerun":
-            return _rerun(args)
+            with faults_as_store_errors(args.folder):
+                return _rerun(args)
         if args.command == "seeds":
-            return _seeds(args)
+            with faults_as_store_errors(args.folder):
+                return _seeds(args)
+        if args.command == "show":
+            return _show(args)
+        if args.command == "compare":
+            return _compare(args)
         if args.command == "migrate":
-            return _migrate(Path(args.folder))
+            with faults_as_store_errors(args.folder):
+                return _migrate(Path(args.folder))
         return _list(args.what)
     except _USER_ERRORS as err:
         print(f"stepmeter: error: {' '.join(str(err).split())}", file=sys.stderr)
@@ -161,6 +203,9 @@ def _run(args: argparse.Namespace) -> int:
     if args.trial_timeout < 0:
         print(f"stepmeter: error: --trial-timeout: expected seconds >= 0, got {args.trial_timeout}", file=sys.stderr)
         return 2
+    if not args.cluster_timeout > 0:
+        print(f"stepmeter: error: --cluster-timeout: expected seconds > 0, got {args.cluster_timeout}", file=sys.stderr)
+        return 2
     options = RunOptions(
         jobs=args.jobs,
         trial_path=args.path,
@@ -169,6 +214,7 @@ def _run(args: argparse.Namespace) -> int:
         failed_only=args.failed_only,
         cluster=args.cluster,
         assume_yes=args.yes,
+        cluster_timeout=args.cluster_timeout,
     )
     summary = run_experiment(
         args.experiment,
@@ -178,18 +224,24 @@ def _run(args: argparse.Namespace) -> int:
         ask=_ask if sys.stdin.isatty() else None,
     )
     if summary.interrupted:
+        again = "the command again without --start-over" if args.start_over else "the same command again"
         print(
-            f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "
-            "run the same command again to finish the rest",
+            f"stopped: {count(summary.ran, 'trial')} finished in this run {'is' if summary.ran == 1 else 'are'} "
+            f"stored in {summary.folder}; run {again} to keep them and finish the rest",
             file=sys.stderr,
         )
         return 130
     for line in summary.failed:
         print(f"failed: {line}", file=sys.stderr)
     if not args.no_report and summary.planned > len(summary.failed):
-        _report(summary.folder, None)
+        print(f"writing the report of {summary.folder} ...", flush=True)
+        with faults_as_store_errors(summary.folder):
+            _report(summary.folder, None)
     if summary.failed:
-        print(f"{len(summary.failed)} trials failed; their errors are stored in {summary.folder}", file=sys.stderr)
+        print(
+            f"{count(len(summary.failed), 'trial')} failed; their errors are stored in {summary.folder}",
+            file=sys.stderr,
+        )
         return 1
     return 0
 
@@ -224,6 +276,25 @@ def _rerun(args: argparse.Namespace) -> int:
     mismatched = sum(not c.matched for c in checks)
     print(f"{len(checks) - mismatched} of {len(checks)} re-run trials reproduced their stored rows")
     return 1 if mismatched else 0
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from runner.compare_results import compare_folders
+
+    output, note = compare_folders(args.folders, args.out)
+    print(output.terminal_text)
+    if note:
+        print(note)
+    print(f"comparison of {count(len(args.folders), 'results folder')} written to {Path(args.out).resolve()}")
+    return 0
+
+
+def _show(args: argparse.Namespace) -> int:
+    from runner.show import show_trial
+
+    shown = show_trial(Path(args.folder), args.trial_id, trust_code=args.trust_code)
+    print(shown.text())
+    return 0 if shown.difference is None else 1
 
 
 def _seeds(args: argparse.Namespace) -> int:
@@ -318,7 +389,8 @@ def _list(what: str | None) -> int:
             print(f"    source: {cls.source}")
             print(f"    takes: {cls.tags.describe()}")
             for p in cls.schema:
-                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+                role = f" [{p.role}]" if p.role else ""
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}{role}")
         print(
             "\n  package.module:Class: your own agent in any framework, run step by step (see runner/agents/own.py "
             "and the README's example)"

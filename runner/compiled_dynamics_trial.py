@@ -19,7 +19,8 @@ import gymnasium as gym
 import numpy as np
 from numba import literally, njit, typeof, types
 
-from runner.compiled_trial import _clock, _cpu_clock, agent_act, agent_greedy, agent_observe
+from runner.clock import cpu_clock, wall_clock
+from runner.compiled_trial import agent_act, agent_greedy, agent_observe
 from runner.envs.bins import BinnedObservation
 from runner.envs.dynamics import DYNAMICS
 from runner.envs.dynamics.compiled import env_observation, env_reset, env_step
@@ -167,8 +168,8 @@ def run_dynamics_trial(
     eval_state = np.zeros(state_size)
     eval_obs = np.zeros(obs_size)
     cap = step_cap if step_cap < step_limit else step_limit
-    started = _clock()
-    cpu_started = _cpu_clock()
+    started = wall_clock()
+    cpu_started = cpu_clock()
     measured = 0.0
     earned = 0.0
     n_episodes = 0
@@ -179,7 +180,7 @@ def run_dynamics_trial(
     episode_return = 0.0
     episode_length = 0
     for step in range(budget + 1):
-        if time_limit > 0 and step % 4096 == 0 and _clock() - started > time_limit:
+        if time_limit > 0 and step % 4096 == 0 and wall_clock() - started > time_limit:
             return -1
         if step > 0:
             a = agent_act(literally(kind), arrays, hyper, s, agent_stream)
@@ -201,7 +202,7 @@ def run_dynamics_trial(
                 env_observation(literally(env_id), state, params, obs)
                 s = bin_index(obs, edges, edge_offsets, strides)
         if step % every == 0:
-            measuring = _cpu_clock()
+            measuring = cpu_clock()
             rows[point, REAL_STEPS] = step
             rows[point, REWARD_EARNED] = earned
             rows[point, EPISODES] = n_episodes
@@ -233,9 +234,9 @@ def run_dynamics_trial(
             rows[point, MODEL_ERROR_5] = np.nan
             rows[point, MODEL_ERROR_20] = np.nan
             rows[point, ENV_PHASE] = 0
-            rows[point, WALL_SECONDS] = _clock() - started
+            rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured
-            measured += _cpu_clock() - measuring
+            measured += cpu_clock() - measuring
             point += 1
     return n_episodes
 

@@ -11,15 +11,15 @@ distribution, not bit for bit.
 
 from __future__ import annotations
 
-import time
 from collections.abc import Callable
 from typing import Any
 
 import numpy as np
-from numba import literally, njit, objmode, typeof, types
+from numba import literally, njit, typeof, types
 from numba.extending import overload
 
 from runner.agents import agent_class
+from runner.clock import cpu_clock, wall_clock
 from runner.metrics import (
     CPU_SECONDS,
     ENV_PHASE,
@@ -136,21 +136,31 @@ def sample_outcome(offsets, cdf, pair, stream):
 
 
 @njit(cache=True)
-def _clock():
-    with objmode(now="float64"):
-        now = time.perf_counter()
-    return now
+def _past_deadline(watch, deadline):
+    """Whether the wall clock is past `deadline`, looking at the clock only every so many calls.
+
+    `watch` holds (calls left before the next look, calls between looks, time of the last look). The gap
+    doubles while looks come less than 10 ms apart and halves when they come more than 100 ms apart, so a
+    limit holds within about a tenth of a second whatever a step costs, and cheap steps rarely pay for the
+    clock (a look leaves compiled code).
+    """
+    watch[0] -= 1.0
+    if watch[0] > 0.0:
+        return False
+    now = wall_clock()
+    since = now - watch[2]
+    if since < 0.01 and watch[1] < 1048576.0:
+        watch[1] *= 2.0
+    elif since > 0.1 and watch[1] > 1.0:
+        watch[1] = max(1.0, np.floor(watch[1] / 2.0))
+    watch[0] = watch[1]
+    watch[2] = now
+    return now > deadline
 
 
 @njit(cache=True)
-def _cpu_clock():
-    with objmode(now="float64"):
-        now = time.process_time()
-    return now
-
-
-@njit(cache=True)
-def _evaluate(kind, arrays, hyper, table, step_cap, episodes, env_stream, policy_stream):
+def _evaluate(kind, arrays, hyper, table, step_cap, episodes, env_stream, policy_stream, watch, deadline):
+    """Mean return of greedy episodes, and whether `deadline` (0: none) passed while they ran."""
     start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
     n_actions = arrays[0].shape[1]
     cap = step_cap if step_limit == 0 or step_cap < step_limit else step_limit
@@ -158,13 +168,15 @@ def _evaluate(kind, arrays, hyper, table, step_cap, episodes, env_stream, policy
     for _ in range(episodes):
         s = sample_start(start_cdf, env_stream)
         for _ in range(cap):
+            if deadline > 0.0 and _past_deadline(watch, deadline):
+                return total / episodes, True
             a = agent_greedy(literally(kind), arrays, hyper, s, policy_stream)
             j = sample_outcome(offsets, cdf, s * n_actions + a, env_stream)
             total += reward[j]
             s = next_state[j]
             if terminated[j]:
                 break
-    return total / episodes
+    return total / episodes, False
 
 
 @njit(cache=True)
@@ -195,15 +207,17 @@ def run_table_trial(
     `tables` holds one table per phase of the environment, each (start_cdf, offsets, cdf, next_state, reward,
     terminated, step_limit); the environment moves to phase k + 1 once `change_steps[k]` real steps are done
     (the last entry lies past the budget). Returns the number of finished training episodes, or -1 when the
-    trial ran past `time_limit` seconds (0: no limit).
+    trial ran past `time_limit` seconds (0: no limit), in training or in an evaluation.
     """
     phase = 0
     table = tables[0]
     start_cdf, offsets, cdf, next_state, reward, terminated, step_limit = table
     q = arrays[0]
     n_actions = q.shape[1]
-    started = _clock()
-    cpu_started = _cpu_clock()
+    started = wall_clock()
+    deadline = started + time_limit if time_limit > 0 else 0.0
+    watch = np.array([1.0, 64.0, started])
+    cpu_started = cpu_clock()
     measured = 0.0
     earned = 0.0
     n_episodes = 0
@@ -212,7 +226,7 @@ def run_table_trial(
     episode_return = 0.0
     episode_length = 0
     for step in range(budget + 1):
-        if time_limit > 0 and step % 4096 == 0 and _clock() - started > time_limit:
+        if deadline > 0.0 and _past_deadline(watch, deadline):
             return -1
         if step > change_steps[phase]:
             phase += 1
@@ -236,13 +250,16 @@ def run_table_trial(
                 episode_length = 0
                 s = sample_start(start_cdf, env_stream)
         if step % every == 0:
-            measuring = _cpu_clock()
+            measuring = cpu_clock()
             rows[point, REAL_STEPS] = step
             rows[point, REWARD_EARNED] = earned
             rows[point, EPISODES] = n_episodes
-            rows[point, EVAL_RETURN] = _evaluate(
-                kind, arrays, hyper, table, step_cap, eval_episodes, eval_env_stream, eval_stream
+            value, late = _evaluate(
+                kind, arrays, hyper, table, step_cap, eval_episodes, eval_env_stream, eval_stream, watch, deadline
             )
+            if late:
+                return -1
+            rows[point, EVAL_RETURN] = value
             if n_episodes == 0:
                 rows[point, TRAIN_RETURN] = np.nan
             else:
@@ -258,9 +275,9 @@ def run_table_trial(
             rows[point, MODEL_ERROR_5] = np.nan
             rows[point, MODEL_ERROR_20] = np.nan
             rows[point, ENV_PHASE] = phase
-            rows[point, WALL_SECONDS] = _clock() - started
+            rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured
-            measured += _cpu_clock() - measuring
+            measured += cpu_clock() - measuring
             point += 1
     return n_episodes
 

@@ -34,6 +34,7 @@ from runner.limits import (
     ExperimentSize,
 )
 from runner.params import Param, check_value
+from runner.registry import add_entry_folder
 from runner.tags import EnvTags, pairing_problem
 from runner.yaml_source import KeyPath, SourceText, format_path, read_yaml
 
@@ -168,8 +169,12 @@ class Experiment:
 
 
 def load_experiment(path: str | Path) -> Experiment:
-    """Read and validate an experiment file; raise ConfigError with file, line and key path on any problem."""
+    """Read and validate an experiment file; raise ConfigError with file, line and key path on any problem.
+
+    Modules named by `entry:` or `kind:` entry points are also looked for beside the file (`add_entry_folder`).
+    """
     src = read_yaml(path)
+    add_entry_folder(Path(path).parent)
     data = src.data
     if not isinstance(data, dict):
         raise src.error((), f"expected a mapping of experiment keys ({', '.join(_TOP_KEYS)}), got {_kind(data)}")
@@ -533,7 +538,9 @@ def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str
     at = (*path, "options") if spec.get("options") else (*path, source)
     try:
         env = build_env(spec)
-    except (EnvironmentSourceError, UnknownKindError) as err:
+    except UnknownKindError as err:  # the entry point itself cannot be imported or is not a class
+        raise src.error((*path, source), str(err)) from None
+    except EnvironmentSourceError as err:
         raise src.error(at, str(err)) from None
     except Exception as err:  # user code or gymnasium may raise anything on bad options
         what = spec.get("id") or spec.get("entry") or "the environment"

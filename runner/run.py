@@ -4,11 +4,13 @@ from __future__ import annotations
 
 import os
 import sys
+import threading
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TextIO
 
+from runner.cluster import DEFAULT_TIMEOUT, check_address, check_reachable
 from runner.config import Experiment, load_experiment
 from runner.errors import ConfigError
 from runner.limits import CONFIRM_METRIC_ROWS, CONFIRM_TRIALS
@@ -16,8 +18,13 @@ from runner.lock import ExperimentLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
 from runner.provenance import platform_text, versions
+from runner.safe_files import remove_leftovers
 from runner.schedule import TrialOutcome, run_parallel, warm_up
+from runner.start_over import confirm_start_over
 from runner.store import Store, experiment_dir, remove_store
+from runner.store_check import repair_store
+from runner.store_faults import faults_as_store_errors
+from runner.wording import count
 
 __all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
 
@@ -39,6 +46,8 @@ def experiment_facts(experiment: Experiment) -> dict:
     return {
         "name": experiment.name,
         "description": experiment.description,
+        "experiment_hash": experiment.text_hash,
+        "experiment_text": experiment.text,
         "real_steps": experiment.real_steps,
         "baseline": experiment.baseline,
         "thresholds": {e.label: e.threshold for e in experiment.environments},
@@ -73,6 +82,7 @@ class RunOptions:
     failed_only: bool = False
     cluster: str | None = None
     assume_yes: bool = False
+    cluster_timeout: float = DEFAULT_TIMEOUT
 
 
 def run_experiment(
@@ -88,20 +98,54 @@ def run_experiment(
 
     Only one run may write an experiment at a time (`ExperimentLock`); a second one is refused. An experiment
     larger than the confirmation limits runs only with `options.assume_yes` or when `ask` (a yes/no question to
-    the user, given only on a terminal) says yes.
+    the user, given only on a terminal) says yes; so does `options.start_over` when trials are stored.
     """
     out = stream or sys.stdout
+    if options.cluster:
+        check_address(options.cluster)
     experiment = load_experiment(path)
     _confirm(experiment, options, ask)
     trials = plan_trials(experiment)
     folder = experiment_dir(results_root, experiment.name)
-    with ExperimentLock(folder) as lock:
+    print(f"results folder: {folder}{_where_note(results_root)}", file=out)
+    with faults_as_store_errors(folder), ExperimentLock(folder) as lock:
         if lock.stale_owner:
             print(f"cleared a stale lock left by a run that no longer exists ({lock.stale_owner})", file=out)
         if options.start_over:
+            confirm_start_over(folder, assume_yes=options.assume_yes, ask=ask)
             remove_store(folder)
+        remove_leftovers(folder)
+        remove_leftovers(folder / "report")
         with Store(folder, create=True) as store:
-            return _run_locked(experiment, trials, store, folder, path, options, command, out)
+            health = repair_store(store)
+            if not health.whole:
+                print(f"{health.describe()}: their rows were removed and they run again", file=out)
+            return _run_locked(experiment, trials, store, lock, path, options, command, out)
+
+
+def _where_note(results_root: str | Path) -> str:
+    """Say that a relative --results folder lies under the current directory, which is easy to forget."""
+    if Path(results_root).is_absolute():
+        return ""
+    return f" (under the current directory {Path.cwd()}; --results chooses another folder)"
+
+
+def _warm_up_saying_when_compiling(runs: list[tuple[dict, str]], out: TextIO) -> None:
+    """Warm the compiled kernels; when that takes over a second (numba compiling, not loading its cache),
+    say so once, so the wait before the first trial is explained."""
+    done = threading.Event()
+
+    def note() -> None:
+        if not done.wait(1.0):
+            print("compiling (first run only; later runs load the compiled code from numba's cache) ...", file=out)
+
+    waiter = threading.Thread(target=note, daemon=True)
+    waiter.start()
+    try:
+        warm_up(runs)
+    finally:
+        done.set()
+        waiter.join()
 
 
 def _confirm(experiment: Experiment, options: RunOptions, ask: Callable[[str], bool] | None) -> None:
@@ -122,7 +166,7 @@ def _run_locked(
     experiment: Experiment,
     trials: list[PlannedTrial],
     store: Store,
-    folder: Path,
+    lock: ExperimentLock,
     path: str | Path,
     options: RunOptions,
     command: str,
@@ -134,21 +178,19 @@ def _run_locked(
     if options.failed_only:
         failed = store.failed_ids()
         todo = [t for t in todo if t.trial_id in failed]
-    summary = RunSummary(folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
+    summary = RunSummary(store.folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
     n_jobs = max(1, min(options.jobs or default_jobs(), len(todo) or 1))
-    where = f"the cluster at {options.cluster}" if options.cluster else f"{n_jobs} process{'es' if n_jobs > 1 else ''}"
+    where = f"the cluster at {options.cluster}" if options.cluster else count(n_jobs, "process")
     which = "previously failed trials" if options.failed_only else "to run"
     print(
-        f"experiment {experiment.name}: {len(trials)} trials declared, {summary.already_stored} already stored, "
-        f"{len(todo)} {which} on {where}",
+        f"experiment {experiment.name}: {count(len(trials), 'trial')} declared, {summary.already_stored:,} already "
+        f"stored, {len(todo):,} {which} on {where}",
         file=out,
     )
     if not todo:
         return summary
     if options.cluster:
-        from runner.cluster import check_reachable
-
-        check_reachable(options.cluster)
+        check_reachable(options.cluster, options.cluster_timeout)
     run_id = store.begin_run(
         command=command or " ".join(sys.argv),
         experiment_file=str(Path(path).resolve()),
@@ -161,6 +203,7 @@ def _run_locked(
     progress = Progress(len(todo))
 
     def keep(trial: PlannedTrial, outcome: TrialOutcome) -> None:
+        lock.check_held()
         if outcome.rows is None:
             store.write_failure(trial.trial_id, run_id, outcome.error_type, outcome.message, outcome.traceback)
             summary.failed.append(
@@ -172,8 +215,11 @@ def _run_locked(
 
     outcome = "aborted"
     try:
-        warm_up([(t.spec, options.trial_path) for t in todo])
-        run_parallel(todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster)
+        _warm_up_saying_when_compiling([(t.spec, options.trial_path) for t in todo], out)
+        progress.restart()
+        run_parallel(
+            todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster, options.cluster_timeout
+        )
         outcome = "failures" if summary.failed else "complete"
     except KeyboardInterrupt:
         summary.interrupted = True

@@ -112,6 +112,7 @@ def run_parallel(
     path: str = "auto",
     time_limit: float = 0.0,
     cluster: str | None = None,
+    cluster_timeout: float = 10.0,
 ) -> None:
     """Run every trial on `jobs` local processes (1: in this process) or on a dask cluster, calling on_outcome
     in this process as each finishes, so only this process writes."""
@@ -120,7 +121,7 @@ def run_parallel(
     if cluster:
         from runner.cluster import run_on_cluster
 
-        for outcome in run_on_cluster(cluster, tasks):
+        for outcome in run_on_cluster(cluster, tasks, cluster_timeout):
             on_outcome(by_id[outcome.trial_id], outcome)
         return
     outcomes: Iterator[TrialOutcome]

@@ -9,10 +9,11 @@ one transaction, so a trial is either fully stored or absent. Only the parent pr
 from __future__ import annotations
 
 import json
+import os
 import shutil
 import sqlite3
-from collections.abc import Iterable
-from contextlib import closing
+from collections.abc import Iterable, Iterator
+from contextlib import closing, contextmanager
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -22,11 +23,15 @@ import numpy as np
 from runner.errors import StoreError
 from runner.metrics import INT_COLUMNS, METRIC_COLUMNS
 from runner.plan import PlannedTrial
+from runner.safe_files import TEMP_SUFFIX, check_no_links, ensure_folder
+from runner.store_faults import describe_fault
 
 __all__ = ["DB_NAME", "INT_COLUMNS", "SCHEMA_VERSION", "Store", "experiment_dir", "remove_store"]
 
 DB_NAME = "experiment.sqlite"
 SCHEMA_VERSION = 4
+_SIDE_FILES = ("-wal", "-shm", "-journal")
+"""Files SQLite keeps beside the database; each is checked for symbolic links like the database itself."""
 _PREVIOUS_SCHEMA_VERSION = 3
 """Stores of version 3 hold the same tables under another file name; `migrate_store` copies them over."""
 
@@ -70,10 +75,12 @@ def experiment_dir(results_root: str | Path, experiment_name: str) -> Path:
 def remove_store(folder: str | Path) -> None:
     """Delete an experiment's database and report so the experiment starts over (the lock file stays)."""
     folder = Path(folder)
-    for name in (DB_NAME, f"{DB_NAME}-wal", f"{DB_NAME}-shm"):
+    for name in (DB_NAME, *(f"{DB_NAME}{side}" for side in _SIDE_FILES)):
         (folder / name).unlink(missing_ok=True)
     report = folder / "report"
-    if report.is_dir():
+    if report.is_symlink():
+        report.unlink()
+    elif report.is_dir():
         shutil.rmtree(report)
 
 
@@ -131,6 +138,35 @@ def migrate_store(folder: str | Path) -> tuple[Path, int]:
     return previous, trials
 
 
+def _refuse_unusable_file(path: Path) -> None:
+    """A database path that is a folder, or an empty file, is refused: SQLite would silently start afresh."""
+    if path.is_dir():
+        raise StoreError(f"{path}: expected the experiment's database but found a folder; move it away and run again")
+    wal = path.with_name(f"{path.name}-wal")
+    if path.stat().st_size == 0 and not (wal.is_file() and wal.stat().st_size > 0):
+        raise StoreError(
+            f"{path}: the database is empty (0 bytes), so its stored trials are gone; nothing was replaced: "
+            "restore it from a backup, or run the experiment with --start-over to start afresh"
+        )
+
+
+def _create_database(path: Path) -> None:
+    """Write a new store's tables under a temporary name and rename it into place.
+
+    So a database file that exists is never empty, and an empty one (with no write-ahead log holding its
+    pages) can only be a truncated store, which `Store` refuses instead of starting afresh over it.
+    """
+    partial = path.with_name(f".{path.name}.{os.getpid()}.0{TEMP_SUFFIX}")
+    partial.unlink(missing_ok=True)
+    try:
+        with closing(sqlite3.connect(partial)) as conn, conn:
+            conn.executescript(_SCHEMA)
+            conn.execute("INSERT INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
+        os.replace(partial, path)
+    finally:
+        partial.unlink(missing_ok=True)
+
+
 def _now() -> str:
     return datetime.now(UTC).isoformat(timespec="seconds")
 
@@ -141,7 +177,12 @@ class Store:
     def __init__(self, folder: str | Path, *, create: bool = False) -> None:
         self.folder = Path(folder)
         self.path = self.folder / DB_NAME
-        if not self.path.exists():
+        for name in (self.path, *(self.folder / f"{DB_NAME}{side}" for side in _SIDE_FILES)):
+            check_no_links(name, below=self.folder)
+        existed = self.path.exists()
+        if existed:
+            _refuse_unusable_file(self.path)
+        else:
             previous = _previous_release_store(self.folder)
             if previous is not None:
                 raise StoreError(
@@ -152,9 +193,16 @@ class Store:
                 raise StoreError(
                     f"{self.folder}: no stepmeter experiment here (missing {DB_NAME}); run the experiment first"
                 )
-            self.folder.mkdir(parents=True, exist_ok=True)
+            ensure_folder(self.folder)
+            _create_database(self.path)
         try:
             self.conn = sqlite3.connect(self.path, timeout=30.0)
+            if existed and not self._has_meta():
+                self.conn.close()
+                raise StoreError(
+                    f"{self.path}: not a stepmeter database (it has no `meta` table); nothing was changed: "
+                    "move it away, or run the experiment with --start-over to replace it"
+                )
             self.conn.execute("PRAGMA journal_mode=WAL")
             self.conn.execute("PRAGMA synchronous=NORMAL")
             self.conn.execute("PRAGMA foreign_keys=ON")
@@ -164,7 +212,7 @@ class Store:
                     self.conn.execute("INSERT OR IGNORE INTO meta VALUES ('schema_version', ?)", (str(SCHEMA_VERSION),))
             version = self.conn.execute("SELECT value FROM meta WHERE key='schema_version'").fetchone()
         except sqlite3.DatabaseError as err:
-            raise StoreError(f"{self.path}: not a readable stepmeter database ({err})") from None
+            raise StoreError(describe_fault(err, self.folder)) from None
         if version is None or int(version[0]) != SCHEMA_VERSION:
             found = "no version" if version is None else f"store version {version[0]}"
             raise StoreError(
@@ -182,6 +230,21 @@ class Store:
             with self.conn:
                 for c in missing:
                     self.conn.execute(f"ALTER TABLE metrics ADD COLUMN {c} {'INTEGER' if c in INT_COLUMNS else 'REAL'}")
+
+    def _has_meta(self) -> bool:
+        return (
+            self.conn.execute("SELECT count(*) FROM sqlite_master WHERE type='table' AND name='meta'").fetchone()[0]
+            == 1
+        )
+
+    @contextmanager
+    def snapshot(self) -> Iterator[Store]:
+        """Read inside one transaction, so every query sees the same state even while a run keeps writing."""
+        self.conn.execute("BEGIN")
+        try:
+            yield self
+        finally:
+            self.conn.rollback()
 
     def close(self) -> None:
         """Close the connection."""

@@ -25,8 +25,8 @@ class AgentTags:
     `observations` and `actions` are the space kinds it accepts (`discrete` and/or `box`); `needs` lists what it
     must be given beside observations (`table`: the environment's true transition table; `rules`: a game's
     rules); `learned_model` is the model it learns (`none`, `table` of counts or outcomes, or a `function`);
-    `compiled` says whether its acting and learning are compiled kernels that the compiled trial loop can call;
-    `planning_param` names the parameter that is its planning budget (a role, not a name), if any.
+    `compiled` says whether its acting and learning are compiled kernels that the compiled trial loop can call.
+    The planning budget is not a tag: it is the role of a parameter in the kind's schema (`runner.params`).
     """
 
     observations: tuple[str, ...] = ("discrete",)
@@ -34,7 +34,6 @@ class AgentTags:
     needs: tuple[str, ...] = ()
     learned_model: str = "none"
     compiled: bool = True
-    planning_param: str | None = None
 
     def __post_init__(self) -> None:
         for name, values, allowed in (
@@ -51,11 +50,10 @@ class AgentTags:
     def describe(self) -> str:
         """One line for `stepmeter list`."""
         needs = ", ".join(self.needs) or "nothing else"
-        budget = f"; planning budget: {self.planning_param}" if self.planning_param else ""
         return (
             f"observations: {' or '.join(self.observations)}; actions: {' or '.join(self.actions)}; "
             f"needs: {needs}; learned model: {self.learned_model}; compiled kernels: "
-            f"{'yes' if self.compiled else 'no'}{budget}"
+            f"{'yes' if self.compiled else 'no'}"
         )
 
 

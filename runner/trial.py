@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import functools
 import json
+import math
 import time
 from collections import deque
 from dataclasses import dataclass
@@ -48,12 +49,14 @@ is table-backed or has compiled dynamics seen through bins."""
 
 @dataclass
 class TrialResult:
-    """Metric rows (one array per column, one entry per evaluation point) and the training episodes."""
+    """Metric rows (one array per column, one entry per evaluation point), the training episodes and the
+    action values the agent ended with (shape (n_states, n_actions); what its greedy evaluation policy reads)."""
 
     rows: dict[str, np.ndarray]
     episode_returns: np.ndarray
     episode_lengths: np.ndarray
     trial_path: str
+    final_values: np.ndarray | None = None
 
 
 def _reader(kind: str):
@@ -64,14 +67,24 @@ def _reader(kind: str):
 
 
 def evaluate_greedy(
-    agent: TabularAgent | OwnAgent, env: gym.Env, episodes: int, step_cap: int, stream: np.ndarray
+    agent: TabularAgent | OwnAgent,
+    env: gym.Env,
+    episodes: int,
+    step_cap: int,
+    stream: np.ndarray,
+    deadline: float = math.inf,
 ) -> float:
-    """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps."""
+    """Mean undiscounted return of `episodes` greedy episodes, each cut at `step_cap` steps.
+
+    Raises TrialTimeout once `time.perf_counter()` passes `deadline`, so a huge step cap cannot outlive a limit.
+    """
     read = _reader("discrete" if isinstance(env.observation_space, gym.spaces.Discrete) else "box")
     total = 0.0
     for _ in range(episodes):
         state, _ = env.reset()
         for _ in range(step_cap):
+            if time.perf_counter() > deadline:
+                raise TrialTimeout("the trial ran past its wall-clock limit during an evaluation")
             state, reward, terminated, truncated, _ = env.step(agent.greedy(read(state), stream))
             total += float(reward)
             if terminated or truncated:
@@ -206,6 +219,7 @@ def _run_compiled(
         episode_returns=returns[:n_episodes].copy(),
         episode_lengths=lengths[:n_episodes].copy(),
         trial_path="compiled",
+        final_values=agent.arrays_[0].copy(),
     )
 
 
@@ -240,6 +254,7 @@ def _run_gymnasium(
     phase = 0
     earned = 0.0
     start = time.perf_counter()
+    deadline = start + time_limit if time_limit > 0 else math.inf
     cpu_start = time.process_time()
     measured = 0.0
 
@@ -251,7 +266,7 @@ def _run_gymnasium(
         rows["reward_earned"][point] = earned
         rows["episodes"][point] = len(returns)
         rows["eval_return"][point] = evaluate_greedy(
-            agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation
+            agent, eval_env, ev["episodes"], ev["step_cap"], streams.evaluation, deadline
         )
         rows["train_return"][point] = np.mean(recent) if recent else np.nan
         for name, value in zip(COUNTER_NAMES, agent.counters_, strict=True):
@@ -273,7 +288,7 @@ def _run_gymnasium(
         state = read(env.reset(seed=streams.reset_seed(streams.env))[0])
         episode_return, episode_length, point = 0.0, 0, 1
         for step in range(1, budget + 1):
-            if time_limit > 0 and step % 256 == 0 and time.perf_counter() - start > time_limit:
+            if time.perf_counter() > deadline:
                 raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
             if phase < len(facts.change_steps) and step > facts.change_steps[phase]:
                 phase += 1
@@ -304,4 +319,5 @@ def _run_gymnasium(
         episode_returns=np.asarray(returns, dtype=np.float64),
         episode_lengths=np.asarray(lengths, dtype=np.int64),
         trial_path="gymnasium",
+        final_values=agent.arrays_[0].copy() if isinstance(agent, TabularAgent) else None,
     )

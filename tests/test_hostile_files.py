@@ -212,8 +212,8 @@ CASES = [
         _HEAD + _ENV + "agents:\n  - {label: a, kind: sarsa}\n  - {label: b, kind: sarsa}\n",
         "repeats 'a'",
     ),
-    Hostile("agent-os-system", _agent("{kind: 'os:system'}"), "names a builtin_function_or_method, not a subclass"),
-    Hostile("agent-json-dumps", _agent("{kind: 'json:dumps'}"), "names a function, not a subclass"),
+    Hostile("agent-os-system", _agent("{kind: 'os:system'}"), "names a builtin_function_or_method, not a class"),
+    Hostile("agent-json-dumps", _agent("{kind: 'json:dumps'}"), "names a function, not a class"),
     Hostile("agent-missing-module", _agent("{kind: 'no_such_module_here:Agent'}"), "cannot import module"),
     Hostile(
         "agent-module-raises-on-import",
