@@ -45,7 +45,10 @@ OWN_AGENT_METHODS = ("setup", "act", "observe", "greedy_action", "counters")
 def why_not_own_agent(cls: Any) -> str | None:
     """None when `cls` follows the plain agent protocol above; else what is missing, in a few words."""
     if not isinstance(cls, type):
-        return f"a {type(cls).__name__}, not a subclass of runner.agents.TabularAgent nor a plain agent class"
+        return (
+            f"a {type(cls).__name__}, not a class (expected a subclass of runner.agents.TabularAgent or a plain "
+            "agent class)"
+        )
     missing = [m for m in OWN_AGENT_METHODS if not callable(getattr(cls, m, None))]
     if missing:
         return (
