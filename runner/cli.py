@@ -50,8 +50,9 @@ def _parser() -> argparse.ArgumentParser:
         "--path",
         choices=("auto", "compiled", "gymnasium"),
         default="auto",
-        help="auto (default): whole trials in compiled code for table-backed environments, else step by step "
-        "through gymnasium; gymnasium forces the step-by-step path",
+        help="auto (default): whole trials in compiled code for agent kinds with compiled kernels on table-backed "
+        "environments or on compiled dynamics seen through bins, else step by step through gymnasium; gymnasium "
+        "forces the step-by-step path",
     )
 
     run.add_argument(
