@@ -34,8 +34,8 @@ import numpy as np
 
 from runner.agents.dyna_q import DynaQ, dyna_q_plan
 from runner.envs.grid import GridWorld
-from runner.plan import SPEC_FORMAT
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 DYNA_MAZE = "\n".join(
     [
@@ -186,26 +186,20 @@ def measure_kernel(sizes: Sizes, seed: int) -> tuple[Figure, str]:
 
 def trial_spec(real_steps: int, seed: int) -> dict[str, Any]:
     """A trial spec laid out as `runner.plan.plan_trials` makes them; evaluation only at the start and end."""
-    return {
-        "format": SPEC_FORMAT,
-        "env": {
-            "source": "grid",
-            "map": DYNA_MAZE,
-            "slip": 0.0,
-            "step_reward": 0.0,
-            "goal_reward": 1.0,
-            "hazard_penalty": -1.0,
-            "hazard_ends": True,
-            "step_limit": None,
-        },
-        "agent": {
-            "kind": "dyna_q",
-            "params": DynaQ(alpha=ALPHA, gamma=GAMMA, epsilon=EPSILON, planning_steps=PLANNING_STEPS).get_params(),
-        },
-        "seed": seed,
-        "real_steps": real_steps,
-        "evaluation": {"every": real_steps, "episodes": 1, "step_cap": 100, "training_window": 10},
+    env = {
+        "source": "grid",
+        "map": DYNA_MAZE,
+        "slip": 0.0,
+        "step_reward": 0.0,
+        "goal_reward": 1.0,
+        "hazard_penalty": -1.0,
+        "hazard_ends": True,
+        "step_limit": None,
     }
+    params = DynaQ(alpha=ALPHA, gamma=GAMMA, epsilon=EPSILON, planning_steps=PLANNING_STEPS).get_params()
+    return TrialSpec.build(
+        env, "dyna_q", params, seed, real_steps, every=real_steps, episodes=1, step_cap=100, training_window=10
+    ).as_dict()
 
 
 def per_call_seconds(call: Any, calls: int) -> float:

@@ -63,8 +63,8 @@ except ImportError:  # run as `python -m benchmarks.speed` from the repository r
 from runner.agents.q_learning import QLearning
 from runner.config import load_experiment
 from runner.envs.grid import GridWorld
-from runner.plan import SPEC_FORMAT
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 ROOT = Path(__file__).resolve().parent.parent
 DEMO_EXPERIMENT = ROOT / "configs" / "warehouse.yaml"
@@ -388,14 +388,17 @@ def item_planning(ctx: Context) -> None:
 
 def lake_spec(real_steps: int, every: int, seed: int) -> dict[str, Any]:
     """A Q-learning trial spec on FrozenLake8x8-v1 laid out as `runner.plan.plan_trials` makes them."""
-    return {
-        "format": SPEC_FORMAT,
-        "env": dict(LAKE_ENV),
-        "agent": {"kind": "q_learning", "params": QLearning(alpha=ALPHA, gamma=GAMMA, epsilon=EPSILON).get_params()},
-        "seed": seed,
-        "real_steps": real_steps,
-        "evaluation": {"every": every, "episodes": 10, "step_cap": LAKE_STEP_CAP, "training_window": 10},
-    }
+    return TrialSpec.build(
+        dict(LAKE_ENV),
+        "q_learning",
+        QLearning(alpha=ALPHA, gamma=GAMMA, epsilon=EPSILON).get_params(),
+        seed,
+        real_steps,
+        every=every,
+        episodes=10,
+        step_cap=LAKE_STEP_CAP,
+        training_window=10,
+    ).as_dict()
 
 
 def plain_lake_q_learning(steps: int, seed: int) -> int:

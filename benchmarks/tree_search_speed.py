@@ -37,9 +37,9 @@ from runner.agents import AGENTS
 from runner.agents.tree_search import PUCTSearch, UCTSearch
 from runner.envs.grid import GridWorld
 from runner.envs.table import table_from_env
-from runner.plan import SPEC_FORMAT
 from runner.streams import new_stream
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 DYNA_MAZE = "\n".join(
     [
@@ -113,9 +113,8 @@ def measure_kernel(what: str, cls: type, params: dict, sizes: Sizes, seed: int) 
 
 def trial_spec(kind: str, params: dict, real_steps: int, seed: int) -> dict[str, Any]:
     """A trial spec laid out as `runner.plan.plan_trials` makes them; evaluation only at the start and the end."""
-    return {
-        "format": SPEC_FORMAT,
-        "env": {
+    return TrialSpec.build(
+        {
             "source": "grid",
             "map": DYNA_MAZE,
             "slip": 0.0,
@@ -125,11 +124,15 @@ def trial_spec(kind: str, params: dict, real_steps: int, seed: int) -> dict[str,
             "hazard_ends": True,
             "step_limit": None,
         },
-        "agent": {"kind": kind, "params": params},
-        "seed": seed,
-        "real_steps": real_steps,
-        "evaluation": {"every": real_steps, "episodes": 1, "step_cap": 100, "training_window": 10},
-    }
+        kind,
+        params,
+        seed,
+        real_steps,
+        every=real_steps,
+        episodes=1,
+        step_cap=100,
+        training_window=10,
+    ).as_dict()
 
 
 def measure_trial(sizes: Sizes, seed: int) -> tuple[Figure, str]:

@@ -1,7 +1,8 @@
 """A user's own agent for stepmeter, in plain numpy: linear Q-learning on one-hot bins of each dimension.
 
-Use it in an experiment as `kind: linear_q:LinearQ` with this folder on the import path
-(`PYTHONPATH=examples stepmeter run ...`), or check it with `runner.checks.check_agent("linear_q:LinearQ")`.
+Use it in an experiment as `kind: linear_q:LinearQ` with this file beside the experiment file or this folder on
+the import path (`PYTHONPATH=examples stepmeter run ...`), or check it with
+`runner.checks.check_agent("linear_q:LinearQ")`.
 
 Features: each observation dimension is cut into `tiles` equal bins over its bounds (unbounded sides clipped at
 +-`clip`), one-hot per dimension, plus a bias; Q(s, a) = w[a] . phi(s), learned by semi-gradient Q-learning

@@ -8,6 +8,7 @@ from __future__ import annotations
 from itertools import groupby
 
 from runner.config import AgentVariant, Experiment
+from runner.trial import environment_path
 
 __all__ = ["MAX_AGENT_LINES", "check_listing"]
 
@@ -55,5 +56,7 @@ def check_listing(experiment: Experiment) -> list[str]:
         threshold = "none" if env.threshold is None else f"{env.threshold:g}"
         earning = "" if env.earning_threshold is None else f"; earning threshold {env.earning_threshold:g}"
         out.append(f"  {env.label}  (threshold {threshold}{earning}; evaluation episodes cut at {env.step_cap} steps)")
+        if env.tags is not None:
+            out.append(f"    gives {env.tags.describe()}; {environment_path(env.spec)}")
         out += agent_lines
     return out

@@ -261,6 +261,23 @@ def _check_trial_rows_reproducible(cls: type[AnyAgent], params: dict) -> None:
             raise ContractError(f"on the {path} path trials with seeds 9 and 10 gave identical metric rows")
 
 
+def _check_model_predicts(cls: type[AnyAgent], params: dict) -> None:
+    """Kinds whose tags say they learn a function model predict an observation of the right shape and a finite
+    reward for every probe (the trial measures their error on held-out transitions)."""
+    if cls.tags.learned_model != "function":
+        return
+    agent = cls(**params)
+    task = _task(cls, SLIPPERY)
+    _drive(agent, task, 200, seed=8)
+    env = build_env(task)
+    space = env.observation_space
+    env.close()
+    for obs in _probes(agent):
+        predicted, reward = agent.predict(obs, agent.greedy(obs, new_stream(0)))
+        if np.shape(predicted) != space.shape or not np.isfinite(float(reward)):
+            raise ContractError(f"predict gave {predicted!r} and reward {reward!r} for {obs!r}")
+
+
 _AGENT_CHECKS: tuple[Callable[[type[AnyAgent], dict], None], ...] = (
     _check_params_round_trip,
     _check_same_seed_same_run,
@@ -270,6 +287,7 @@ _AGENT_CHECKS: tuple[Callable[[type[AnyAgent], dict], None], ...] = (
     _check_params_unchanged,
     _check_counters_add_up,
     _check_trial_rows_reproducible,
+    _check_model_predicts,
 )
 
 

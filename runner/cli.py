@@ -50,8 +50,9 @@ def _parser() -> argparse.ArgumentParser:
         "--path",
         choices=("auto", "compiled", "gymnasium"),
         default="auto",
-        help="auto (default): whole trials in compiled code for table-backed environments, else step by step "
-        "through gymnasium; gymnasium forces the step-by-step path",
+        help="auto (default): whole trials in compiled code for agent kinds with compiled kernels on table-backed "
+        "environments or on compiled dynamics seen through bins, else step by step through gymnasium; gymnasium "
+        "forces the step-by-step path",
     )
 
     run.add_argument(
@@ -128,7 +129,8 @@ def _parser() -> argparse.ArgumentParser:
         type=float,
         action="append",
         metavar="D",
-        help="an AUC difference to detect, in return units (repeat for several; default 0.05, 0.1 and 0.2)",
+        help="an AUC difference to detect, in return units (repeat for several; default 5%%, 10%% and 20%% of each "
+        "environment's return range, as in the report)",
     )
     seeds.add_argument("--alpha", type=float, default=0.05, help="significance level (default 0.05)")
     seeds.add_argument("--power", type=float, default=0.8, help="wanted power (default 0.8)")
@@ -301,41 +303,54 @@ def _seeds(args: argparse.Namespace) -> int:
 
     from runner.analysis.curves import trial_scores
     from runner.analysis.frames import load_results, open_store
-    from runner.analysis.power import seeds_advice
+    from runner.analysis.power import ADVICE_SHARES, advice_table
 
-    differences = args.difference or [0.05, 0.1, 0.2]
-    if any(d <= 0 for d in differences) or not 0 < args.alpha < 1 or not 0 < args.power < 1:
+    differences = args.difference
+    if any(d <= 0 for d in differences or []) or not 0 < args.alpha < 1 or not 0 < args.power < 1:
         print("stepmeter: error: seeds: differences must be > 0, alpha and power in (0, 1)", file=sys.stderr)
         return 2
     with open_store(args.folder) as store:
         facts = store.facts()
-    scores = trial_scores(load_results(args.folder))
+    frame = load_results(args.folder, params=False)
+    scores = trial_scores(frame)
     if scores.empty:
         print(f"stepmeter: error: {args.folder}: no stored trials to learn the spread of AUC from", file=sys.stderr)
         return 2
-    print(
-        f"seeds per agent for a two-sided two-sample t-test on AUC at alpha {args.alpha:g} and power {args.power:g}, "
-        "from this experiment's spread between seeds (a guide: few pilot seeds give uncertain spreads)"
+    asked = (
+        "AUC differences in return units (" + ", ".join(f"{d:g}" for d in differences) + ")"
+        if differences
+        else "AUC differences of " + ", ".join(f"{s:.0%}" for s in ADVICE_SHARES) + " of each environment's "
+        "return range (highest minus lowest stored evaluation return), as in the report's seeds advice"
     )
+    print(
+        f"seeds needed per agent to detect {asked}, by a two-sided two-sample t-test at alpha {args.alpha:g} and "
+        f"power {args.power:g}, from this experiment's spread between seeds (a guide: few pilot seeds give "
+        "uncertain spreads); each agent against the baseline and against the agent ranked just above it"
+    )
+    ranges = frame.groupby("env", sort=False)["eval_return"].agg(lambda r: r.max() - r.min())
     for env in facts["env_order"]:
-        advice = seeds_advice(
+        if env not in ranges.index:
+            continue
+        advice = advice_table(
             scores,
             env,
-            differences,
+            float(ranges[env]),
             baseline=facts["baseline"],
             agent_order=facts["agent_order"],
+            differences=differences,
             alpha=args.alpha,
             power=args.power,
         )
         if advice.empty:
             continue
-        print(f"\n{env}")
+        print(f"\n{env} (return range {ranges[env]:.4g})")
         for row in advice.itertuples():
-            needed = "more than 10000 (or an unknown number of)" if row.seeds_needed is pd.NA else row.seeds_needed
+            needed = "more than 10,000 (or an unknown number of)" if row.seeds_needed is pd.NA else row.seeds_needed
             print(
-                f"  {row.agent_a} vs {row.agent_b}: AUC difference {row.difference:g} needs {needed} seeds each "
+                f"  {row.agent_a} vs {row.agent_b} ({row.pair}): AUC difference {row.difference:.4g} "
+                f"({row.share_of_range:.0%} of the range) needs {needed} seeds each "
                 f"(pilot sds {row.sd_a:.3g} and {row.sd_b:.3g} over {row.n_a} and {row.n_b} seeds; "
-                f"power now {row.power_now:.2f})"
+                f"power now {row.power_now:.0%})"
             )
     return 0
 
@@ -348,9 +363,10 @@ def _check(args: argparse.Namespace) -> int:
     experiment = load_experiment(args.experiment)
     size = experiment.size
     print(
-        f"{experiment.file}: experiment {experiment.name!r} is valid: {len(experiment.environments)} environments x "
-        f"{len(experiment.agents)} agent variants x {len(experiment.seeds)} seeds = {size.trials} trials of "
-        f"{experiment.real_steps} real steps"
+        f"{experiment.file}: experiment {experiment.name!r} is valid: "
+        f"{count(len(experiment.environments), 'environment')} x {count(len(experiment.agents), 'agent variant')} x "
+        f"{count(len(experiment.seeds), 'seed')} = {count(size.trials, 'trial')} of "
+        f"{count(experiment.real_steps, 'real step')}"
     )
     print(f"expected: {size.describe()}")
     if size.needs_confirmation():

@@ -4,7 +4,9 @@ compiled environment dynamics: agent kernels x environment kernels, resolved by 
 The loop mirrors `runner.compiled_dynamics_trial` (which serves the tabular kinds through bins) but hands the
 agent the observation itself (float32-rounded values as float64, as the step-by-step path does). Truncation at the
 step limit is the loop's, as gymnasium's `TimeLimit` does; an agent bootstraps on a truncated step. Start states
-come from a compiled stream, so this path and the step-by-step one are the same experiment in distribution.
+come from a compiled stream, so this path and the step-by-step one are the same experiment in distribution. The
+function-model error columns are NaN here: a kind that can `predict` runs step by step under `auto`, where the
+trial measures them (`runner.models.held_out`).
 """
 
 from __future__ import annotations
@@ -27,6 +29,9 @@ from runner.metrics import (
     ENV_PHASE,
     EPISODES,
     EVAL_RETURN,
+    MODEL_ERROR_1,
+    MODEL_ERROR_5,
+    MODEL_ERROR_20,
     MODEL_REWARD_ERROR,
     MODEL_TV_ERROR,
     MODEL_UPDATES,
@@ -178,6 +183,9 @@ def run_box_trial(
             rows[point, MODEL_UPDATES] = counters[2]
             rows[point, MODEL_TV_ERROR] = np.nan
             rows[point, MODEL_REWARD_ERROR] = np.nan
+            rows[point, MODEL_ERROR_1] = np.nan
+            rows[point, MODEL_ERROR_5] = np.nan
+            rows[point, MODEL_ERROR_20] = np.nan
             rows[point, ENV_PHASE] = 0
             rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured

@@ -29,6 +29,9 @@ from runner.metrics import (
     ENV_PHASE,
     EPISODES,
     EVAL_RETURN,
+    MODEL_ERROR_1,
+    MODEL_ERROR_5,
+    MODEL_ERROR_20,
     MODEL_REWARD_ERROR,
     MODEL_TV_ERROR,
     MODEL_UPDATES,
@@ -227,6 +230,9 @@ def run_dynamics_trial(
             rows[point, MODEL_UPDATES] = counters[2]
             rows[point, MODEL_TV_ERROR] = np.nan
             rows[point, MODEL_REWARD_ERROR] = np.nan
+            rows[point, MODEL_ERROR_1] = np.nan
+            rows[point, MODEL_ERROR_5] = np.nan
+            rows[point, MODEL_ERROR_20] = np.nan
             rows[point, ENV_PHASE] = 0
             rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured

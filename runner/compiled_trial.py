@@ -25,6 +25,9 @@ from runner.metrics import (
     ENV_PHASE,
     EPISODES,
     EVAL_RETURN,
+    MODEL_ERROR_1,
+    MODEL_ERROR_5,
+    MODEL_ERROR_20,
     MODEL_REWARD_ERROR,
     MODEL_TV_ERROR,
     MODEL_UPDATES,
@@ -268,6 +271,9 @@ def run_table_trial(
             tv, reward_error = agent_model_error(literally(kind), arrays, table)
             rows[point, MODEL_TV_ERROR] = tv
             rows[point, MODEL_REWARD_ERROR] = reward_error
+            rows[point, MODEL_ERROR_1] = np.nan
+            rows[point, MODEL_ERROR_5] = np.nan
+            rows[point, MODEL_ERROR_20] = np.nan
             rows[point, ENV_PHASE] = phase
             rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured

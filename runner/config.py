@@ -660,7 +660,12 @@ def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentV
     variants = []
     for combo in itertools.product(*grids.values()) if grids else [()]:
         varied = dict(zip(grids, combo, strict=True))
-        agent = cls(**fixed, **varied)
+        try:
+            agent = cls(**fixed, **varied)
+        except Exception as err:  # an own agent's constructor is the user's code and may raise anything
+            raise src.error(
+                (*path, "kind"), f"{kind} could not be built with these parameters: {type(err).__name__}: {_short(err)}"
+            ) from None
         resolved = agent.get_params()
         suffix = ", ".join(f"{k}={v}" for k, v in varied.items())
         variant_label = f"{label} ({suffix})" if suffix else label

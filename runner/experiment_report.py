@@ -70,8 +70,9 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
         refuse_incomplete(store)
         facts = store.facts()
         params = variant_params(store)
-        frame = load_results(store)
+        frame = load_results(store, params=False)  # the report reads parameters per variant (variant_params)
         records = experiment_records(store)
+        versions_line = versions_note(experiment_versions(store), len(records.undeclared))
     missing = records.missing
     experiment_facts = ExperimentFacts(
         name=facts["name"],
@@ -97,8 +98,6 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
     note = f"{declared - len(missing):,} of {count(declared, 'declared trial')} have stored results"
     if len(missing):
         note += f"; {len(missing):,} missing (not run yet, interrupted or failed): run the experiment again to add them"
-    with open_store(folder) as store:
-        versions_line = versions_note(experiment_versions(store), len(records.undeclared))
     if versions_line:
         note += "\n" + versions_line
     elif len(records.undeclared):

@@ -31,15 +31,32 @@ METRICS = (
     Metric("planning_updates", True, False, "value updates from simulated (planned) transitions so far"),
     Metric("model_updates", True, False, "updates of the learned model so far"),
     Metric("model_tv_error", False, False, "mean total-variation distance of the learned model to the true table"),
-    Metric("model_reward_error", False, False, "mean absolute reward error of the learned model"),
+    Metric(
+        "model_reward_error",
+        False,
+        False,
+        "mean absolute reward error of the learned model (against the true table, or for a function model on the "
+        "held-out real transitions)",
+    ),
     Metric("env_phase", True, False, "how many of the environment's change events have happened"),
     Metric("wall_seconds", False, True, "wall-clock seconds since the trial started"),
     Metric("cpu_seconds", False, True, "CPU seconds spent acting, learning and planning (evaluation excluded)"),
+    Metric(
+        "model_error_1",
+        False,
+        False,
+        "one-step error of a function model's next observations on held-out real transitions (root mean square, "
+        "each dimension in units of its spread)",
+    ),
+    Metric("model_error_5", False, False, "the same after 5 steps of the model's own open-loop rollouts"),
+    Metric("model_error_20", False, False, "the same after 20 steps of the model's own open-loop rollouts"),
 )
 
 METRIC_COLUMNS = tuple(m.name for m in METRICS)
-"""Columns of a metric row, in order. The model errors are NaN for model-free agents and for environments
-with no known table; the timing columns are the only ones that differ between two runs of one trial."""
+"""Columns of a metric row, in order (new ones go last: stores made before them gain them as empty columns).
+The model errors are NaN for model-free agents, the table errors for environments with no known table, and the
+function-model errors for agents that cannot `predict`; the timing columns are the only ones that differ
+between two runs of one trial."""
 
 METRIC_INDEX = {name: i for i, name in enumerate(METRIC_COLUMNS)}
 INT_COLUMNS = frozenset(m.name for m in METRICS if m.integer)
@@ -59,4 +76,7 @@ TIMING_COLUMNS = tuple(m.name for m in METRICS if m.timing)
     ENV_PHASE,
     WALL_SECONDS,
     CPU_SECONDS,
+    MODEL_ERROR_1,
+    MODEL_ERROR_5,
+    MODEL_ERROR_20,
 ) = range(len(METRIC_COLUMNS))

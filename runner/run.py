@@ -10,6 +10,8 @@ from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TextIO
 
+from numba.core import event
+
 from runner.cluster import DEFAULT_TIMEOUT, check_address, check_reachable
 from runner.config import Experiment, load_experiment
 from runner.errors import ConfigError
@@ -130,22 +132,44 @@ def _where_note(results_root: str | Path) -> str:
     return f" (under the current directory {Path.cwd()}; --results chooses another folder)"
 
 
+class _SayCompiling(event.Listener):
+    """Says once that numba is compiling, when a compilation has gone on for `after` seconds.
+
+    Loading numba's cache compiles nothing; a few tiny functions that cannot be cached (they call back into
+    Python for the clocks) compile in milliseconds on every run, so only a compilation that lasts is worth a word.
+    """
+
+    def __init__(self, out: TextIO, after: float = 1.0) -> None:
+        self.out = out
+        self.after = after
+        self.depth = 0
+        self.timer: threading.Timer | None = None
+        self.said = False
+
+    def on_start(self, _event: event.Event) -> None:
+        self.depth += 1
+        if self.depth == 1 and not self.said:
+            self.timer = threading.Timer(self.after, self._say)
+            self.timer.daemon = True
+            self.timer.start()
+
+    def on_end(self, _event: event.Event) -> None:
+        self.depth -= 1
+        if self.depth == 0 and self.timer is not None:
+            self.timer.cancel()
+            self.timer = None
+
+    def _say(self) -> None:
+        if not self.said:
+            self.said = True
+            print("compiling (first run only; later runs load the compiled code from numba's cache) ...", file=self.out)
+            self.out.flush()
+
+
 def _warm_up_saying_when_compiling(runs: list[tuple[dict, str]], out: TextIO) -> None:
-    """Warm the compiled kernels; when that takes over a second (numba compiling, not loading its cache),
-    say so once, so the wait before the first trial is explained."""
-    done = threading.Event()
-
-    def note() -> None:
-        if not done.wait(1.0):
-            print("compiling (first run only; later runs load the compiled code from numba's cache) ...", file=out)
-
-    waiter = threading.Thread(target=note, daemon=True)
-    waiter.start()
-    try:
+    """Warm the compiled kernels, saying so while numba compiles, so the wait before the first trial is explained."""
+    with event.install_listener("numba:compile", _SayCompiling(out)):
         warm_up(runs)
-    finally:
-        done.set()
-        waiter.join()
 
 
 def _confirm(experiment: Experiment, options: RunOptions, ask: Callable[[str], bool] | None) -> None:

@@ -21,7 +21,14 @@ from joblib import Parallel, delayed
 from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
 
-NAN_ALLOWED = ("train_return", "model_tv_error", "model_reward_error")
+NAN_ALLOWED = (
+    "train_return",
+    "model_tv_error",
+    "model_reward_error",
+    "model_error_1",
+    "model_error_5",
+    "model_error_20",
+)
 """Metric columns where NaN means "not applicable yet" rather than a broken trial."""
 
 __all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "run_parallel", "warm_up"]

@@ -11,7 +11,7 @@ import numpy as np
 
 from runner.streams import new_stream
 
-__all__ = ["TrialStreams", "trial_streams"]
+__all__ = ["TrialStreams", "held_out_sequence", "trial_streams"]
 
 
 @dataclass(frozen=True)
@@ -41,3 +41,9 @@ def trial_streams(seed: int) -> TrialStreams:
     return TrialStreams(
         env=env_ss, eval_env=eval_env_ss, agent=new_stream(agent_ss), evaluation=new_stream(eval_policy_ss)
     )
+
+
+def held_out_sequence(seed: int) -> np.random.SeedSequence:
+    """The stream of a trial's held-out real transitions (`runner.models.held_out`): the trial seed's fourth
+    child, independent of the three `trial_streams` spawns and the same for every agent of the seed."""
+    return np.random.SeedSequence(seed, spawn_key=(3,))

@@ -16,6 +16,7 @@ import numpy as np
 
 from runner.analysis.frames import open_store
 from runner.envs.grid import parse_grid_map
+from runner.envs.sources import build_env
 from runner.metrics import INT_COLUMNS, METRIC_COLUMNS, TIMING_COLUMNS
 from runner.rerun import compare_rows, select_trials
 from runner.schedule import warm_up
@@ -27,6 +28,8 @@ __all__ = ["ARROWS", "ShownTrial", "policy_map", "show_trial"]
 
 ARROWS = "^>v<"
 """The greedy action drawn in a cell: north, east, south, west (the grid maps' action order)."""
+_LAKE_ARROWS = "<v>^"
+"""FrozenLake's action order: left, down, right, up."""
 _TIED = "?"
 """A cell whose action values all tie (never learned there): no preferred action to draw."""
 _SHOWN_COLUMNS = (
@@ -66,18 +69,14 @@ class ShownTrial:
         return "\n".join(lines)
 
     def drawing(self) -> list[str]:
-        """The greedy policy and learned values on the map of the trial's last phase (grid maps only)."""
-        env = self.spec.get("env", {})
-        if env.get("source") != "grid" or self.final_values is None:
+        """The greedy policy and learned values on the map of the trial's last phase (grid maps and FrozenLake)."""
+        layout = _layout(self.spec.get("env", {}), int(self.rows["env_phase"][-1]))
+        if layout is None or self.final_values is None:
             return []
-        maps = [env["map"], *(change["map"] for change in env.get("changes") or [])]
-        phase = int(self.rows["env_phase"][-1])
-        rows = parse_grid_map(maps[phase])
-        which = f"map of phase {phase} (after {phase} of {len(maps) - 1} changes)" if len(maps) > 1 else "map"
-        arrows, values = policy_map(rows, self.final_values)
+        rows, arrows_of, fixed, which, cells = layout
+        arrows, values = policy_map(rows, self.final_values, arrows=arrows_of, fixed=fixed)
         return [
-            f"greedy policy at the end, on the {which} (^ > v < the best action; ? where all actions tie; "
-            "# wall, G goal, X hazard):",
+            f"greedy policy at the end, on the {which} (^ > v < the best action; ? where all actions tie; {cells}):",
             *("  " + line for line in arrows),
             "",
             "learned state values at the end (the best action value of each cell):",
@@ -85,19 +84,43 @@ class ShownTrial:
         ]
 
 
-def policy_map(rows: tuple[str, ...], values: np.ndarray) -> tuple[list[str], list[str]]:
+def _layout(env: dict, phase: int) -> tuple[tuple[str, ...], str, str, str, str] | None:
+    """Map rows, arrows in action order, cells drawn as themselves, which map, and what the cells mean; None for
+    environments that are not drawn on a map."""
+    if env.get("source") == "grid":
+        maps = [env["map"], *(change["map"] for change in env.get("changes") or [])]
+        which = f"map of phase {phase} (after {phase} of {len(maps) - 1} changes)" if len(maps) > 1 else "map"
+        return parse_grid_map(maps[phase]), ARROWS, "#GX", which, "# wall, G goal, X hazard"
+    if env.get("source") == "gym" and str(env.get("id", "")).startswith("FrozenLake"):
+        built = build_env(env)
+        try:
+            desc = built.unwrapped.desc
+        finally:
+            built.close()
+        rows = tuple("".join(cell.decode() for cell in row) for row in desc)
+        return rows, _LAKE_ARROWS, "HG", f"{env['id']} lake", "H hole, G goal"
+    return None
+
+
+def policy_map(
+    rows: tuple[str, ...], values: np.ndarray, *, arrows: str = ARROWS, fixed: str = "#GX"
+) -> tuple[list[str], list[str]]:
     """The greedy action of every cell drawn on the map, and the learned state values laid out like the map.
 
     Parameters
     ----------
     rows : tuple of str
-        The parsed map, one string per row.
-    values : ndarray of shape (n_rows * n_cols, 4)
-        Action values per cell (row-major) and action (north, east, south, west).
+        The map, one string per row.
+    values : ndarray of shape (n_rows * n_cols, n_actions)
+        Action values per cell (row-major) and action.
+    arrows : str
+        The arrow of each action, in action order (grid maps: north, east, south, west).
+    fixed : str
+        Cells drawn as themselves, with no arrow: walls (no value shown), goals and hazards or holes.
     """
     width = len(rows[0])
     cells = "".join(rows)
-    arrows, numbers = [], []
+    drawn, numbers = [], []
     state_values = values.max(axis=1)
     shown = [f"{v:.2f}" for v in state_values]
     pad = max(len(text) for text in shown)
@@ -106,17 +129,17 @@ def policy_map(rows: tuple[str, ...], values: np.ndarray) -> tuple[list[str], li
         for c in range(width):
             s = r * width + c
             cell = cells[s]
-            if cell in "#GX":
+            if cell in fixed:
                 line.append(cell)
                 value_line.append((" " if cell == "#" else cell).rjust(pad))
                 continue
             row_values = values[s]
             best = np.flatnonzero(row_values == row_values.max())
-            line.append(_TIED if best.size == row_values.size else ARROWS[int(best[0])])
+            line.append(_TIED if best.size == row_values.size else arrows[int(best[0])])
             value_line.append(shown[s].rjust(pad))
-        arrows.append("".join(line))
+        drawn.append("".join(line))
         numbers.append(" ".join(value_line))
-    return arrows, numbers
+    return drawn, numbers
 
 
 def rows_table(rows: dict[str, np.ndarray]) -> list[str]:

@@ -219,6 +219,17 @@ class Store:
                 f"{self.path}: written by another stepmeter release ({found}, this one reads {SCHEMA_VERSION}); "
                 "run the experiment again with --start-over, or use the release that wrote it"
             )
+        self._add_new_metric_columns()
+
+    def _add_new_metric_columns(self) -> None:
+        """Metric columns added to the schema after this store was made join it empty (NaN), at the end, where
+        `runner.metrics` appends them."""
+        have = {row[1] for row in self.conn.execute("PRAGMA table_info(metrics)")}
+        missing = [c for c in METRIC_COLUMNS if c not in have]
+        if missing:
+            with self.conn:
+                for c in missing:
+                    self.conn.execute(f"ALTER TABLE metrics ADD COLUMN {c} {'INTEGER' if c in INT_COLUMNS else 'REAL'}")
 
     def _has_meta(self) -> bool:
         return (

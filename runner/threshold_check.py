@@ -42,7 +42,8 @@ def _phase_text(phase: int, changes: tuple[int, ...]) -> str:
 
 
 def threshold_warnings(experiment: Experiment) -> list[str]:
-    """One line per threshold above the best possible value, as "file:line: key path: warning: ...".
+    """One line per threshold above the best possible value, as "file:line: key path: warning: ...", and one
+    note per environment whose thresholds cannot be checked (not table-backed).
 
     Greedy-return thresholds are compared with `best_return` within the environment's evaluation step cap;
     earning thresholds with `best_earning_rate`.
@@ -53,6 +54,14 @@ def threshold_warnings(experiment: Experiment) -> list[str]:
         if env.threshold is None and env.earning_threshold is None:
             continue
         tables, changes = _tables(env)
+        if not tables:
+            declared = [k for k in ("threshold", "earning_threshold") if k in src.data["environments"][i]]
+            path = ("environments", i, declared[0]) if declared else ("environments", i)
+            lines.append(
+                f"{src.file}:{src.line(path)}: {format_path(path)}: note: not checked against the best possible "
+                f"value: {env.label!r} is not table-backed, so no true table can be solved; make sure it can be "
+                "reached (e.g. from a hand-made policy or a pilot run)"
+            )
         for phase, table in enumerate(tables):
             where = _phase_text(phase, changes)
             if env.threshold is not None:

@@ -29,11 +29,20 @@ from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.metrics import METRIC_COLUMNS
-from runner.seeding import TrialStreams, trial_streams
+from runner.models.held_out import collect_held_out, model_errors
+from runner.seeding import TrialStreams, held_out_sequence, trial_streams
 from runner.streams import new_stream
 from runner.tags import EnvTags
 
-__all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
+__all__ = [
+    "METRIC_COLUMNS",
+    "TRIAL_PATHS",
+    "TrialResult",
+    "environment_path",
+    "evaluate_greedy",
+    "resolve_path",
+    "run_trial",
+]
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
 """`auto` takes the compiled path whenever the agent has compiled kernels (its tags say so) and the environment
@@ -128,7 +137,9 @@ def _env_facts(env_json: str) -> _EnvFacts:
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
     """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can: an agent kind
-    with compiled kernels on a table-backed environment, or on a binned one with compiled dynamics)."""
+    with compiled kernels on a table-backed environment, on a binned one with compiled dynamics, or on compiled
+    dynamics seen as a box by a kind that takes boxes, unless that kind can `predict`: its model error is measured
+    step by step)."""
     if path not in TRIAL_PATHS:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
@@ -145,7 +156,26 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
         )
     if path == "compiled" and not compiled_agent:
         raise EnvironmentSourceError(f"the compiled path needs an agent kind with compiled kernels; {kind} has none")
+    if (
+        path == "auto"
+        and box
+        and tags.learned_model == "function"
+        and callable(getattr(agent_class(kind), "predict", None))
+    ):
+        return "gymnasium"  # its model error is measured between steps (`runner.models.held_out`)
     return "compiled" if path != "gymnasium" and compiled_env and compiled_agent else "gymnasium"
+
+
+def environment_path(env_spec: dict[str, Any]) -> str:
+    """How trials of agent kinds with compiled kernels run on this environment, in a few words (for `check`)."""
+    facts = _env_facts(json.dumps(env_spec, sort_keys=True))
+    if facts.table is not None:
+        return "compiled kinds run whole trials compiled (table-backed)"
+    if facts.dynamics is not None:
+        return "compiled kinds run whole trials compiled (compiled dynamics through bins)"
+    if facts.box is not None:
+        return "compiled kinds that take boxes run whole trials compiled (compiled dynamics)"
+    return "trials run step by step"
 
 
 def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0) -> TrialResult:
@@ -218,6 +248,14 @@ def _run_compiled(
     )
 
 
+def _predicts(agent: TabularAgent | OwnAgent) -> bool:
+    """Whether the agent has a function model the trial can ask: an own agent with `predict`, or a kind whose
+    tags say `learned_model="function"` and that has `predict(observation, action)`."""
+    if isinstance(agent, OwnAgent):
+        return agent.has_model()
+    return agent.tags.learned_model == "function" and callable(getattr(agent, "predict", None))
+
+
 def _run_gymnasium(
     spec: dict[str, Any], agent: TabularAgent | OwnAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
 ) -> TrialResult:
@@ -233,6 +271,11 @@ def _run_gymnasium(
     recent: deque[float] = deque(maxlen=ev["training_window"])
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
     read = _reader(facts.tags.observation)
+    held = None
+    if _predicts(agent) and facts.tags.observation == "box":
+        held_env = build_env(spec["env"])
+        held = collect_held_out(held_env, held_out_sequence(spec["seed"]))
+        held_env.close()
     phase = 0
     earned = 0.0
     start = time.perf_counter()
@@ -255,6 +298,12 @@ def _run_gymnasium(
             rows[name][point] = value
         errors = agent.model_error(tables[phase]) if tables is not None else (np.nan, np.nan)
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
+        if held is not None:
+            one_step, reward_error, *rollouts = model_errors(agent.predict, held)
+            rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
+            rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
+        else:
+            rows["model_error_1"][point] = rows["model_error_5"][point] = rows["model_error_20"][point] = np.nan
         rows["env_phase"][point] = phase
         rows["wall_seconds"][point] = time.perf_counter() - start
         measured += time.process_time() - measuring

@@ -7,6 +7,7 @@ import pandas as pd
 import pytest
 from scipy import stats
 
+from runner.analysis import seed_plots
 from runner.analysis.report import ExperimentFacts, write_report
 from runner.analysis.seeds import OUTLIER_Z, SEED_FLAG_COLUMNS, collapsed_seeds, modified_z, outlying_seeds
 
@@ -124,3 +125,24 @@ def test_report_lists_flagged_seeds_and_draws_every_seed(tmp_path):
     assert "Learning curves, seed by seed" in html
     assert any("warehouse-sweeper-3" in warning for warning in output.warnings)
     assert "## Methods" in (tmp_path / "summary.md").read_text(encoding="utf-8")
+
+
+def test_per_seed_figure_draws_flagged_seeds_first_and_at_most_seed_lines(tmp_path, monkeypatch):
+    monkeypatch.setattr(seed_plots, "SEED_LINES", 3)
+    frame = _frame()
+    rows = frame[(frame["env"] == "warehouse") & (frame["agent"] == "sweeper")]
+    drawn, total = seed_plots._drawn_trials(rows, {"warehouse-sweeper-6"})
+    assert total == 8
+    assert list(drawn.items()) == [("warehouse-sweeper-6", 6), ("warehouse-sweeper-0", 0), ("warehouse-sweeper-1", 1)]
+    paths = seed_plots.plot_seed_curves(
+        frame,
+        "warehouse",
+        agents=["sweeper"],
+        column="eval_return",
+        threshold=0.95,
+        flagged={"warehouse-sweeper-6"},
+        out_dir=tmp_path,
+        title="capped",
+    )
+    assert [path.name for path in paths] == ["curves_seeds_warehouse.png", "curves_seeds_warehouse.svg"]
+    assert "3 of 8 seeds" in paths[1].read_text(encoding="utf-8")

@@ -20,6 +20,7 @@ from runner.analysis.curves import trial_scores
 from runner.analysis.measures import with_earning_rate
 from runner.envs.grid import GridWorld
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 # Blocking maze (Example 8.2, Figure 8.4): the wall's gap moves from the right end to the left end.
 GAP_RIGHT = "........G\n.........\n.........\n########.\n.........\n...S....."
@@ -42,14 +43,17 @@ def _spec(agent, first, changes, steps, seed, step_reward=0.0, goal_reward=1.0, 
     }
     if changes:
         env["changes"] = changes
-    return {
-        "format": 1,
-        "env": env,
-        "agent": {"kind": agent.kind, "params": agent.get_params()},
-        "seed": seed,
-        "real_steps": steps,
-        "evaluation": {"every": every or steps, "episodes": 1, "step_cap": cap, "training_window": 5},
-    }
+    return TrialSpec.build(
+        env,
+        agent.kind,
+        agent.get_params(),
+        seed,
+        steps,
+        every=every or steps,
+        episodes=1,
+        step_cap=cap,
+        training_window=5,
+    ).as_dict()
 
 
 def _goals_between(result, low, high):

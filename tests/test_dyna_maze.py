@@ -15,6 +15,7 @@ from runner.agents.q_learning import QLearning
 from runner.envs.grid import GridWorld
 from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 MAZE = """\
 .......#G
@@ -51,14 +52,17 @@ def _env_spec() -> dict:
 
 
 def _spec(kind: str, params: dict, seed: int, real_steps: int, every: int) -> dict:
-    return {
-        "format": 1,
-        "env": _env_spec(),
-        "agent": {"kind": kind, "params": params},
-        "seed": seed,
-        "real_steps": real_steps,
-        "evaluation": {"every": every, "episodes": 1, "step_cap": 100, "training_window": 10},
-    }
+    return TrialSpec.build(
+        _env_spec(),
+        kind,
+        params,
+        seed,
+        real_steps,
+        every=every,
+        episodes=1,
+        step_cap=100,
+        training_window=10,
+    ).as_dict()
 
 
 def test_maze_layout_matches_the_book():

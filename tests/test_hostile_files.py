@@ -228,6 +228,20 @@ CASES = [
         "failed: SystemExit: 3",
         files={"hostile_exiting_module.py": "import sys\nsys.exit(3)\n"},
     ),
+    Hostile(
+        "own-agent-constructor-raises",
+        _agent("{kind: 'hostile_own_agent:Agent'}"),
+        "hostile_own_agent:Agent could not be built with these parameters: RuntimeError: no",
+        files={
+            "hostile_own_agent.py": "from runner.tags import AgentTags\n"
+            "class Agent:\n"
+            "    schema = ()\n"
+            "    tags = AgentTags(compiled=False)\n"
+            "    def __init__(self, **params):\n"
+            "        raise RuntimeError('no')\n"
+            "    setup = act = observe = greedy_action = counters = print\n"
+        },
+    ),
     # environments
     Hostile("environments-a-mapping", _HEAD + "environments: {grid: {map: S.G}}\n" + _AGENT, "got a mapping"),
     Hostile("unknown-env-key", _env("{grid: {map: S.G}, treshold: 1}"), "did you mean 'threshold'?"),

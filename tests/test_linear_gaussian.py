@@ -9,7 +9,7 @@ from runner.agents import make_agent
 from runner.agents.linear_gaussian import posterior_update, predictive, standard_normal
 from runner.metrics import TIMING_COLUMNS
 from runner.streams import new_stream
-from runner.trial import run_trial
+from runner.trial import resolve_path, run_trial
 from runner.trial_spec import TrialSpec
 
 PRIOR_VAR, NOISE_VAR = 2.0, 0.3
@@ -60,8 +60,9 @@ def test_predicts_a_linear_system_from_raw_features():
         s = rng.uniform(-1, 1, size=2)
         agent.observe(s, 1, float(s @ v), a @ s + c + 1e-3 * rng.normal(size=2), False)
     s = np.array([0.3, -0.4])
-    nxt, reward, ended = agent.predict(s, 1)
-    assert np.allclose(nxt, a @ s + c, atol=1e-2) and abs(reward - s @ v) < 1e-2 and ended < 1e-2
+    nxt, reward = agent.predict(s, 1)
+    assert np.allclose(nxt, a @ s + c, atol=1e-2) and abs(reward - s @ v) < 1e-2
+    assert agent.end_probability(s, 1) < 1e-2
 
 
 def test_normal_draws_pass_a_ks_test():
@@ -72,20 +73,37 @@ def test_normal_draws_pass_a_ks_test():
 
 
 def test_planning_zero_is_linear_q_learning_bit_for_bit():
+    """On both trial paths (the model's error columns aside: only the model agent measures them)."""
     env = {"source": "gym", "id": "stepmeter/OverheadCrane-v0", "options": {}, "step_limit": 100}
     common = {"alpha": 0.3, "gamma": 0.99, "epsilon": 0.1, "features": {"kind": "fourier", "order": 1}}
 
-    def run(kind, **extra):
+    def run(kind, path="gymnasium", **extra):
         spec = TrialSpec.build(
             env, kind, {**common, **extra}, 4, 900, every=300, episodes=2, step_cap=100, training_window=5
         )
-        return run_trial(spec.as_dict())
+        return run_trial(spec.as_dict(), path)
 
-    model, plain = run("linear_gaussian", planning_steps=0), run("linear_q_learning")
-    assert np.array_equal(model.final_values, plain.final_values)
-    for column, values in plain.rows.items():
-        if column not in (*TIMING_COLUMNS, "model_updates"):
-            assert np.array_equal(model.rows[column], values, equal_nan=True), column
+    model_columns = ("model_updates", "model_reward_error", "model_error_1", "model_error_5", "model_error_20")
+    for path in ("gymnasium", "compiled"):
+        model, plain = run("linear_gaussian", path, planning_steps=0), run("linear_q_learning", path)
+        assert np.array_equal(model.final_values, plain.final_values)
+        for column, values in plain.rows.items():
+            if column not in (*TIMING_COLUMNS, *model_columns):
+                assert np.array_equal(model.rows[column], values, equal_nan=True), column
     planned = run("linear_gaussian", planning_steps=4, sampling="predictive", rollout_length=3)
     assert planned.rows["planning_updates"][-1] == 4 * 900
     assert not np.array_equal(planned.final_values, plain.final_values)
+
+
+def test_reports_its_model_error_on_held_out_transitions():
+    """Through the model-error contract (`runner.models.held_out`): what is predicted is the next observation and
+    the reward; auto takes the step-by-step path, where the errors are measured, and they fall as it learns."""
+    env = {"source": "gym", "id": "MountainCar-v0", "options": {}, "step_limit": None}
+    params = {"planning_steps": 1, "features": {"kind": "fourier", "order": 3}}
+    spec = TrialSpec.build(
+        env, "linear_gaussian", params, 0, 2000, every=1000, episodes=1, step_cap=50, training_window=2
+    )
+    assert resolve_path(spec.as_dict()) == "gymnasium"
+    rows = run_trial(spec.as_dict()).rows
+    assert np.all(np.isfinite(rows["model_error_1"])) and np.all(np.isfinite(rows["model_error_20"]))
+    assert rows["model_error_1"][-1] < 0.5 * rows["model_error_1"][0]

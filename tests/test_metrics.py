@@ -5,6 +5,7 @@ import pytest
 
 from runner.metrics import INT_COLUMNS, METRIC_COLUMNS, METRIC_INDEX, TIMING_COLUMNS
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 # Every step costs 1 and so does reaching the goal, so the reward earned after n real steps is exactly -n.
 _ENV = {
@@ -20,14 +21,17 @@ _ENV = {
 
 
 def _spec(kind, params):
-    return {
-        "format": 1,
-        "env": _ENV,
-        "agent": {"kind": kind, "params": params},
-        "seed": 3,
-        "real_steps": 2000,
-        "evaluation": {"every": 250, "episodes": 3, "step_cap": 30, "training_window": 5},
-    }
+    return TrialSpec.build(
+        _ENV,
+        kind,
+        params,
+        3,
+        2000,
+        every=250,
+        episodes=3,
+        step_cap=30,
+        training_window=5,
+    ).as_dict()
 
 
 def test_schema_positions_types_and_timing_columns_agree():

@@ -9,6 +9,7 @@ from runner.agents.q_learning import QLearning
 from runner.envs.sources import build_env
 from runner.envs.table import _closed_cdfs, table_from_env
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 # One state, one action: with probability 0.7 stay (reward 1), with 0.3 the episode ends (reward 0).
 
@@ -64,14 +65,17 @@ def test_model_free_agents_have_no_model_error():
 
 
 def _spec(agent, steps):
-    return {
-        "format": 1,
-        "env": {"source": "gym", "id": "FrozenLake-v1", "options": {}, "step_limit": None},
-        "agent": {"kind": agent.kind, "params": agent.get_params()},
-        "seed": 3,
-        "real_steps": steps,
-        "evaluation": {"every": steps // 10, "episodes": 2, "step_cap": 100, "training_window": 5},
-    }
+    return TrialSpec.build(
+        {"source": "gym", "id": "FrozenLake-v1", "options": {}, "step_limit": None},
+        agent.kind,
+        agent.get_params(),
+        3,
+        steps,
+        every=steps // 10,
+        episodes=2,
+        step_cap=100,
+        training_window=5,
+    ).as_dict()
 
 
 @pytest.mark.parametrize("path", ["compiled", "gymnasium"])

@@ -20,6 +20,7 @@ from runner.envs.table import table_from_env, why_not_table_backed
 from runner.errors import EnvironmentSourceError
 from runner.streams import new_stream
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 SLIPPERY_GRID = {
     "source": "grid",
@@ -95,14 +96,17 @@ def test_compiled_start_states_match_gymnasium_reset():
 def _aucs(spec_env, agent, seeds, path):
     out = []
     for seed in seeds:
-        spec = {
-            "format": 1,
-            "env": spec_env,
-            "agent": {"kind": agent.kind, "params": agent.get_params()},
-            "seed": seed,
-            "real_steps": 3000,
-            "evaluation": {"every": 300, "episodes": 10, "step_cap": 100, "training_window": 10},
-        }
+        spec = TrialSpec.build(
+            spec_env,
+            agent.kind,
+            agent.get_params(),
+            seed,
+            3000,
+            every=300,
+            episodes=10,
+            step_cap=100,
+            training_window=10,
+        ).as_dict()
         result = run_trial(spec, path)
         assert result.trial_path == path
         out.append(normalized_auc(result.rows["real_steps"], result.rows["eval_return"]))
@@ -130,14 +134,17 @@ def test_steps_outside_the_table_are_refused():
     fickle = {"source": "gym", "id": "Taxi-v4", "options": {"fickle_passenger": True}, "step_limit": None}
     env = build_env(fickle)
     assert "fickle_passenger" in why_not_table_backed(env)
-    spec = {
-        "format": 1,
-        "env": fickle,
-        "agent": {"kind": "q_learning", "params": QLearning().get_params()},
-        "seed": 0,
-        "real_steps": 20,
-        "evaluation": {"every": 10, "episodes": 1, "step_cap": 5, "training_window": 2},
-    }
+    spec = TrialSpec.build(
+        fickle,
+        "q_learning",
+        QLearning().get_params(),
+        0,
+        20,
+        every=10,
+        episodes=1,
+        step_cap=5,
+        training_window=2,
+    ).as_dict()
     with pytest.raises(EnvironmentSourceError, match="fickle_passenger"):
         run_trial(spec, "compiled")
     assert run_trial(spec).trial_path == "gymnasium"
@@ -174,14 +181,17 @@ class OwnQLearning(QLearning):
 
 def test_a_users_agent_kind_runs_on_the_compiled_path():
     def spec(kind):
-        return {
-            "format": 1,
-            "env": SLIPPERY_GRID,
-            "agent": {"kind": kind, "params": QLearning().get_params()},
-            "seed": 4,
-            "real_steps": 500,
-            "evaluation": {"every": 100, "episodes": 3, "step_cap": 40, "training_window": 5},
-        }
+        return TrialSpec.build(
+            SLIPPERY_GRID,
+            kind,
+            QLearning().get_params(),
+            4,
+            500,
+            every=100,
+            episodes=3,
+            step_cap=40,
+            training_window=5,
+        ).as_dict()
 
     own = run_trial(spec(f"{__name__}:OwnQLearning"), "compiled")
     builtin = run_trial(spec("q_learning"), "compiled")

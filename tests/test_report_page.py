@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 import shutil
 import subprocess
-from itertools import combinations
+from itertools import combinations, pairwise
 from pathlib import Path
 
 import numpy as np
@@ -217,7 +217,7 @@ def test_efficiency_headline_and_terminal_text(report):
     break_even = pd.read_csv(out_dir / "break_even.csv")
     assert len(rest) == len(ratios) + int((break_even["rival"] == "Q-learning").sum())
     assert output.terminal_text.startswith(output.headline[0])
-    assert "page experiment (budget 2000 real steps" in output.terminal_text
+    assert "page experiment (budget 2,000 real steps" in output.terminal_text
     markdown = (out_dir / "summary.md").read_text(encoding="utf-8")
     assert "## Headline" in markdown
     assert output.headline[0] in markdown
@@ -243,16 +243,23 @@ def test_comparisons_cover_every_pair_of_every_env(report):
 def test_seeds_advice_uses_shares_of_the_return_range(report):
     out_dir, _ = report
     advice = pd.read_csv(out_dir / "seeds_advice.csv")
-    assert len(advice) == len(_ENVS) * (len(_AGENTS) - 1) * len(ADVICE_SHARES)
-    assert (advice["agent_b"] == "Q-learning").all()
-    assert set(advice["share_of_range"]) == set(ADVICE_SHARES)
+    baseline = advice[advice["pair"] == "against the baseline"]
+    assert len(baseline) == len(_ENVS) * (len(_AGENTS) - 1) * len(ADVICE_SHARES)
+    assert (baseline["agent_b"] == "Q-learning").all()
+    # Close contenders: each agent against the one ranked just above it by mean AUC, unless that is the baseline.
+    scores = pd.read_csv(out_dir / "trial_scores.csv")
+    for env, rows in advice[advice["pair"] == "against the next better"].groupby("env"):
+        ranked = scores[scores["env"] == env].groupby("agent")["auc"].mean().sort_values(ascending=False).index
+        pairs = {(worse, better) for better, worse in pairwise(ranked) if "Q-learning" not in (better, worse)}
+        assert set(zip(rows["agent_a"], rows["agent_b"], strict=True)) == pairs
+    assert np.allclose(sorted(set(advice["share_of_range"].round(12))), ADVICE_SHARES)
     frame = _frame()
     for env, rows in advice.groupby("env"):
         span = frame.loc[frame["env"] == env, "eval_return"].agg(np.ptp)
         assert np.allclose(rows["difference"], rows["share_of_range"] * span)
         assert np.allclose(rows["return_range"], span)
     # A larger difference never needs more seeds.
-    for _, rows in advice.groupby(["env", "agent_a"]):
+    for _, rows in advice.groupby(["env", "agent_a", "agent_b"]):
         needed = rows.sort_values("difference")["seeds_needed"].to_numpy()
         assert (np.diff(needed) <= 0).all()
 
@@ -411,7 +418,8 @@ def test_no_baseline_and_no_threshold_still_write_a_page(tmp_path):
     assert "the experiment declares no baseline agent" in html
     assert not list(tmp_path.glob("threshold_*.png")) and not list(tmp_path.glob("frontier_*.png"))
     advice = pd.read_csv(tmp_path / "seeds_advice.csv")
-    assert set(advice["agent_b"]) == {_LABELS[0]}  # the first agent stands in for the missing baseline
+    against = advice[advice["pair"] == "against the baseline"]
+    assert set(against["agent_b"]) == {_LABELS[0]}  # the first agent stands in for the missing baseline
 
 
 def _chromium() -> str:
@@ -482,3 +490,30 @@ def test_report_of_a_stored_experiment_carries_its_records(tmp_path):
     assert len(output.headline) == 2 * len(ratios)  # no costs block: ratios, then break-even prices
     # On the maze: dyna x 3 and ce against q, each with a ratio and a break-even price.
     assert sum(sentence.startswith("On maze,") for sentence in output.headline) == 8
+
+
+def test_frontier_reads_a_median_at_the_first_point_as_a_bound():
+    from runner.analysis.page import frontier_view
+
+    rows = pd.DataFrame(
+        {
+            "env": "aisle",
+            "agent": ["coarse", "measured"],
+            "kind": "dyna_q",
+            "updates_per_real": [6.0, 1.0],
+            "planning_per_real": [5.0, 0.0],
+            "cpu_us_per_real": [40.0, np.nan],
+            "cpu_us_low": [35.0, np.nan],
+            "cpu_us_high": [45.0, np.nan],
+            "reached_share": [1.0, 1.0],
+            "median_steps": [1000.0, 3000.0],
+            "median_low": [np.nan, 2000.0],
+            "median_high": [np.nan, 4000.0],
+            "first_point": [1000.0, 1000.0],
+            "on_frontier": [True, False],
+        }
+    )
+    view = frontier_view(rows)
+    cells = dict(zip(view.frame()["agent"], view.frame()["median real steps [low, high]"], strict=True))
+    assert cells == {"coarse": "at or before 1,000", "measured": "3,000 [2,000, 4,000]"}
+    assert view.frame()["CPU µs per real step, median [low, high]"].tolist()[1] == "n/a"

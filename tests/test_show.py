@@ -101,3 +101,24 @@ def test_policy_map_marks_ties_walls_and_the_best_action():
     arrows, numbers = policy_map(rows, values)
     assert arrows == [">?#", "^XG"]  # cell 1 never learned: all actions tie
     assert numbers == ["0.50 0.00     ", "0.90    X    G"]
+
+
+def test_frozen_lake_is_drawn_with_its_own_action_order(tmp_path, capsys):
+    (tmp_path / "lake.yaml").write_text(
+        "experiment: lake\nseeds: 1\nreal_steps: 2000\nevaluation: {every: 1000, episodes: 5}\n"
+        "environments:\n  - gym: FrozenLake-v1\nagents:\n  - {label: ce, kind: certainty_equivalence}\n"
+    )
+    run_experiment(tmp_path / "lake.yaml", results_root=tmp_path / "results", options=RunOptions(jobs=1))
+    folder = tmp_path / "results" / "lake"
+    assert main(["show", str(folder), _only_id(folder)]) == 0
+    out = capsys.readouterr().out
+    assert "on the FrozenLake-v1 lake" in out and "H hole, G goal" in out
+    drawn = [line.strip() for line in out.split("H hole, G goal):")[1].splitlines()[1:5]]
+    lake = ["SFFF", "FHFH", "FFFH", "HFFG"]  # gymnasium's 4x4 map
+    for row, expected in zip(drawn, lake, strict=True):
+        for cell, known in zip(row, expected, strict=True):
+            assert cell == known if known in "HG" else cell in "<v>^?"
+    # Left, down, right, up: the best action 0 is drawn as a left arrow on FrozenLake, an up arrow on grid maps.
+    values = np.zeros((2, 4))
+    values[0, 0] = 1.0
+    assert policy_map(("SG",), values, arrows="<v>^", fixed="HG")[0] == ["<G"]

@@ -23,6 +23,7 @@ from runner.errors import EnvironmentSourceError
 from runner.planning.negamax import solve_negamax
 from runner.streams import new_stream
 from runner.trial import _env_facts, resolve_path, run_trial
+from runner.trial_spec import TrialSpec
 
 KIND = "runner.agents.self_play:NegamaxSearch"
 ENTRY = "runner.envs.takeaway:TakeAwayGame"
@@ -35,14 +36,17 @@ def game_spec(**options: object) -> dict:
 
 def trial_spec(env: dict, seed: int = 3) -> dict:
     """A short trial of the search agent (default parameters), as `runner.plan` would make it."""
-    return {
-        "format": 1,
-        "env": env,
-        "agent": {"kind": KIND, "params": {}},
-        "seed": seed,
-        "real_steps": 200,
-        "evaluation": {"every": 100, "episodes": 20, "step_cap": 30, "training_window": 10},
-    }
+    return TrialSpec.build(
+        env,
+        KIND,
+        {},
+        seed,
+        200,
+        every=100,
+        episodes=20,
+        step_cap=30,
+        training_window=10,
+    ).as_dict()
 
 
 def set_up_agent(env: TakeAwayGame, seed: int = 0, **params: object) -> NegamaxSearch:

@@ -19,6 +19,7 @@ from runner.errors import EnvironmentSourceError
 from runner.planning.tree import UNVISITED_OPTIMISTIC, model_step, table_arrays
 from runner.streams import new_stream
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 ENTRY = {
     "uct_search": "runner.agents.tree_search:UCTSearch",
@@ -69,14 +70,17 @@ def _maze_env_spec() -> dict:
 
 
 def _spec(kind: str, params: dict, seed: int, real_steps: int, every: int, step_cap: int) -> dict:
-    return {
-        "format": 1,
-        "env": _maze_env_spec(),
-        "agent": {"kind": kind, "params": params},
-        "seed": seed,
-        "real_steps": real_steps,
-        "evaluation": {"every": every, "episodes": 1, "step_cap": step_cap, "training_window": 10},
-    }
+    return TrialSpec.build(
+        _maze_env_spec(),
+        kind,
+        params,
+        seed,
+        real_steps,
+        every=every,
+        episodes=1,
+        step_cap=step_cap,
+        training_window=10,
+    ).as_dict()
 
 
 def _maze_agent(cls, **params):

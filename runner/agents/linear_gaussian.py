@@ -247,8 +247,16 @@ class LinearGaussian(LinearAgent):
             _SAMPLING_CODES[p["sampling"]],
         ]
 
-    def predict(self, observation: np.ndarray, action: int) -> tuple[np.ndarray, float, float]:
-        """The model's predictive mean next observation, reward and probability that the episode ends."""
+    def predict(self, observation: np.ndarray, action: int) -> tuple[np.ndarray, float]:
+        """The model's predictive mean next observation and reward (the model-error contract of
+        `runner.models.held_out`); `end_probability` gives its chance that the episode ends."""
+        return self._predict(observation, action)[:2]
+
+    def end_probability(self, observation: np.ndarray, action: int) -> float:
+        """The model's probability that the episode ends on this step (its regression of the end, clipped)."""
+        return self._predict(observation, action)[2]
+
+    def _predict(self, observation: np.ndarray, action: int) -> tuple[np.ndarray, float, float]:
         obs = np.asarray(observation, dtype=np.float64)
         out = np.zeros(obs.size + 2)
         arrays = self.arrays_

@@ -45,7 +45,10 @@ OWN_AGENT_METHODS = ("setup", "act", "observe", "greedy_action", "counters")
 def why_not_own_agent(cls: Any) -> str | None:
     """None when `cls` follows the plain agent protocol above; else what is missing, in a few words."""
     if not isinstance(cls, type):
-        return f"a {type(cls).__name__}, not a class"
+        return (
+            f"a {type(cls).__name__}, not a class (expected a subclass of runner.agents.TabularAgent or a plain "
+            "agent class)"
+        )
     missing = [m for m in OWN_AGENT_METHODS if not callable(getattr(cls, m, None))]
     if missing:
         return (
@@ -56,6 +59,8 @@ def why_not_own_agent(cls: Any) -> str | None:
     schema = getattr(cls, "schema", None)
     if not isinstance(schema, tuple) or not all(isinstance(p, Param) for p in schema):
         return "a class without `schema`, a tuple of runner.params.Param"
+    if cls.tags.learned_model == "function" and not callable(getattr(cls, "predict", None)):
+        return "a class whose tags say it learns a function model but that has no predict(observation, action)"
     if cls.tags.compiled or cls.tags.needs:
         return "a class whose tags claim compiled kernels, a true table or game rules (own agents have none of them)"
     return None
@@ -129,6 +134,14 @@ class OwnAgent:
         problems = [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
         own = getattr(self.agent, "counter_problems", None)
         return problems + (list(own(real_steps)) if callable(own) else [])
+
+    def has_model(self) -> bool:
+        """Whether the user's agent can predict (a learned function model whose error the trial measures)."""
+        return callable(getattr(self.agent, "predict", None))
+
+    def predict(self, observation: Any, action: Any) -> tuple[Any, float]:
+        """The user's model: (predicted next observation, predicted reward)."""
+        return self.agent.predict(observation, action)
 
     def model_error(self, table: tuple) -> tuple[float, float]:
         """Own agents' models are not compared with a true table."""

@@ -48,7 +48,7 @@ METHODS: tuple[Method, ...] = (
     ),
     Method(
         "Welch's unequal-variance t-test",
-        "is the difference in mean AUC (or reward per real step) between two variants real?",
+        "whether the difference in mean AUC (or reward per real step) between two variants is real",
         "Welch (1947), The generalization of 'Student's' problem when several different population variances are "
         "involved, Biometrika 34, 28-35",
     ),
@@ -69,6 +69,11 @@ METHODS: tuple[Method, ...] = (
         "seeds per agent to detect a chosen difference in mean AUC (exact power of the two-sample t-test)",
         "Colas, Sigaud & Oudeyer (2018), How many random seeds? Statistical power analysis in deep reinforcement "
         "learning experiments, arXiv:1806.08295",
+    ),
+    Method(
+        "Modified z-score",
+        "seeds far from their agent's other seeds (0.6745 x distance from the median / MAD beyond 3.5)",
+        "Iglewicz & Hoaglin (1993), How to Detect and Handle Outliers, ASQC Quality Press",
     ),
 )
 

@@ -516,7 +516,9 @@ def advice_note(rows: pd.DataFrame, power: float = 0.8, alpha: float = 0.05) -> 
         "return stored for it), so they read in return units like the AUC itself, whatever the reward scale. "
         f"Seeds needed: the smallest equal number per agent for a two-sided two-sample t-test at {alpha:.0%} to "
         f"detect that difference in mean AUC with {power:.0%} power, from the pilot spreads of this experiment; those "
-        "spreads are themselves uncertain with few seeds, so read the numbers as a guide."
+        "spreads are themselves uncertain with few seeds, so read the numbers as a guide. Each agent is compared "
+        "with the baseline and with the agent ranked just above it (close contenders need the most seeds); "
+        "`stepmeter seeds` prints the same advice."
     )
 
 
@@ -532,6 +534,7 @@ def advice_view(rows: pd.DataFrame, *, with_env: bool = True, title: str = "Seed
     columns += [
         ("agent", False, lambda r: str(r["agent_a"])),
         ("against", False, lambda r: str(r["agent_b"])),
+        ("why this pair", False, lambda r: str(r.get("pair", ""))),
         ("pilot seeds", True, lambda r: f"{int(r['n_a'])} / {int(r['n_b'])}"),
         ("observed AUC difference", True, lambda r: _number(r["observed_difference"])),
         (

@@ -67,7 +67,7 @@ from runner.analysis.plots import (
     plot_model_error,
     plot_threshold,
 )
-from runner.analysis.power import ADVICE_COLUMNS, seeds_advice
+from runner.analysis.power import ADVICE_SHARES, ADVICE_TABLE_COLUMNS, advice_table
 from runner.analysis.seed_plots import plot_seed_curves
 from runner.analysis.seeds import seed_flags
 from runner.analysis.tables import ordered_labels, summary_table, to_markdown, to_terminal
@@ -108,10 +108,6 @@ REQUIRED_COLUMNS = (
     "planning_updates",
     "wall_seconds",
 )
-# Seeds advice asks for AUC differences of these shares of the environment's observed return range
-# (max - min of every evaluation return stored for it): AUC is in return units, so a share of that range is
-# a difference in absolute units that stays meaningful whatever the reward scale of the environment.
-ADVICE_SHARES = (0.05, 0.1, 0.2)
 COMPUTE_COLUMNS = [
     "env",
     "agent",
@@ -434,9 +430,9 @@ def _leading_agents(means: pd.Series, agents: list[str], baseline: str | None) -
 def _advice(
     frame: pd.DataFrame, scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts
 ) -> pd.DataFrame:
-    """Seeds per agent needed to detect AUC differences of ADVICE_SHARES of each env's return range.
+    """Seeds per agent needed to detect AUC differences of ADVICE_SHARES of each env's return range
+    (`advice_table`, the same advice as `stepmeter seeds`).
 
-    Each agent is compared with the baseline, or with the first agent of the env when the baseline is absent.
     Beyond FIGURE_AGENTS variants, only the ones the figures draw are advised on (the baseline and the best).
     """
     ranges = frame.groupby("env", sort=False)["eval_return"].agg(["min", "max"])
@@ -445,20 +441,14 @@ def _advice(
         span = float(ranges.loc[env, "max"] - ranges.loc[env, "min"])
         in_env = scores[scores["env"] == env]
         env_agents = ordered_labels(in_env["agent"], agents)
-        if not math.isfinite(span) or span <= 0 or len(env_agents) < 2:
-            continue
-        reference = facts.baseline if facts.baseline in env_agents else env_agents[0]
         if len(env_agents) > FIGURE_AGENTS:
+            reference = facts.baseline if facts.baseline in env_agents else env_agents[0]
             means = in_env.groupby("agent", sort=False)["auc"].mean()
-            kept = _leading_agents(means, env_agents, reference)
-            in_env = in_env[in_env["agent"].isin(kept)]
-        differences = [share * span for share in ADVICE_SHARES]
-        table = seeds_advice(in_env, env, differences, baseline=reference, agent_order=agents)
-        shares = dict(zip(differences, ADVICE_SHARES, strict=True))
-        parts.append(table.assign(share_of_range=table["difference"].map(shares), return_range=span))
-    if not parts:
-        return pd.DataFrame(columns=[*ADVICE_COLUMNS, "share_of_range", "return_range"])
-    return pd.concat(parts, ignore_index=True)
+            in_env = in_env[in_env["agent"].isin(_leading_agents(means, env_agents, reference))]
+        table = advice_table(in_env, env, span, baseline=facts.baseline, agent_order=agents)
+        if len(table):
+            parts.append(table)
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=ADVICE_TABLE_COLUMNS)
 
 
 # --- figure data ----------------------------------------------------------------------------------------------
@@ -1171,7 +1161,7 @@ def write_report(
             warnings=warnings,
         )
     )
-    header = f"{facts.name} (budget {facts.budget} real steps, baseline: {facts.baseline or 'none declared'})"
+    header = f"{facts.name} (budget {facts.budget:,} real steps, baseline: {facts.baseline or 'none declared'})"
     lead = "\n".join([*headline, *(f"warning: {w}" for w in warnings)])
     lead = f"{lead}\n\n" if lead else ""
     terminal_text = f"{lead}{header}\n\n{to_terminal(data.summary)}"
