@@ -3,8 +3,8 @@ saves real steps on Mountain Car."""
 
 import numpy as np
 import pytest
-from scipy import stats
 from numba import njit
+from scipy import stats
 
 from runner.agents import make_agent
 from runner.agents.linear_dyna import linear_model_update
