@@ -51,7 +51,8 @@ def _parser() -> argparse.ArgumentParser:
         choices=("auto", "compiled", "gymnasium"),
         default="auto",
         help="auto (default): whole trials in compiled code for agent kinds with compiled kernels on table-backed "
-        "environments or on compiled dynamics seen through bins, else step by step through gymnasium; gymnasium "
+        "environments or on compiled dynamics (through bins, or as a box for kinds that take boxes), else step by step "
+        "through gymnasium, which also measures function models' errors; gymnasium "
         "forces the step-by-step path",
     )
 

@@ -5,8 +5,9 @@ The loop mirrors `runner.compiled_dynamics_trial` (which serves the tabular kind
 agent the observation itself (float32-rounded values as float64, as the step-by-step path does). Truncation at the
 step limit is the loop's, as gymnasium's `TimeLimit` does; an agent bootstraps on a truncated step. Start states
 come from a compiled stream, so this path and the step-by-step one are the same experiment in distribution. The
-function-model error columns are NaN here: a kind that can `predict` runs step by step under `auto`, where the
-trial measures them (`runner.models.held_out`).
+function-model error columns are NaN here: the step-by-step path (`--path gymnasium`) measures them between steps
+(`runner.models.held_out`). `auto` still takes this loop for such kinds, so every kind of an experiment sees the
+same environment randomness per seed (linear-Gaussian at planning 0 equals linear Q-learning bit for bit).
 """
 
 from __future__ import annotations

@@ -138,8 +138,7 @@ def _env_facts(env_json: str) -> _EnvFacts:
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
     """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can: an agent kind
     with compiled kernels on a table-backed environment, on a binned one with compiled dynamics, or on compiled
-    dynamics seen as a box by a kind that takes boxes, unless that kind can `predict`: its model error is measured
-    step by step)."""
+    dynamics seen as a box by a kind that takes boxes)."""
     if path not in TRIAL_PATHS:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
@@ -156,13 +155,6 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
         )
     if path == "compiled" and not compiled_agent:
         raise EnvironmentSourceError(f"the compiled path needs an agent kind with compiled kernels; {kind} has none")
-    if (
-        path == "auto"
-        and box
-        and tags.learned_model == "function"
-        and callable(getattr(agent_class(kind), "predict", None))
-    ):
-        return "gymnasium"  # its model error is measured between steps (`runner.models.held_out`)
     return "compiled" if path != "gymnasium" and compiled_env and compiled_agent else "gymnasium"
 
 

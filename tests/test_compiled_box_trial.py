@@ -26,20 +26,19 @@ def _spec(kind, env_id, params, seed=0, steps=3000, bins=None):
 
 @pytest.mark.parametrize("kind", ["linear_sarsa", "linear_q_learning", "linear_dyna", "linear_gaussian"])
 def test_compiled_path_is_chosen_and_reproducible(kind):
-    """Auto takes the compiled loop, except for a kind that can predict (its model error is measured step by
-    step); forced, the loop gives the same rows for the same seed and other weights for another."""
+    """Auto takes the compiled loop; it gives the same rows for the same seed and other weights for another."""
     params = {"features": {"kind": "fourier", "order": 2}}
     if kind in ("linear_dyna", "linear_gaussian"):
         params["planning_steps"] = 2
     spec = _spec(kind, "MountainCar-v0", params).as_dict()
-    assert resolve_path(spec) == ("gymnasium" if kind == "linear_gaussian" else "compiled")  # it can predict
-    first, again = run_trial(spec, "compiled"), run_trial(spec, "compiled")
+    assert resolve_path(spec) == "compiled"
+    first, again = run_trial(spec), run_trial(spec)
     assert first.trial_path == "compiled"
     for column, values in first.rows.items():
         if column not in TIMING_COLUMNS:
             assert np.array_equal(values, again.rows[column], equal_nan=True), column
     assert first.rows["real_updates"].tolist() == [0, 1000, 2000, 3000]
-    other = run_trial(_spec(kind, "MountainCar-v0", params, seed=1).as_dict(), "compiled")
+    other = run_trial(_spec(kind, "MountainCar-v0", params, seed=1).as_dict())
     assert not np.array_equal(other.final_values, first.final_values)
 
 
