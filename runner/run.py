@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import sys
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
@@ -22,6 +21,7 @@ from runner.schedule import TrialOutcome, run_parallel, warm_up
 from runner.store import Store, experiment_dir, remove_store
 from runner.store_check import repair_store
 from runner.store_faults import faults_as_store_errors
+from runner.workers import default_jobs, stop_workers
 
 __all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
 
@@ -56,14 +56,6 @@ def experiment_facts(experiment: Experiment) -> dict:
         "confidence": experiment.analysis.confidence,
         "costs": asdict(experiment.costs) if experiment.costs else None,
     }
-
-
-def default_jobs() -> int:
-    """All cores this process may use."""
-    try:
-        return len(os.sched_getaffinity(0))
-    except AttributeError:
-        return os.cpu_count() or 1
 
 
 @dataclass(frozen=True)
@@ -155,6 +147,8 @@ def _run_locked(
         f"{len(todo)} {which} on {where}",
         file=out,
     )
+    if n_jobs == 1 or options.cluster or not todo:
+        stop_workers()  # the command line may have started workers early; this run needs none
     if not todo:
         return summary
     if options.cluster:
@@ -183,7 +177,8 @@ def _run_locked(
 
     outcome = "aborted"
     try:
-        warm_up([(t.spec, options.trial_path) for t in todo])
+        if n_jobs == 1 and not options.cluster:
+            warm_up([(t.spec, options.trial_path) for t in todo])
         run_parallel(
             todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster, options.cluster_timeout
         )
