@@ -20,6 +20,7 @@ from typing import Any
 import numpy as np
 from joblib import delayed
 
+from runner.cluster import DEFAULT_TIMEOUT
 from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
 from runner.workers import pool, stop_workers, workers_ignore_interrupts
@@ -97,7 +98,7 @@ def run_parallel(
     path: str = "auto",
     time_limit: float = 0.0,
     cluster: str | None = None,
-    cluster_timeout: float = 10.0,
+    cluster_timeout: float = DEFAULT_TIMEOUT,
 ) -> None:
     """Run every trial on `jobs` local processes (1: in this process) or on a dask cluster, calling on_outcome
     in this process as each finishes, so only this process writes."""
