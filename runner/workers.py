@@ -1,10 +1,13 @@
-"""The local worker processes: started as early as possible, so they import stepmeter while the parent prepares.
+"""The local worker processes: started as early as possible, so they are ready when the parent has planned.
 
 A worker spends its first seconds importing numba and gymnasium and setting numba up; the parent spends the
-same seconds reading the experiment, planning and opening the store. Starting the workers first lets both
-happen at once, and the workers then load each compiled loop from numba's disk cache on their first trial.
-The pool is loky's reusable executor (the one joblib uses), so a pool started early is the pool that runs the
-trials. This module imports nothing heavy itself.
+same seconds reading the experiment, planning and opening the store. `stepmeter run` therefore starts the pool
+first. Workers are forked from a fork server (`multiprocessing`'s "forkserver" start method) that has imported
+the trial code once: each worker starts with the imports done, instead of each importing everything again,
+and no worker inherits the parent's open database or threads. Each worker then sets numba up
+(`prepare_worker`) and loads each compiled loop from numba's disk cache on its first trial. A worker watches the
+run's process and exits within half a second of it, however the run ends (a worker's own task queue would not
+tell it). This module imports nothing heavy itself.
 """
 
 from __future__ import annotations
@@ -13,11 +16,11 @@ import contextlib
 import os
 import signal
 import threading
+import time
 from collections.abc import Iterator
 from typing import Any
 
 __all__ = [
-    "IDLE_SECONDS",
     "default_jobs",
     "pool",
     "prepare_worker",
@@ -26,10 +29,10 @@ __all__ = [
     "workers_ignore_interrupts",
 ]
 
-IDLE_SECONDS = 60
-"""Workers left idle this long exit on their own (also when their parent was killed); a later run starts new ones."""
 
 _started: dict[str, Any] = {}
+_WATCH_SECONDS = 0.5
+"""How often a worker checks that the run's process still exists."""
 
 
 def default_jobs() -> int:
@@ -54,37 +57,65 @@ def workers_ignore_interrupts() -> Iterator[None]:
         signal.signal(signal.SIGINT, previous)
 
 
-def prepare_worker() -> None:
-    """In a worker: import the trial code and set numba up (its first cached function loads its registries)."""
+def _exit_with(parent: int) -> None:
+    """Watch the run's process; end this worker as soon as it is gone (killed, say), whatever the worker does."""
+    while True:
+        time.sleep(_WATCH_SECONDS)
+        try:
+            os.kill(parent, 0)
+        except ProcessLookupError:
+            os._exit(1)
+        except PermissionError:
+            continue
+
+
+def prepare_worker(parent: int) -> None:
+    """In a worker: ignore Ctrl-C, exit with the run's process `parent`, and set numba up (its first cached
+    function loads numba's registries), so the first trial only loads its own compiled loop."""
     from runner.clock import wall_clock
     from runner.schedule import ignore_interrupts
 
     ignore_interrupts()
+    threading.Thread(target=_exit_with, args=(parent,), daemon=True, name="stepmeter-parent-watch").start()
     wall_clock()
 
 
 def pool(jobs: int) -> Any:
-    """The reusable pool of `jobs` worker processes (started or resized now)."""
-    from joblib.externals.loky import get_reusable_executor
+    """A pool of at least `jobs` worker processes, started now if this process has none that large."""
+    if _started.get("jobs", 0) >= jobs:
+        return _started["executor"]
+    stop_workers()
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor
 
+    context = multiprocessing.get_context("forkserver")
+    context.set_forkserver_preload(["runner.schedule"])
+    before = set(multiprocessing.active_children())
     with workers_ignore_interrupts():
-        executor = get_reusable_executor(max_workers=jobs, timeout=IDLE_SECONDS)
-    _started["executor"] = executor
+        executor = ProcessPoolExecutor(
+            max_workers=jobs, mp_context=context, initializer=prepare_worker, initargs=(os.getpid(),)
+        )
+        for _ in range(jobs):  # processes start on submission; start them all now
+            executor.submit(os.getpid)
+    _started.update(executor=executor, jobs=jobs, processes=set(multiprocessing.active_children()) - before)
     return executor
 
 
 def start_workers(jobs: int) -> None:
-    """Start `jobs` worker processes now (none below 2) and have each prepare itself, without waiting."""
-    if jobs < 2:
-        return
-    executor = pool(jobs)
-    with workers_ignore_interrupts():  # processes start on the first submissions
-        for _ in range(jobs):
-            executor.submit(prepare_worker)
+    """Start `jobs` worker processes now (none below 2), without waiting for them."""
+    if jobs >= 2:
+        pool(jobs)
 
 
 def stop_workers() -> None:
     """End the workers started by this process at once (after an error, or when the run needs none)."""
     executor = _started.pop("executor", None)
-    if executor is not None:
-        executor.shutdown(wait=False, kill_workers=True)
+    processes = _started.pop("processes", set())
+    _started.pop("jobs", None)
+    if executor is None:
+        return
+    executor.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        process.terminate()
+    for process in processes:
+        process.join(timeout=5)

@@ -48,16 +48,21 @@ def _write(folder: Path, seeds: int = 3, steps: int = 400, every: int = 100) -> 
     return path
 
 
-def _workers_alive() -> list[psutil.Process]:
-    """Loky worker processes of this process that still run."""
-    alive = []
-    for child in psutil.Process().children(recursive=True):
+def _workers(root: psutil.Process) -> list[psutil.Process]:
+    """Running worker processes under `root`: the children of its fork server (which `root` started)."""
+    workers = []
+    for child in root.children(recursive=True):
         try:
-            if "popen_loky" in " ".join(child.cmdline()) and child.status() != psutil.STATUS_ZOMBIE:
-                alive.append(child)
+            forked = "forkserver" in " ".join(child.cmdline()) and child.ppid() != root.pid
+            if forked and child.status() != psutil.STATUS_ZOMBIE:
+                workers.append(child)
         except psutil.NoSuchProcess:
             continue
-    return alive
+    return workers
+
+
+def _workers_alive() -> list[psutil.Process]:
+    return _workers(psutil.Process())
 
 
 def _wait_gone(seconds: float = 10.0) -> list[psutil.Process]:
@@ -71,6 +76,7 @@ def test_two_workers_store_the_same_rows_as_one_process(tmp_path):
     one = run_experiment(_write(tmp_path / "a"), results_root=tmp_path / "a" / "results", options=RunOptions(jobs=1))
     two = run_experiment(_write(tmp_path / "b"), results_root=tmp_path / "b" / "results", options=RunOptions(jobs=2))
     assert (one.ran, two.ran) == (6, 6)
+    assert len(_workers_alive()) == 2  # the pool stays up for the next run in this process
     frames = [runner.load_results(s.folder).drop(columns=list(TIMING_COLUMNS)) for s in (one, two)]
     pd.testing.assert_frame_equal(*frames)
 
@@ -116,7 +122,7 @@ def test_ctrl_c_on_two_workers_keeps_finished_trials_and_leaves_no_worker(tmp_pa
             conn.close()
         except sqlite3.Error:
             stored = 0
-    workers = [c for c in psutil.Process(proc.pid).children(recursive=True) if "popen_loky" in " ".join(c.cmdline())]
+    workers = _workers(psutil.Process(proc.pid))
     assert stored >= 2 and len(workers) == 2
     proc.send_signal(signal.SIGINT)
     _, err = proc.communicate(timeout=60)
