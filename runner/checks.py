@@ -12,12 +12,14 @@ from typing import Any
 
 import numpy as np
 
-from runner.agents import AGENTS, TabularAgent, agent_class
-from runner.envs.sources import build_env, env_sizes
+from runner.agents import AGENTS, OwnAgent, TabularAgent, agent_class, setup_agent
+from runner.envs.sources import build_env, env_sizes, environment_tags
+from runner.errors import EnvironmentSourceError
 from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS
 from runner.planning.negamax import solve_negamax
 from runner.streams import new_stream
 from runner.trial import run_trial
+from runner.trial_spec import TrialSpec
 
 __all__ = ["ContractError", "agent_checks", "check_agent", "check_environment", "environment_checks"]
 
@@ -54,16 +56,32 @@ GAME = {
 """A small take-away game (60 positions) standing in for the grid tasks for kinds that search a game's rules
 (`needs_rules = True`): the grid maps have no game rules to search."""
 
+LINE = {"source": "entry", "entry": "runner.envs.line:LineWalk", "options": {}, "step_limit": 50}
+"""The corridor for kinds that take box observations: walk east along [0, 1] (`runner.envs.line`)."""
+
+LINE_CONTINUOUS = {**LINE, "options": {"continuous": True}}
+"""The same line walked with a box action (a push in [-1, 1]; east is positive)."""
+
 _EAST = 1
+_LINE_POINTS = (0.0, 0.25, 0.5, 0.75)
+
+AnyAgent = TabularAgent | OwnAgent
 
 
-def _task(cls: type[TabularAgent], usual: dict) -> dict:
-    """The environment a check runs a kind on: the usual grid task, or GAME for kinds that need game rules."""
-    return GAME if cls.needs_rules else usual
+def _task(cls: type[AnyAgent], usual: dict) -> dict:
+    """The environment a check runs a kind on, chosen by its tags: the usual grid task, GAME for kinds that need
+    game rules, the line walk for kinds that take only box observations."""
+    if cls.needs_rules():
+        return GAME
+    if "discrete" not in cls.tags.observations:
+        return LINE if "discrete" in cls.tags.actions else LINE_CONTINUOUS
+    return usual
 
 
-def _kind_name(cls: type[TabularAgent]) -> str:
+def _kind_name(cls: type[AnyAgent]) -> str:
     """What a trial spec names the class by: its registered kind, else its 'module:Class' entry point."""
+    if issubclass(cls, OwnAgent):
+        return cls.kind
     entry = f"{cls.__module__}:{cls.__qualname__}"
     return cls.kind if AGENTS.entries.get(cls.kind) == entry else entry
 
@@ -72,37 +90,68 @@ class ContractError(AssertionError):
     """An agent kind or environment breaks the contract; the message says which rule and what was seen."""
 
 
-def _drive(agent: TabularAgent, env_spec: dict, steps: int, seed: int) -> list[int]:
+def _reader(env: Any) -> Callable[[Any], Any]:
+    """Observations as the trial loop hands them to agents: whole numbers, or float64 vectors."""
+    if env.observation_space.__class__.__name__ == "Discrete":
+        return int
+    return lambda obs: np.asarray(obs, dtype=np.float64)
+
+
+def _plain(action: Any) -> Any:
+    """An action as a comparable value (an int, or a tuple of floats for box actions)."""
+    if np.ndim(action) == 0:
+        return action.item() if isinstance(action, np.generic) else action
+    return tuple(np.asarray(action, dtype=np.float64).ravel().tolist())
+
+
+def _drive(agent: AnyAgent, env_spec: dict, steps: int, seed: int) -> list[Any]:
     """Set the agent up on the environment and learn for `steps` real steps; return the actions taken."""
     env = build_env(env_spec)
-    n_states, n_actions = env_sizes(env)
     rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
-    agent.setup(n_states, n_actions, seed, rules=rules)
-    state, _ = env.reset(seed=seed)
+    setup_agent(agent, env, seed, rules=rules)
+    read = _reader(env)
+    state = read(env.reset(seed=seed)[0])
     actions = []
     for _ in range(steps):
-        action = agent.act(int(state))
-        actions.append(action)
+        action = agent.act(state)
+        actions.append(_plain(action))
         nxt, reward, terminated, truncated, _ = env.step(action)
-        agent.observe(int(state), action, float(reward), int(nxt), bool(terminated))
-        state = env.reset()[0] if terminated or truncated else nxt
+        nxt = read(nxt)
+        agent.observe(state, action, float(reward), nxt, bool(terminated), bool(truncated))
+        state = read(env.reset()[0]) if terminated or truncated else nxt
     env.close()
     return actions
 
 
+def _probes(agent: AnyAgent) -> list[Any]:
+    """Observations to ask an agent's greedy policy about: every state, or 20 points of a bounded box."""
+    if isinstance(agent, TabularAgent):
+        return list(range(agent.n_states_))
+    space = agent.observation_space_
+    if space.__class__.__name__ == "Discrete":
+        return list(range(int(space.n)))
+    low = np.maximum(np.asarray(space.low, dtype=np.float64), -10.0)
+    high = np.minimum(np.asarray(space.high, dtype=np.float64), 10.0)
+    rng = np.random.default_rng(0)
+    return [rng.uniform(low, high) for _ in range(20)]
+
+
+def _learned_state(agent: AnyAgent) -> list[Any]:
+    """What two equally seeded agents must agree on: their arrays, or (own agents) their greedy actions."""
+    if isinstance(agent, TabularAgent):
+        return [a.tolist() for a in agent.arrays_]
+    stream = new_stream(0)
+    return [_plain(agent.greedy(obs, stream)) for obs in _probes(agent)]
+
+
 def _trial_spec(kind: str, params: dict, env_spec: dict, seed: int) -> dict[str, Any]:
     """A short trial of the kind on an environment, as `runner.plan` would make it."""
-    return {
-        "format": 1,
-        "env": env_spec,
-        "agent": {"kind": kind, "params": params},
-        "seed": seed,
-        "real_steps": 600,
-        "evaluation": {"every": 200, "episodes": 3, "step_cap": 30, "training_window": 5},
-    }
+    return TrialSpec.build(
+        env_spec, kind, params, seed, 600, every=200, episodes=3, step_cap=30, training_window=5
+    ).as_dict()
 
 
-def _check_params_round_trip(cls: type[TabularAgent], params: dict) -> None:
+def _check_params_round_trip(cls: type[AnyAgent], params: dict) -> None:
     agent = cls(**params)
     got = agent.get_params()
     if set(got) != {p.name for p in cls.schema}:
@@ -115,46 +164,55 @@ def _check_params_round_trip(cls: type[TabularAgent], params: dict) -> None:
         raise ContractError(f"parameters must be JSON values so trial specs can store them: {err}") from None
 
 
-def _check_same_seed_same_run(cls: type[TabularAgent], params: dict) -> None:
+def _check_same_seed_same_run(cls: type[AnyAgent], params: dict) -> None:
     a, b = cls(**params), cls(**params)
     task = _task(cls, SLIPPERY)
     if _drive(a, task, 400, seed=7) != _drive(b, task, 400, seed=7):
         raise ContractError("two runs with the same seed chose different actions")
-    for x, y in zip(a.arrays_, b.arrays_, strict=True):
-        if not np.array_equal(x, y):
-            raise ContractError("two runs with the same seed learned different arrays")
+    if _learned_state(a) != _learned_state(b):
+        raise ContractError("two runs with the same seed learned different arrays (or greedy policies)")
 
 
-def _check_different_seeds_differ(cls: type[TabularAgent], params: dict) -> None:
+def _check_different_seeds_differ(cls: type[AnyAgent], params: dict) -> None:
     task = _task(cls, SLIPPERY)
     if _drive(cls(**params), task, 400, seed=1) == _drive(cls(**params), task, 400, seed=2):
         raise ContractError("runs with seeds 1 and 2 chose exactly the same 400 actions; is the stream used?")
 
 
-def _check_actions_valid(cls: type[TabularAgent], params: dict) -> None:
+def _check_actions_valid(cls: type[AnyAgent], params: dict) -> None:
     agent = cls(**params)
-    actions = _drive(agent, _task(cls, SLIPPERY), 300, seed=3)
+    task = _task(cls, SLIPPERY)
+    actions = _drive(agent, task, 300, seed=3)
     stream = new_stream(0)
-    greedy = [agent.greedy(s, stream) for s in range(agent.n_states_)]
-    bad = [a for a in actions + greedy if not 0 <= a < agent.n_actions_]
+    greedy = [_plain(agent.greedy(s, stream)) for s in _probes(agent)]
+    env = build_env(task)
+    space = env.action_space
+    env.close()
+    bad = [a for a in actions + greedy if not space.contains(np.asarray(a, dtype=space.dtype).reshape(space.shape))]
     if bad:
-        raise ContractError(f"actions outside 0..{agent.n_actions_ - 1}: {bad[:5]}")
+        raise ContractError(f"actions outside the action space {space}: {bad[:5]}")
 
 
-def _check_learning_changes_behaviour(cls: type[TabularAgent], params: dict) -> None:
-    if cls.needs_rules:
+def _east(action: Any) -> bool:
+    return action == _EAST if np.ndim(action) == 0 else float(np.asarray(action).ravel()[0]) > 0
+
+
+def _check_learning_changes_behaviour(cls: type[AnyAgent], params: dict) -> None:
+    if cls.needs_rules():
         _check_plays_the_game(cls, params)
         return
     agent = cls(**params)
-    _drive(agent, CORRIDOR, 3000, seed=5)
+    task = _task(cls, CORRIDOR)
+    _drive(agent, task, 3000, seed=5)
     stream = new_stream(11)
-    for state in range(4):
-        chosen = {agent.greedy(state, stream) for _ in range(20)}
-        if chosen != {_EAST}:
-            raise ContractError(f"after 3000 steps in a corridor the greedy actions in cell {state} are {chosen}")
+    points = [np.array([x]) for x in _LINE_POINTS] if task is not CORRIDOR else list(range(4))
+    for state in points:
+        chosen = [_plain(agent.greedy(state, stream)) for _ in range(20)]
+        if not all(_east(a) for a in chosen):
+            raise ContractError(f"after 3000 steps in a corridor the greedy actions at {state} are {set(chosen)}")
 
 
-def _check_plays_the_game(cls: type[TabularAgent], params: dict) -> None:
+def _check_plays_the_game(cls: type[AnyAgent], params: dict) -> None:
     """For kinds that search a game (their behaviour comes from search, not learning): after 300 steps of GAME,
     the greedy move from at least 90% of the positions won for the player to move (exact negamax solve) leads to
     a position lost for the opponent."""
@@ -169,7 +227,7 @@ def _check_plays_the_game(cls: type[TabularAgent], params: dict) -> None:
         raise ContractError(f"the greedy move keeps the win in only {good} of {len(won)} won positions of GAME")
 
 
-def _check_params_unchanged(cls: type[TabularAgent], params: dict) -> None:
+def _check_params_unchanged(cls: type[AnyAgent], params: dict) -> None:
     agent = cls(**params)
     before = agent.get_params()
     _drive(agent, _task(cls, SLIPPERY), 300, seed=4)
@@ -177,7 +235,7 @@ def _check_params_unchanged(cls: type[TabularAgent], params: dict) -> None:
         raise ContractError("learning changed the agent's parameters")
 
 
-def _check_counters_add_up(cls: type[TabularAgent], params: dict) -> None:
+def _check_counters_add_up(cls: type[AnyAgent], params: dict) -> None:
     agent = cls(**params)
     _drive(agent, _task(cls, SLIPPERY), 500, seed=6)
     problems = agent.counter_problems(500)
@@ -185,10 +243,10 @@ def _check_counters_add_up(cls: type[TabularAgent], params: dict) -> None:
         raise ContractError("counters do not add up: " + "; ".join(problems))
 
 
-def _check_trial_rows_reproducible(cls: type[TabularAgent], params: dict) -> None:
+def _check_trial_rows_reproducible(cls: type[AnyAgent], params: dict) -> None:
     columns = [c for c in METRIC_COLUMNS if c not in TIMING_COLUMNS]
     kind, task = _kind_name(cls), _task(cls, SLIPPERY)
-    for path in ("compiled", "gymnasium"):
+    for path in ("compiled", "gymnasium") if cls.tags.compiled else ("gymnasium",):
         first = run_trial(_trial_spec(kind, params, task, seed=9), path).rows
         again = run_trial(_trial_spec(kind, params, task, seed=9), path).rows
         other = run_trial(_trial_spec(kind, params, task, seed=10), path).rows
@@ -199,7 +257,7 @@ def _check_trial_rows_reproducible(cls: type[TabularAgent], params: dict) -> Non
             raise ContractError(f"on the {path} path trials with seeds 9 and 10 gave identical metric rows")
 
 
-_AGENT_CHECKS: tuple[Callable[[type[TabularAgent], dict], None], ...] = (
+_AGENT_CHECKS: tuple[Callable[[type[AnyAgent], dict], None], ...] = (
     _check_params_round_trip,
     _check_same_seed_same_run,
     _check_different_seeds_differ,
@@ -228,45 +286,54 @@ def check_agent(kind: str, params: dict | None = None) -> None:
             raise ContractError(f"{kind}: {name}: {err}") from None
 
 
-def _check_discrete_spaces(spec: dict) -> None:
+def _check_spaces(spec: dict) -> None:
     env = build_env(spec)
     try:
-        env_sizes(env)
-    except ValueError as err:
+        environment_tags(env, spec)
+    except EnvironmentSourceError as err:
         raise ContractError(str(err)) from None
     finally:
         env.close()
 
 
+def _valid_observation(env: Any, obs: Any) -> bool:
+    space = env.observation_space
+    if space.__class__.__name__ == "Discrete":
+        return 0 <= int(obs) < int(space.n)
+    values = np.asarray(obs)
+    return values.shape == space.shape and bool(np.all(np.isfinite(values)))
+
+
 def _check_reset_and_step_types(spec: dict) -> None:
     env = build_env(spec)
-    n_states, n_actions = env_sizes(env)
     state, info = env.reset(seed=0)
-    if not (0 <= int(state) < n_states) or not isinstance(info, dict):
-        raise ContractError(f"reset() must give a state in 0..{n_states - 1} and an info dict, got {state!r}")
-    rng = np.random.default_rng(0)
+    if not _valid_observation(env, state) or not isinstance(info, dict):
+        raise ContractError(
+            f"reset() must give an observation of {env.observation_space} and an info dict, got {state!r}"
+        )
+    env.action_space.seed(0)
     for _ in range(200):
-        out = env.step(int(rng.integers(n_actions)))
+        out = env.step(env.action_space.sample())
         if len(out) != 5:
             raise ContractError(
                 f"step() must return 5 values (state, reward, terminated, truncated, info), got {len(out)}"
             )
         state, reward, terminated, truncated, _ = out
-        if not 0 <= int(state) < n_states or not np.isfinite(float(reward)):
+        if not _valid_observation(env, state) or not np.isfinite(float(reward)):
             raise ContractError(f"step() gave state {state!r} and reward {reward!r}")
         if terminated or truncated:
             env.reset()
     env.close()
 
 
-def _trajectory(spec: dict, seed: int) -> list[tuple[int, float, bool]]:
+def _trajectory(spec: dict, seed: int) -> list[tuple[Any, float, bool]]:
     env = build_env(spec)
-    _, n_actions = env_sizes(env)
     env.reset(seed=seed)
+    env.action_space.seed(seed)
     out = []
-    for i in range(100):
-        state, reward, terminated, truncated, _ = env.step(i % n_actions)
-        out.append((int(state), float(reward), bool(terminated)))
+    for _ in range(100):
+        state, reward, terminated, truncated, _ = env.step(env.action_space.sample())
+        out.append((_plain(state), float(reward), bool(terminated)))
         if terminated or truncated:
             env.reset()
     env.close()
@@ -281,10 +348,11 @@ def _check_seeded_reset_repeats(spec: dict) -> None:
 def _check_table_is_a_distribution(spec: dict) -> None:
     env = build_env(spec)
     table = getattr(env.unwrapped, "P", None)
+    if table is None or not environment_tags(env, spec).table_backed:
+        env.close()
+        return
     n_states, n_actions = env_sizes(env)
     env.close()
-    if table is None:
-        return
     for s in range(n_states):
         for a in range(n_actions):
             outcomes = table[s][a]
@@ -294,7 +362,7 @@ def _check_table_is_a_distribution(spec: dict) -> None:
 
 
 _ENV_CHECKS: tuple[Callable[[dict], None], ...] = (
-    _check_discrete_spaces,
+    _check_spaces,
     _check_reset_and_step_types,
     _check_seeded_reset_repeats,
     _check_table_is_a_distribution,

@@ -18,6 +18,7 @@ from runner.errors import (
 )
 from runner.store_faults import faults_as_store_errors
 from runner.trust import TRUST_FLAG
+from runner.wording import count
 
 __all__ = ["main"]
 
@@ -63,9 +64,14 @@ def _parser() -> argparse.ArgumentParser:
     run.add_argument(
         "--yes",
         action="store_true",
-        help="run an experiment of more than 100,000 trials or 10 million metric rows without asking",
+        help="answer yes for you: run an experiment of more than 100,000 trials or 10 million metric rows, "
+        "and let --start-over delete stored trials, without asking",
     )
-    run.add_argument("--start-over", action="store_true", help="delete the experiment's stored results first")
+    run.add_argument(
+        "--start-over",
+        action="store_true",
+        help="delete the experiment's stored results first (asks on a terminal; elsewhere needs --yes)",
+    )
     run.add_argument("--failed-only", action="store_true", help="run only trials that failed before")
     run.add_argument(
         "--cluster",
@@ -96,6 +102,25 @@ def _parser() -> argparse.ArgumentParser:
         "only for results folders whose writers you trust",
     )
 
+    show = sub.add_parser(
+        "show", help="re-run one stored trial: its spec, its rows and, on grid maps, the greedy policy it learned"
+    )
+    show.add_argument("folder", help="the experiment's results folder, e.g. results/warehouse-spills")
+    show.add_argument("trial_id", metavar="TRIAL_ID", help="a trial id (or a unique prefix) as in trial_scores.csv")
+    show.add_argument(
+        TRUST_FLAG,
+        action="store_true",
+        help="let the stored spec import code outside stepmeter; only for results folders whose writers you trust",
+    )
+
+    compare = sub.add_parser(
+        "compare", help="one report of several results folders whose environments and protocols match"
+    )
+    compare.add_argument("folders", nargs="+", metavar="RESULTS", help="two or more results folders")
+    compare.add_argument(
+        "--out", default="comparison", help="where to write the report (default: comparison, in the current directory)"
+    )
+
     seeds = sub.add_parser("seeds", help="how many seeds an experiment needs to detect given AUC differences")
     seeds.add_argument("folder", help="a stored (pilot) experiment's results folder")
     seeds.add_argument(
@@ -103,7 +128,8 @@ def _parser() -> argparse.ArgumentParser:
         type=float,
         action="append",
         metavar="D",
-        help="an AUC difference to detect, in return units (repeat for several; default 0.05, 0.1 and 0.2)",
+        help="an AUC difference to detect, in return units (repeat for several; default 5%%, 10%% and 20%% of each "
+        "environment's return range, as in the report)",
     )
     seeds.add_argument("--alpha", type=float, default=0.05, help="significance level (default 0.05)")
     seeds.add_argument("--power", type=float, default=0.8, help="wanted power (default 0.8)")
@@ -118,7 +144,9 @@ def _parser() -> argparse.ArgumentParser:
     migrate = sub.add_parser("migrate", help="carry a results folder of the previous release over to this one")
     migrate.add_argument("folder", help="the results folder, e.g. results/warehouse-spills")
 
-    listing = sub.add_parser("list", help="list agent kinds with their parameters, and environment sources")
+    listing = sub.add_parser(
+        "list", help="list agent kinds with their parameters and tags, and environment sources with their keys"
+    )
     listing.add_argument("what", nargs="?", choices=("agents", "environments"), default=None)
     return parser
 
@@ -140,6 +168,10 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "seeds":
             with faults_as_store_errors(args.folder):
                 return _seeds(args)
+        if args.command == "show":
+            return _show(args)
+        if args.command == "compare":
+            return _compare(args)
         if args.command == "migrate":
             with faults_as_store_errors(args.folder):
                 return _migrate(Path(args.folder))
@@ -204,19 +236,24 @@ def _run_started(args: argparse.Namespace) -> int:
         ask=_ask if sys.stdin.isatty() else None,
     )
     if summary.interrupted:
+        again = "the command again without --start-over" if args.start_over else "the same command again"
         print(
-            f"stopped: {summary.ran} trials finished in this run are stored in {summary.folder}; "
-            "run the same command again to finish the rest",
+            f"stopped: {count(summary.ran, 'trial')} finished in this run {'is' if summary.ran == 1 else 'are'} "
+            f"stored in {summary.folder}; run {again} to keep them and finish the rest",
             file=sys.stderr,
         )
         return 130
     for line in summary.failed:
         print(f"failed: {line}", file=sys.stderr)
     if not args.no_report and summary.planned > len(summary.failed):
+        print(f"writing the report of {summary.folder} ...", flush=True)
         with faults_as_store_errors(summary.folder):
             _report(summary.folder, None)
     if summary.failed:
-        print(f"{len(summary.failed)} trials failed; their errors are stored in {summary.folder}", file=sys.stderr)
+        print(
+            f"{count(len(summary.failed), 'trial')} failed; their errors are stored in {summary.folder}",
+            file=sys.stderr,
+        )
         return 1
     return 0
 
@@ -253,46 +290,78 @@ def _rerun(args: argparse.Namespace) -> int:
     return 1 if mismatched else 0
 
 
+def _compare(args: argparse.Namespace) -> int:
+    from runner.compare_results import compare_folders
+
+    output, note = compare_folders(args.folders, args.out)
+    print(output.terminal_text)
+    if note:
+        print(note)
+    print(f"comparison of {count(len(args.folders), 'results folder')} written to {Path(args.out).resolve()}")
+    return 0
+
+
+def _show(args: argparse.Namespace) -> int:
+    from runner.show import show_trial
+
+    shown = show_trial(Path(args.folder), args.trial_id, trust_code=args.trust_code)
+    print(shown.text())
+    return 0 if shown.difference is None else 1
+
+
 def _seeds(args: argparse.Namespace) -> int:
     import pandas as pd
 
     from runner.analysis.curves import trial_scores
     from runner.analysis.frames import load_results, open_store
-    from runner.analysis.power import seeds_advice
+    from runner.analysis.power import ADVICE_SHARES, advice_table
 
-    differences = args.difference or [0.05, 0.1, 0.2]
-    if any(d <= 0 for d in differences) or not 0 < args.alpha < 1 or not 0 < args.power < 1:
+    differences = args.difference
+    if any(d <= 0 for d in differences or []) or not 0 < args.alpha < 1 or not 0 < args.power < 1:
         print("stepmeter: error: seeds: differences must be > 0, alpha and power in (0, 1)", file=sys.stderr)
         return 2
     with open_store(args.folder) as store:
         facts = store.facts()
-    scores = trial_scores(load_results(args.folder))
+    frame = load_results(args.folder, params=False)
+    scores = trial_scores(frame)
     if scores.empty:
         print(f"stepmeter: error: {args.folder}: no stored trials to learn the spread of AUC from", file=sys.stderr)
         return 2
-    print(
-        f"seeds per agent for a two-sided two-sample t-test on AUC at alpha {args.alpha:g} and power {args.power:g}, "
-        "from this experiment's spread between seeds (a guide: few pilot seeds give uncertain spreads)"
+    asked = (
+        "AUC differences in return units (" + ", ".join(f"{d:g}" for d in differences) + ")"
+        if differences
+        else "AUC differences of " + ", ".join(f"{s:.0%}" for s in ADVICE_SHARES) + " of each environment's "
+        "return range (highest minus lowest stored evaluation return), as in the report's seeds advice"
     )
+    print(
+        f"seeds needed per agent to detect {asked}, by a two-sided two-sample t-test at alpha {args.alpha:g} and "
+        f"power {args.power:g}, from this experiment's spread between seeds (a guide: few pilot seeds give "
+        "uncertain spreads); each agent against the baseline and against the agent ranked just above it"
+    )
+    ranges = frame.groupby("env", sort=False)["eval_return"].agg(lambda r: r.max() - r.min())
     for env in facts["env_order"]:
-        advice = seeds_advice(
+        if env not in ranges.index:
+            continue
+        advice = advice_table(
             scores,
             env,
-            differences,
+            float(ranges[env]),
             baseline=facts["baseline"],
             agent_order=facts["agent_order"],
+            differences=differences,
             alpha=args.alpha,
             power=args.power,
         )
         if advice.empty:
             continue
-        print(f"\n{env}")
+        print(f"\n{env} (return range {ranges[env]:.4g})")
         for row in advice.itertuples():
-            needed = "more than 10000 (or an unknown number of)" if row.seeds_needed is pd.NA else row.seeds_needed
+            needed = "more than 10,000 (or an unknown number of)" if row.seeds_needed is pd.NA else row.seeds_needed
             print(
-                f"  {row.agent_a} vs {row.agent_b}: AUC difference {row.difference:g} needs {needed} seeds each "
+                f"  {row.agent_a} vs {row.agent_b} ({row.pair}): AUC difference {row.difference:.4g} "
+                f"({row.share_of_range:.0%} of the range) needs {needed} seeds each "
                 f"(pilot sds {row.sd_a:.3g} and {row.sd_b:.3g} over {row.n_a} and {row.n_b} seeds; "
-                f"power now {row.power_now:.2f})"
+                f"power now {row.power_now:.0%})"
             )
     return 0
 
@@ -305,9 +374,10 @@ def _check(args: argparse.Namespace) -> int:
     experiment = load_experiment(args.experiment)
     size = experiment.size
     print(
-        f"{experiment.file}: experiment {experiment.name!r} is valid: {len(experiment.environments)} environments x "
-        f"{len(experiment.agents)} agent variants x {len(experiment.seeds)} seeds = {size.trials} trials of "
-        f"{experiment.real_steps} real steps"
+        f"{experiment.file}: experiment {experiment.name!r} is valid: "
+        f"{count(len(experiment.environments), 'environment')} x {count(len(experiment.agents), 'agent variant')} x "
+        f"{count(len(experiment.seeds), 'seed')} = {count(size.trials, 'trial')} of "
+        f"{count(experiment.real_steps, 'real step')}"
     )
     print(f"expected: {size.describe()}")
     if size.needs_confirmation():
@@ -333,8 +403,9 @@ def _report(folder: Path, out: str | None) -> int:
 
 def _list(what: str | None) -> int:
     from runner.agents import AGENTS, agent_class
+    from runner.envs.dynamics import DYNAMICS
     from runner.envs.grid import CELL_MEANINGS
-    from runner.envs.sources import SOURCES
+    from runner.envs.sources import COMMON_KEYS, SOURCES
 
     if what in (None, "agents"):
         print("agent kinds (use as `kind:`; parameters go under `params:`; a list of values tries each):")
@@ -342,19 +413,37 @@ def _list(what: str | None) -> int:
             cls = agent_class(kind)
             print(f"\n  {kind}: {cls.summary}")
             print(f"    source: {cls.source}")
+            print(f"    takes: {cls.tags.describe()}")
             for p in cls.schema:
-                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+                role = f" [{p.role}]" if p.role else ""
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}{role}")
+        print(
+            "\n  package.module:Class: your own agent in any framework, run step by step (see runner/agents/own.py "
+            "and the README's example)"
+        )
     if what in (None, "environments"):
         print("\nenvironment sources (one per environment entry):")
-        for name, meaning in SOURCES.items():
-            print(f"  {name:<6} {meaning}")
+        for source in SOURCES.values():
+            print(f"\n  {source.name}: {source.summary}")
+            print(f"    gives: {source.gives}")
+            for key, meaning in source.keys:
+                print(f"    {key:<18} {meaning}")
+            for p in source.schema:
+                print(f"    {p.name:<18} {p.type:<6} default {p.default!r:<12} {p.expected()}; {p.meaning}")
+        print("\nkeys of every environment entry:")
+        for key, meaning in COMMON_KEYS:
+            print(f"  {key:<18} {meaning}")
         print("\ngrid map cells:")
         for cell, meaning in CELL_MEANINGS.items():
             print(f"  {cell}  {meaning}")
-        print(
-            "\ngrid keys: map, slip, step_reward, goal_reward, hazard_penalty, hazard_ends, and changes: "
-            "[{at: REAL_STEP, map: ...}] to replace the map after that many real steps"
-        )
+        print("\ngymnasium ids with compiled dynamics (box observations; the tabular kinds need `bins:`):")
+        for spec in DYNAMICS.values():
+            actions = (
+                f"{spec.action_size} discrete actions"
+                if spec.action_kind == "discrete"
+                else f"box action in [{spec.action_low:g}, {spec.action_high:g}]"
+            )
+            print(f"  {spec.env_id:<38} {spec.obs_size} numbers, {actions}; {spec.summary}")
         print(
             "\nbuilt-in game: entry runner.envs.takeaway:TakeAwayGame with options heaps, opponent (random or "
             "optimal), illegal_reward, start (heaps or random); agents that search game rules (negamax_search) need it"

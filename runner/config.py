@@ -16,8 +16,9 @@ from pathlib import Path
 from typing import Any
 
 from runner.agents import agent_class
+from runner.envs.bins import BinsError, resolve_bins
 from runner.envs.grid import GridMapError, parse_grid_map
-from runner.envs.sources import GRID_PARAMS, SOURCES, build_env, env_sizes, gym_reward_threshold, gym_spec
+from runner.envs.sources import GRID_SCHEMA, SOURCES, build_env, environment_tags, gym_reward_threshold, gym_spec
 from runner.errors import ConfigError, EnvironmentSourceError, UnknownKindError
 from runner.limits import (
     MAX_ENVIRONMENTS,
@@ -33,6 +34,8 @@ from runner.limits import (
     ExperimentSize,
 )
 from runner.params import Param, check_value
+from runner.registry import add_entry_folder
+from runner.tags import EnvTags, pairing_problem
 from runner.yaml_source import KeyPath, SourceText, format_path, read_yaml
 
 __all__ = ["AgentVariant", "Analysis", "Costs", "EnvironmentDecl", "Evaluation", "Experiment", "load_experiment"]
@@ -77,18 +80,10 @@ _COSTS_SCHEMA = (
 )
 _COST_UNIT = re.compile(r"^[^\x00-\x1f]{1,32}$")
 _EVAL_KEYS = ("every", "episodes", "step_cap", "training_window")
-_ENV_KEYS = ("label", "gym", "grid", "entry", "options", "step_limit", "threshold", "earning_threshold")
-_GRID_KEYS = ("map", *GRID_PARAMS, "changes")
+_ENV_KEYS = ("label", *SOURCES, "options", "step_limit", "threshold", "earning_threshold", "bins")
+_GRID_KEYS = ("map", *(p.name for p in GRID_SCHEMA), "changes")
 _AGENT_KEYS = ("label", "kind", "params")
 _DEFAULT_STEP_CAP = 1000
-
-_GRID_SCHEMA = (
-    Param("slip", "float", 0.0, "chance a move from a slippery cell goes sideways", low=0.0, high=1.0),
-    Param("step_reward", "float", 0.0, "reward of an ordinary move", low=-MAX_REWARD, high=MAX_REWARD),
-    Param("goal_reward", "float", 1.0, "reward for entering the goal", low=-MAX_REWARD, high=MAX_REWARD),
-    Param("hazard_penalty", "float", -1.0, "reward for entering a hazard", low=-MAX_REWARD, high=MAX_REWARD),
-    Param("hazard_ends", "bool", True, "whether entering a hazard ends the episode"),
-)
 
 
 @dataclass(frozen=True)
@@ -133,6 +128,7 @@ class EnvironmentDecl:
     threshold: float | None
     step_cap: int
     earning_threshold: float | None = None
+    tags: EnvTags | None = None
 
 
 @dataclass(frozen=True)
@@ -144,6 +140,7 @@ class AgentVariant:
     kind: str
     params: dict[str, Any]
     varied: dict[str, Any]
+    index: int = 0  # position of its entry under `agents`
 
 
 @dataclass(frozen=True)
@@ -172,8 +169,12 @@ class Experiment:
 
 
 def load_experiment(path: str | Path) -> Experiment:
-    """Read and validate an experiment file; raise ConfigError with file, line and key path on any problem."""
+    """Read and validate an experiment file; raise ConfigError with file, line and key path on any problem.
+
+    Modules named by `entry:` or `kind:` entry points are also looked for beside the file (`add_entry_folder`).
+    """
     src = read_yaml(path)
+    add_entry_folder(Path(path).parent)
     data = src.data
     if not isinstance(data, dict):
         raise src.error((), f"expected a mapping of experiment keys ({', '.join(_TOP_KEYS)}), got {_kind(data)}")
@@ -193,6 +194,7 @@ def load_experiment(path: str | Path) -> Experiment:
     environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
     _primary_thresholds(src, analysis, environments)
     agents = _agents(src, _require(src, data, ("agents",)))
+    _check_pairs(src, environments, agents)
     baseline = _baseline(src, data.get("baseline"), agents)
     costs = _costs(src, data.get("costs"))
     _check_size(src, len(environments), len(agents), len(seeds), real_steps // evaluation.every + 1)
@@ -379,32 +381,8 @@ def _environment(
     if options is not None:
         _mapping(src, (*path, "options"), options)
         _json_values(src, (*path, "options"), options)
-        if source == "grid":
-            raise src.error((*path, "options"), "expected no options beside a grid; put settings under grid")
-    threshold: float | None = None
-    if source == "gym":
-        env_id = data["gym"]
-        if not isinstance(env_id, str):
-            raise src.error((*path, "gym"), f"expected a gymnasium id such as 'FrozenLake-v1', got {_kind(env_id)}")
-        try:
-            registered = gym_spec(env_id)
-        except UnknownKindError as err:
-            raise src.error((*path, "gym"), str(err)) from None
-        threshold = gym_reward_threshold(env_id)
-        spec: dict[str, Any] = {"source": "gym", "id": env_id, "options": dict(options or {})}
-        default_label = env_id
-        time_limit = step_limit or registered.max_episode_steps
-    elif source == "grid":
-        spec = {"source": "grid", **_grid(src, (*path, "grid"), data["grid"], real_steps)}
-        default_label = f"grid-{path[-1]}"
-        time_limit = step_limit
-    else:
-        entry = data["entry"]
-        if not isinstance(entry, str) or ":" not in entry:
-            raise src.error((*path, "entry"), f"expected 'package.module:Class', got {_kind(entry)}")
-        spec = {"source": "entry", "entry": entry, "options": dict(options or {})}
-        default_label = entry.rpartition(":")[2]
-        time_limit = step_limit
+    spec, default_label, threshold, time_limit = _SOURCE_RESOLVERS[source](src, path, data, real_steps)
+    time_limit = step_limit or time_limit
     spec["step_limit"] = step_limit
     label = data.get("label", default_label)
     if not isinstance(label, str) or not label.strip():
@@ -412,11 +390,45 @@ def _environment(
     if "threshold" in data:
         threshold = _threshold(src, (*path, "threshold"), data["threshold"], "a return to reach")
     earning = _threshold(src, (*path, "earning_threshold"), data.get("earning_threshold"), "reward per real step")
-    _check_buildable(src, path, source, spec)
+    tags = _check_buildable(src, path, source, spec, data.get("bins"))
     step_cap = evaluation.step_cap or time_limit or _DEFAULT_STEP_CAP
     return EnvironmentDecl(
-        label=label, spec=spec, threshold=threshold, step_cap=int(step_cap), earning_threshold=earning
+        label=label, spec=spec, threshold=threshold, step_cap=int(step_cap), earning_threshold=earning, tags=tags
     )
+
+
+def _gym_source(src: SourceText, path: KeyPath, data: dict, real_steps: int) -> tuple[dict, str, float | None, int]:
+    """A gymnasium id: (spec, default label, registered threshold, registered step limit)."""
+    env_id = data["gym"]
+    if not isinstance(env_id, str):
+        raise src.error((*path, "gym"), f"expected a gymnasium id such as 'FrozenLake-v1', got {_kind(env_id)}")
+    try:
+        registered = gym_spec(env_id)
+    except UnknownKindError as err:
+        raise src.error((*path, "gym"), str(err)) from None
+    spec = {"source": "gym", "id": env_id, "options": dict(data.get("options") or {})}
+    return spec, env_id, gym_reward_threshold(env_id), registered.max_episode_steps
+
+
+def _grid_source(src: SourceText, path: KeyPath, data: dict, real_steps: int) -> tuple[dict, str, None, None]:
+    """A text grid map: (spec, default label, no threshold, no step limit)."""
+    if data.get("options") is not None:
+        raise src.error((*path, "options"), "expected no options beside a grid; put settings under grid")
+    spec = {"source": "grid", **_grid(src, (*path, "grid"), data["grid"], real_steps)}
+    return spec, f"grid-{path[-1]}", None, None
+
+
+def _entry_source(src: SourceText, path: KeyPath, data: dict, real_steps: int) -> tuple[dict, str, None, None]:
+    """A 'package.module:Class' entry point: (spec, default label, no threshold, no step limit)."""
+    entry = data["entry"]
+    if not isinstance(entry, str) or ":" not in entry:
+        raise src.error((*path, "entry"), f"expected 'package.module:Class', got {_kind(entry)}")
+    spec = {"source": "entry", "entry": entry, "options": dict(data.get("options") or {})}
+    return spec, entry.rpartition(":")[2], None, None
+
+
+_SOURCE_RESOLVERS = {"gym": _gym_source, "grid": _grid_source, "entry": _entry_source}
+"""How each source of `runner.envs.sources.SOURCES` turns its keys into a resolved spec."""
 
 
 def _threshold(src: SourceText, path: KeyPath, raw: Any, what: str) -> float | None:
@@ -446,7 +458,7 @@ def _grid(src: SourceText, path: KeyPath, value: Any, real_steps: int) -> dict[s
     _no_unknown_keys(src, data, path, _GRID_KEYS)
     rows = _grid_map(src, (*path, "map"), _require(src, data, (*path, "map")))
     resolved: dict[str, Any] = {"map": "\n".join(rows)}
-    for param in _GRID_SCHEMA:
+    for param in GRID_SCHEMA:
         raw = data.get(param.name, param.default)
         try:
             resolved[param.name] = check_value(param, raw)
@@ -520,12 +532,15 @@ def _option_at_fault(spec: dict[str, Any], err: Exception) -> str | None:
     return hits[0] if len(hits) == 1 else None
 
 
-def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str, Any]) -> None:
-    """Build the environment once; a failure points at its options when it has any."""
+def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str, Any], bins: Any) -> EnvTags:
+    """Build the environment once (a failure points at its options when it has any), resolve its `bins` against
+    its observation space into `spec`, and return what it gives."""
     at = (*path, "options") if spec.get("options") else (*path, source)
     try:
         env = build_env(spec)
-    except (EnvironmentSourceError, UnknownKindError) as err:
+    except UnknownKindError as err:  # the entry point itself cannot be imported or is not a class
+        raise src.error((*path, source), str(err)) from None
+    except EnvironmentSourceError as err:
         raise src.error(at, str(err)) from None
     except Exception as err:  # user code or gymnasium may raise anything on bad options
         what = spec.get("id") or spec.get("entry") or "the environment"
@@ -538,7 +553,14 @@ def _check_buildable(src: SourceText, path: KeyPath, source: str, spec: dict[str
             ) from None
         raise src.error(at, f"could not build {what}: {type(err).__name__}: {_short(err)}") from None
     try:
-        env_sizes(env)
+        if bins is not None:
+            try:
+                spec["bins"] = resolve_bins(bins, env.observation_space)
+            except BinsError as err:
+                raise src.error((*path, "bins", *err.key), str(err)) from None
+            env.close()
+            env = build_env(spec)
+        return environment_tags(env, spec)
     except EnvironmentSourceError as err:
         raise src.error(at, str(err)) from None
     finally:
@@ -631,7 +653,7 @@ def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentV
         variant_label = f"{label} ({suffix})" if suffix else label
         if agent.label_note():
             variant_label = f"{variant_label} [{agent.label_note()}]"
-        variants.append(AgentVariant(variant_label, label, kind, resolved, varied))
+        variants.append(AgentVariant(variant_label, label, kind, resolved, varied, path[-1]))
     return variants
 
 
@@ -653,3 +675,20 @@ def _baseline(src: SourceText, value: Any, agents: tuple[AgentVariant, ...]) -> 
     close = difflib.get_close_matches(str(value), labels, n=1, cutoff=0.5)
     hint = f"did you mean {close[0]!r}? " if close else ""
     raise src.error(("baseline",), f"{hint}expected the label of an agent variant, got {_kind(value)}")
+
+
+def _check_pairs(src: SourceText, environments: tuple[EnvironmentDecl, ...], agents: tuple[AgentVariant, ...]) -> None:
+    """Every agent variant must be able to serve every environment (their tags say so); else one line naming both
+    and what would fit."""
+    seen: set[tuple[str, str]] = set()
+    for variant in agents:
+        cls = agent_class(variant.kind)
+        uses_table = bool(getattr(cls(**variant.params), "uses_table", lambda: False)())
+        for env in environments:
+            key = (variant.kind, repr(sorted(variant.params.items())), env.label)
+            if key in seen or env.tags is None:
+                continue
+            seen.add(key)
+            problem = pairing_problem(variant.kind, cls.tags, uses_table, env.label, env.tags)
+            if problem is not None:
+                raise src.error(("agents", variant.index, "kind"), problem)

@@ -9,16 +9,19 @@ import pandas as pd
 
 from runner.analysis.frames import load_results, missing_trials, open_store, undeclared_trials
 from runner.analysis.page import FAILURE_COLUMNS, RUN_COLUMNS, ExperimentRecords
-from runner.analysis.report import ExperimentFacts, ReportOutput, write_report
+from runner.analysis.report import ExperimentFacts, ReportOutput, write_csv, write_report
+from runner.analysis.versions import experiment_versions, trial_versions, versions_note, versions_table
 from runner.safe_files import ensure_folder
 from runner.store import Store
 from runner.store_check import refuse_incomplete
+from runner.wording import count
 
 __all__ = ["experiment_records", "report_experiment", "variant_params"]
 
 
 def experiment_records(folder: str | Path | Store) -> ExperimentRecords:
-    """Runs (provenance), failures with their trial labels, missing and undeclared trials of a stored experiment.
+    """Runs (provenance), failures with their trial labels, missing and undeclared trials (with the version of
+    the experiment file each belongs to) and the versions of a stored experiment.
 
     A failure's labels come from the current declaration, or from the stored trial when the experiment file no
     longer declares it; `stored_later` says whether some run stored a result for that trial afterwards.
@@ -30,12 +33,17 @@ def experiment_records(folder: str | Path | Store) -> ExperimentRecords:
             "f.trial_id IN (SELECT trial_id FROM trials) FROM failures f "
             "LEFT JOIN declared d ON d.trial_id = f.trial_id ORDER BY f.failure_id"
         )
+        versions = experiment_versions(store)
+        belongs = trial_versions(store, versions)
     failure_frame = pd.DataFrame.from_records(failures, columns=FAILURE_COLUMNS)
+    undeclared = undeclared_trials(folder)
+    undeclared["version"] = [f"v{belongs[t]}" for t in undeclared["trial_id"]]
     return ExperimentRecords(
         runs=pd.DataFrame.from_records(runs, columns=RUN_COLUMNS),
         failures=failure_frame.astype({"stored_later": bool}),
         missing=missing_trials(folder),
-        undeclared=undeclared_trials(folder),
+        undeclared=undeclared,
+        versions=versions_table(versions),
     )
 
 
@@ -62,8 +70,9 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
         refuse_incomplete(store)
         facts = store.facts()
         params = variant_params(store)
-        frame = load_results(store)
+        frame = load_results(store, params=False)  # the report reads parameters per variant (variant_params)
         records = experiment_records(store)
+        versions_line = versions_note(experiment_versions(store), len(records.undeclared))
     missing = records.missing
     experiment_facts = ExperimentFacts(
         name=facts["name"],
@@ -84,15 +93,13 @@ def report_experiment(folder: str | Path, out_dir: str | Path | None = None) -> 
     )
     target = Path(out_dir) if out_dir else ensure_folder(folder / "report", below=folder)
     output = write_report(frame, experiment_facts, target, records)
+    output.files.append(write_csv(target / "versions.csv", records.versions))
     declared = frame["trial_id"].nunique() + len(missing)
-    note = f"{declared - len(missing)} of {declared} declared trials have stored results"
+    note = f"{declared - len(missing):,} of {count(declared, 'declared trial')} have stored results"
     if len(missing):
-        note += f"; {len(missing)} missing (not run yet, interrupted or failed): run the experiment again to add them"
-    extra = records.undeclared
-    if len(extra):
-        kinds = sorted({f"{e} / {a}" for e, a in zip(extra["env"], extra["agent"], strict=True)})
-        note += (
-            f"\n{len(extra)} stored trials are no longer declared by the experiment file and are left out: "
-            + "; ".join(kinds)
-        )
+        note += f"; {len(missing):,} missing (not run yet, interrupted or failed): run the experiment again to add them"
+    if versions_line:
+        note += "\n" + versions_line
+    elif len(records.undeclared):
+        note += f"\n{count(len(records.undeclared), 'stored trial')} no longer declared left out of this report"
     return output, note

@@ -7,12 +7,26 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["FLOAT_CAP", "INT_CAP", "Param", "check_value", "describe_range", "resolve_params"]
+__all__ = [
+    "FLOAT_CAP",
+    "INT_CAP",
+    "PLANNING_BUDGET",
+    "ROLES",
+    "Param",
+    "budget_params",
+    "check_value",
+    "describe_range",
+    "resolve_params",
+]
 
 INT_CAP = 10**9
 """Largest whole-number parameter when the schema sets no upper bound: counts and budgets stay in memory."""
 FLOAT_CAP = 1e12
 """Largest magnitude of a number parameter on a side the schema leaves open: values stay far from overflow."""
+PLANNING_BUDGET = "planning budget"
+"""Role of a parameter that sets how much planning compute an agent spends per real step (planning updates,
+replayed updates, search simulations): the report's budget figures vary it, whatever the parameter's name."""
+ROLES: tuple[str, ...] = (PLANNING_BUDGET,)
 
 
 @dataclass(frozen=True)
@@ -28,6 +42,12 @@ class Param:
     low_open: bool = False
     high_open: bool = False
     choices: tuple[str, ...] = ()
+    role: str = ""
+
+    def __post_init__(self) -> None:
+        """Reject a role that no part of stepmeter reads."""
+        if self.role and self.role not in ROLES:
+            raise ValueError(f"parameter {self.name!r}: role must be one of {ROLES} or empty, got {self.role!r}")
 
     def expected(self) -> str:
         """Say in words what a valid value looks like."""
@@ -49,6 +69,11 @@ def describe_range(param: Param) -> str:
     low = "-inf" if param.low is None else _fmt(param.low)
     high = "inf" if param.high is None else _fmt(param.high)
     return f"{left}{low}, {high}{right}"
+
+
+def budget_params(schema: tuple[Param, ...]) -> tuple[str, ...]:
+    """Names of the parameters a schema declares as planning budgets."""
+    return tuple(param.name for param in schema if param.role == PLANNING_BUDGET)
 
 
 def _fmt(x: float) -> str:

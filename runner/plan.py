@@ -6,27 +6,13 @@ same experiment is never run twice.
 
 from __future__ import annotations
 
-import hashlib
-import json
 from dataclasses import dataclass
 from typing import Any
 
 from runner.config import Experiment
+from runner.trial_spec import SPEC_FORMAT, TrialSpec, canonical_json, trial_id
 
 __all__ = ["SPEC_FORMAT", "PlannedTrial", "canonical_json", "plan_trials", "trial_id"]
-
-SPEC_FORMAT = 1
-"""Bumped when the meaning of a spec changes, so old ids never collide with new experiments."""
-
-
-def canonical_json(spec: dict[str, Any]) -> str:
-    """Sorted keys, no spaces: the same spec always gives the same text."""
-    return json.dumps(spec, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
-
-
-def trial_id(spec: dict[str, Any]) -> str:
-    """First 16 hex digits of the SHA-256 of the canonical spec."""
-    return hashlib.sha256(canonical_json(spec).encode()).hexdigest()[:16]
 
 
 @dataclass(frozen=True)
@@ -47,19 +33,16 @@ def plan_trials(experiment: Experiment) -> list[PlannedTrial]:
     for env in experiment.environments:
         for agent in experiment.agents:
             for seed in experiment.seeds:
-                spec = {
-                    "format": SPEC_FORMAT,
-                    "env": env.spec,
-                    "agent": {"kind": agent.kind, "params": agent.params},
-                    "seed": seed,
-                    "real_steps": experiment.real_steps,
-                    "evaluation": {
-                        "every": ev.every,
-                        "episodes": ev.episodes,
-                        "step_cap": env.step_cap,
-                        "training_window": ev.training_window,
-                    },
-                }
-                spec = json.loads(canonical_json(spec))
+                spec = TrialSpec.build(
+                    env.spec,
+                    agent.kind,
+                    agent.params,
+                    seed,
+                    experiment.real_steps,
+                    every=ev.every,
+                    episodes=ev.episodes,
+                    step_cap=env.step_cap,
+                    training_window=ev.training_window,
+                ).as_dict()
                 trials.append(PlannedTrial(trial_id(spec), spec, env.label, agent.label, seed))
     return trials

@@ -29,6 +29,10 @@ class Progress:
         self.live = hasattr(self.stream, "isatty") and self.stream.isatty()
         self._last_tenth = -1
 
+    def restart(self) -> None:
+        """Start the clock again (after compiling), so elapsed time and time left count trial work only."""
+        self.start = time.perf_counter()
+
     def advance(self, failed: bool = False) -> None:
         """Count one finished trial and redraw."""
         self.done += 1
@@ -46,11 +50,13 @@ class Progress:
         share = self.done / self.total if self.total else 1.0
         filled = round(share * self.width)
         elapsed = time.perf_counter() - self.start
-        left = elapsed / self.done * (self.total - self.done) if self.done else 0.0
-        failed = f"  {self.failed} failed" if self.failed else ""
+        # No estimate before a trial has finished: it would be a guess from nothing.
+        left = f"  left ~{_clock(elapsed / self.done * (self.total - self.done))}" if self.done else ""
+        failed = f"  {self.failed:,} failed" if self.failed else ""
+        total = f"{self.total:,}"
         return (
-            f"[{'#' * filled}{'.' * (self.width - filled)}] {self.done:>{len(str(self.total))}}/{self.total} trials"
-            f"  elapsed {_clock(elapsed)}  left ~{_clock(left)}{failed}"
+            f"[{'#' * filled}{'.' * (self.width - filled)}] {self.done:>{len(total)},}/{total} trials"
+            f"  elapsed {_clock(elapsed)}{left}{failed}"
         )
 
     def close(self) -> None:

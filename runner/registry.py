@@ -4,12 +4,47 @@ from __future__ import annotations
 
 import difflib
 import importlib
+import os
+import sys
 from dataclasses import dataclass
+from pathlib import Path
 from typing import Any
 
 from runner.errors import UnknownKindError
 
-__all__ = ["Registry", "import_entry_point"]
+__all__ = ["ENTRY_FOLDERS_VARIABLE", "Registry", "add_entry_folder", "import_entry_point"]
+
+ENTRY_FOLDERS_VARIABLE = "STEPMETER_ENTRY_FOLDERS"
+"""Folders (os.pathsep-separated) searched for an entry point's module that the import path does not reach: the
+experiment file's folder, so a module beside it imports without PYTHONPATH. An environment variable, so worker
+processes started afterwards search the same folders."""
+
+
+def add_entry_folder(folder: str | Path) -> None:
+    """Search `folder` for entry-point modules that cannot be imported otherwise (here and in later workers)."""
+    folder = str(Path(folder).resolve())
+    known = [f for f in os.environ.get(ENTRY_FOLDERS_VARIABLE, "").split(os.pathsep) if f]
+    if folder not in known:
+        os.environ[ENTRY_FOLDERS_VARIABLE] = os.pathsep.join([*known, folder])
+
+
+def _import_module(module_name: str) -> Any:
+    """Import a module; when its top-level package is not on the import path, look in the entry folders, which
+    are on the path only while this import runs."""
+    try:
+        return importlib.import_module(module_name)
+    except ModuleNotFoundError as err:
+        top = module_name.partition(".")[0]
+        folders = [f for f in os.environ.get(ENTRY_FOLDERS_VARIABLE, "").split(os.pathsep) if f]
+        if err.name != top or not folders:
+            raise
+    added = [f for f in folders if f not in sys.path]
+    sys.path[:0] = added
+    try:
+        return importlib.import_module(module_name)
+    finally:
+        for folder in added:
+            sys.path.remove(folder)
 
 
 def _one_line(text: str) -> str:
@@ -27,7 +62,7 @@ def import_entry_point(entry_point: str, base: type | None = None, what: str = "
     if not sep or not module_name or not attr:
         raise UnknownKindError(f"expected an entry point of the form 'package.module:Class', got {entry_point!r}")
     try:
-        module = importlib.import_module(module_name)
+        module = _import_module(module_name)
     except ImportError as err:
         raise UnknownKindError(f"cannot import module {module_name!r} of entry point {entry_point!r}: {err}") from None
     except (Exception, SystemExit) as err:  # a user's module may raise anything while it is imported

@@ -3,10 +3,13 @@
 from __future__ import annotations
 
 import sys
+import threading
 from collections.abc import Callable
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import TextIO
+
+from numba.core import event
 
 from runner.cluster import DEFAULT_TIMEOUT, check_address, check_reachable
 from runner.config import Experiment, load_experiment
@@ -18,9 +21,11 @@ from runner.progress import Progress
 from runner.provenance import platform_text, versions
 from runner.safe_files import remove_leftovers
 from runner.schedule import TrialOutcome, run_parallel, warm_up
+from runner.start_over import confirm_start_over
 from runner.store import Store, experiment_dir, remove_store
 from runner.store_check import repair_store
 from runner.store_faults import faults_as_store_errors
+from runner.wording import count
 from runner.workers import default_jobs, stop_workers
 
 __all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
@@ -43,6 +48,8 @@ def experiment_facts(experiment: Experiment) -> dict:
     return {
         "name": experiment.name,
         "description": experiment.description,
+        "experiment_hash": experiment.text_hash,
+        "experiment_text": experiment.text,
         "real_steps": experiment.real_steps,
         "baseline": experiment.baseline,
         "thresholds": {e.label: e.threshold for e in experiment.environments},
@@ -85,7 +92,7 @@ def run_experiment(
 
     Only one run may write an experiment at a time (`ExperimentLock`); a second one is refused. An experiment
     larger than the confirmation limits runs only with `options.assume_yes` or when `ask` (a yes/no question to
-    the user, given only on a terminal) says yes.
+    the user, given only on a terminal) says yes; so does `options.start_over` when trials are stored.
     """
     out = stream or sys.stdout
     if options.cluster:
@@ -94,10 +101,12 @@ def run_experiment(
     _confirm(experiment, options, ask)
     trials = plan_trials(experiment)
     folder = experiment_dir(results_root, experiment.name)
+    print(f"results folder: {folder}{_where_note(results_root)}", file=out)
     with faults_as_store_errors(folder), ExperimentLock(folder) as lock:
         if lock.stale_owner:
             print(f"cleared a stale lock left by a run that no longer exists ({lock.stale_owner})", file=out)
         if options.start_over:
+            confirm_start_over(folder, assume_yes=options.assume_yes, ask=ask)
             remove_store(folder)
         remove_leftovers(folder)
         remove_leftovers(folder / "report")
@@ -106,6 +115,52 @@ def run_experiment(
             if not health.whole:
                 print(f"{health.describe()}: their rows were removed and they run again", file=out)
             return _run_locked(experiment, trials, store, lock, path, options, command, out)
+
+
+def _where_note(results_root: str | Path) -> str:
+    """Say that a relative --results folder lies under the current directory, which is easy to forget."""
+    if Path(results_root).is_absolute():
+        return ""
+    return f" (under the current directory {Path.cwd()}; --results chooses another folder)"
+
+
+class _SayCompiling(event.Listener):
+    """Says once that numba is compiling, when a compilation has gone on for `after` seconds.
+
+    Loading numba's cache compiles nothing worth a word; only a compilation that lasts is.
+    """
+
+    def __init__(self, out: TextIO, after: float = 1.0) -> None:
+        self.out = out
+        self.after = after
+        self.depth = 0
+        self.timer: threading.Timer | None = None
+        self.said = False
+
+    def on_start(self, _event: event.Event) -> None:
+        self.depth += 1
+        if self.depth == 1 and not self.said:
+            self.timer = threading.Timer(self.after, self._say)
+            self.timer.daemon = True
+            self.timer.start()
+
+    def on_end(self, _event: event.Event) -> None:
+        self.depth -= 1
+        if self.depth == 0 and self.timer is not None:
+            self.timer.cancel()
+            self.timer = None
+
+    def _say(self) -> None:
+        if not self.said:
+            self.said = True
+            print("compiling (first run only; later runs load the compiled code from numba's cache) ...", file=self.out)
+            self.out.flush()
+
+
+def _warm_up_saying_when_compiling(runs: list[tuple[dict, str]], out: TextIO) -> None:
+    """Warm the compiled kernels, saying so while numba compiles, so the wait before the first trial is explained."""
+    with event.install_listener("numba:compile", _SayCompiling(out)):
+        warm_up(runs)
 
 
 def _confirm(experiment: Experiment, options: RunOptions, ask: Callable[[str], bool] | None) -> None:
@@ -140,11 +195,11 @@ def _run_locked(
         todo = [t for t in todo if t.trial_id in failed]
     summary = RunSummary(store.folder, len(trials), len(trials) - len([t for t in trials if t.trial_id not in stored]))
     n_jobs = max(1, min(options.jobs or default_jobs(), len(todo) or 1))
-    where = f"the cluster at {options.cluster}" if options.cluster else f"{n_jobs} process{'es' if n_jobs > 1 else ''}"
+    where = f"the cluster at {options.cluster}" if options.cluster else count(n_jobs, "process")
     which = "previously failed trials" if options.failed_only else "to run"
     print(
-        f"experiment {experiment.name}: {len(trials)} trials declared, {summary.already_stored} already stored, "
-        f"{len(todo)} {which} on {where}",
+        f"experiment {experiment.name}: {count(len(trials), 'trial')} declared, {summary.already_stored:,} already "
+        f"stored, {len(todo):,} {which} on {where}",
         file=out,
     )
     if n_jobs == 1 or options.cluster or not todo:
@@ -177,8 +232,9 @@ def _run_locked(
 
     outcome = "aborted"
     try:
-        if n_jobs == 1 and not options.cluster:
-            warm_up([(t.spec, options.trial_path) for t in todo])
+        if n_jobs == 1 and not options.cluster:  # workers load their own kernels
+            _warm_up_saying_when_compiling([(t.spec, options.trial_path) for t in todo], out)
+        progress.restart()
         run_parallel(
             todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster, options.cluster_timeout
         )

@@ -2,8 +2,9 @@
 
 Evaluation runs greedy episodes on a separate environment instance with its own stream; those steps never
 count as samples. A metric row is written at step 0 and then every `every` real steps. A trial runs on one of
-two paths: whole in compiled code when the environment is a known transition table (`runner.compiled_trial`),
-else step by step through gymnasium. Both call the same agent kernels.
+two paths: whole in compiled code when the agent kind has compiled kernels and the environment is a known
+transition table (`runner.compiled_trial`) or has compiled dynamics seen through bins
+(`runner.compiled_dynamics_trial`), else step by step through gymnasium. Both call the same agent kernels.
 """
 
 from __future__ import annotations
@@ -19,33 +20,45 @@ from typing import Any
 import gymnasium as gym
 import numpy as np
 
-from runner.agents import COUNTER_NAMES, TabularAgent, make_agent
+from runner.agents import COUNTER_NAMES, OwnAgent, TabularAgent, agent_class, make_agent
+from runner.compiled_dynamics_trial import CompiledDynamics, compiled_dynamics, run_dynamics_kind_trial
 from runner.compiled_trial import run_kind_trial
-from runner.envs.sources import build_env, env_sizes
+from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.metrics import METRIC_COLUMNS
 from runner.seeding import TrialStreams, trial_streams
 from runner.streams import new_stream
+from runner.tags import EnvTags
 
 __all__ = ["METRIC_COLUMNS", "TRIAL_PATHS", "TrialResult", "evaluate_greedy", "resolve_path", "run_trial"]
 
 TRIAL_PATHS = ("auto", "compiled", "gymnasium")
-"""`auto` takes the compiled path whenever the environment is table-backed."""
+"""`auto` takes the compiled path whenever the environment is table-backed and the agent has compiled kernels
+(their tags say so)."""
 
 
 @dataclass
 class TrialResult:
-    """Metric rows (one array per column, one entry per evaluation point) and the training episodes."""
+    """Metric rows (one array per column, one entry per evaluation point), the training episodes and the
+    action values the agent ended with (shape (n_states, n_actions); what its greedy evaluation policy reads)."""
 
     rows: dict[str, np.ndarray]
     episode_returns: np.ndarray
     episode_lengths: np.ndarray
     trial_path: str
+    final_values: np.ndarray | None = None
+
+
+def _reader(kind: str):
+    """What the agent is handed as an observation: a whole number (discrete) or a float64 vector (box)."""
+    if kind == "discrete":
+        return int
+    return lambda obs: np.asarray(obs, dtype=np.float64)
 
 
 def evaluate_greedy(
-    agent: TabularAgent,
+    agent: TabularAgent | OwnAgent,
     env: gym.Env,
     episodes: int,
     step_cap: int,
@@ -56,13 +69,14 @@ def evaluate_greedy(
 
     Raises TrialTimeout once `time.perf_counter()` passes `deadline`, so a huge step cap cannot outlive a limit.
     """
+    read = _reader("discrete" if isinstance(env.observation_space, gym.spaces.Discrete) else "box")
     total = 0.0
     for _ in range(episodes):
         state, _ = env.reset()
         for _ in range(step_cap):
             if time.perf_counter() > deadline:
                 raise TrialTimeout("the trial ran past its wall-clock limit during an evaluation")
-            state, reward, terminated, truncated, _ = env.step(agent.greedy(int(state), stream))
+            state, reward, terminated, truncated, _ = env.step(agent.greedy(read(state), stream))
             total += float(reward)
             if terminated or truncated:
                 break
@@ -71,12 +85,13 @@ def evaluate_greedy(
 
 @dataclass(frozen=True)
 class _EnvFacts:
-    n_states: int
-    n_actions: int
+    tags: EnvTags
     not_table_reason: str | None
     tables: tuple[TransitionTable, ...] | None
     change_steps: tuple[int, ...]
     rules: tuple | None
+    dynamics: CompiledDynamics | None
+    not_dynamics_reason: str
 
     @property
     def table(self) -> TransitionTable | None:
@@ -86,27 +101,40 @@ class _EnvFacts:
 
 @functools.lru_cache(maxsize=16)
 def _env_facts(env_json: str) -> _EnvFacts:
-    """Sizes and transition table of an environment spec, worked out once per process."""
-    env = build_env(json.loads(env_json))
+    """Tags and transition table of an environment spec, worked out once per process."""
+    spec = json.loads(env_json)
+    env = build_env(spec)
     try:
-        n_states, n_actions = env_sizes(env)
+        tags = environment_tags(env, spec)
         reason = why_not_table_backed(env)
         tables = phase_tables(env) if reason is None else None
         rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
         steps = change_steps(env)
+        dynamics = compiled_dynamics(spec, env)
     finally:
         env.close()
-    return _EnvFacts(n_states, n_actions, reason, tables, steps, rules)
+    if isinstance(dynamics, str):
+        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics)
+    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "")
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
-    """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can)."""
+    """The path a trial will take: "compiled" or "gymnasium" ("auto" prefers compiled when it can: an agent kind
+    with compiled kernels on a table-backed environment, or on a binned one with compiled dynamics)."""
     if path not in TRIAL_PATHS:
         raise ValueError(f"path must be one of {TRIAL_PATHS}, got {path!r}")
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
-    if path == "compiled" and facts.table is None:
-        raise EnvironmentSourceError(f"the compiled path needs a table-backed environment: {facts.not_table_reason}")
-    return "gymnasium" if path == "gymnasium" or facts.table is None else "compiled"
+    kind = spec["agent"]["kind"]
+    compiled_agent = agent_class(kind).tags.compiled
+    compiled_env = facts.table is not None or facts.dynamics is not None
+    if path == "compiled" and not compiled_env:
+        raise EnvironmentSourceError(
+            "the compiled path needs a table-backed environment or compiled dynamics seen through bins: "
+            f"{facts.not_table_reason}; {facts.not_dynamics_reason}"
+        )
+    if path == "compiled" and not compiled_agent:
+        raise EnvironmentSourceError(f"the compiled path needs an agent kind with compiled kernels; {kind} has none")
+    return "compiled" if path != "gymnasium" and compiled_env and compiled_agent else "gymnasium"
 
 
 def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0) -> TrialResult:
@@ -118,13 +146,18 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
-    agent.setup(
-        facts.n_states,
-        facts.n_actions,
-        streams.agent,
-        facts.table.as_tuple() if facts.table else None,
-        facts.rules,
-    )
+    if isinstance(agent, OwnAgent):
+        env = build_env(spec["env"])
+        agent.setup(env.observation_space, env.action_space, streams.agent)
+        env.close()
+    else:
+        agent.setup(
+            facts.tags.observation_size,
+            facts.tags.action_size,
+            streams.agent,
+            facts.table.as_tuple() if facts.table else None,
+            facts.rules,
+        )
     if chosen == "gymnasium":
         return _run_gymnasium(spec, agent, streams, time_limit, facts)
     return _run_compiled(spec, facts, agent, streams, time_limit)
@@ -135,19 +168,11 @@ def _run_compiled(
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
-    tables = tuple(t.as_tuple() for t in facts.tables)
-    changes = np.array([*facts.change_steps, budget + 1], dtype=np.int64)
     rows = np.zeros((budget // ev["every"] + 1, len(METRIC_COLUMNS)))
     returns = np.zeros(budget, dtype=np.float64)
     lengths = np.zeros(budget, dtype=np.int64)
-    n_episodes = run_kind_trial(
-        spec["agent"]["kind"],
-        agent.arrays_,
-        agent.hyper_,
-        agent.counters_,
-        agent.stream_,
-        tables,
-        changes,
+    agent_args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_)
+    loop_args = (
         new_stream(streams.env),
         new_stream(streams.eval_env),
         streams.evaluation,
@@ -161,6 +186,13 @@ def _run_compiled(
         returns,
         lengths,
     )
+    kind = spec["agent"]["kind"]
+    if facts.tables:
+        tables = tuple(t.as_tuple() for t in facts.tables)
+        changes = np.array([*facts.change_steps, budget + 1], dtype=np.int64)
+        n_episodes = run_kind_trial(kind, *agent_args, tables, changes, *loop_args)
+    else:
+        n_episodes = run_dynamics_kind_trial(kind, facts.dynamics, *agent_args, *loop_args)
     if n_episodes < 0:
         raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
     return TrialResult(
@@ -168,11 +200,12 @@ def _run_compiled(
         episode_returns=returns[:n_episodes].copy(),
         episode_lengths=lengths[:n_episodes].copy(),
         trial_path="compiled",
+        final_values=agent.arrays_[0].copy(),
     )
 
 
 def _run_gymnasium(
-    spec: dict[str, Any], agent: TabularAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
+    spec: dict[str, Any], agent: TabularAgent | OwnAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
@@ -185,6 +218,7 @@ def _run_gymnasium(
     lengths: list[int] = []
     recent: deque[float] = deque(maxlen=ev["training_window"])
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
+    read = _reader(facts.tags.observation)
     phase = 0
     earned = 0.0
     start = time.perf_counter()
@@ -213,7 +247,7 @@ def _run_gymnasium(
 
     try:
         record(0, 0)
-        state = int(env.reset(seed=streams.reset_seed(streams.env))[0])
+        state = read(env.reset(seed=streams.reset_seed(streams.env))[0])
         episode_return, episode_length, point = 0.0, 0, 1
         for step in range(1, budget + 1):
             if time.perf_counter() > deadline:
@@ -224,8 +258,8 @@ def _run_gymnasium(
                 eval_env.unwrapped.set_phase(phase)
             action = agent.act(state)
             next_state, reward, terminated, truncated, _ = env.step(action)
-            next_state = int(next_state)
-            agent.observe(state, action, float(reward), next_state, bool(terminated))
+            next_state = read(next_state)
+            agent.observe(state, action, float(reward), next_state, bool(terminated), bool(truncated))
             episode_return += float(reward)
             earned += float(reward)
             episode_length += 1
@@ -235,7 +269,7 @@ def _run_gymnasium(
                 lengths.append(episode_length)
                 recent.append(episode_return)
                 episode_return, episode_length = 0.0, 0
-                state = int(env.reset()[0])
+                state = read(env.reset()[0])
             if step % ev["every"] == 0:
                 record(point, step)
                 point += 1
@@ -247,4 +281,5 @@ def _run_gymnasium(
         episode_returns=np.asarray(returns, dtype=np.float64),
         episode_lengths=np.asarray(lengths, dtype=np.int64),
         trial_path="gymnasium",
+        final_values=agent.arrays_[0].copy() if isinstance(agent, TabularAgent) else None,
     )

@@ -1,10 +1,16 @@
-"""Tests for the vectorised percentile bootstrap of the mean over seeds."""
+"""Tests for the vectorised bootstrap intervals of the mean over seeds: bootstrap-t (the report's) and percentile."""
 
 import numpy as np
 import pytest
 from scipy import stats
 
-from runner.analysis.bootstrap import keyed_rng, mean_and_interval, percentile_interval
+from runner.analysis.bootstrap import (
+    interval_caption,
+    keyed_rng,
+    mean_and_interval,
+    percentile_interval,
+    studentized_interval,
+)
 
 _DATA_SETS = {
     "normal": lambda rng: rng.normal(loc=3.0, scale=2.0, size=30),
@@ -79,15 +85,69 @@ def test_trailing_shape_is_preserved():
     assert np.all(low < high)
 
 
-def test_single_sample_interval_is_the_point_itself():
+def test_single_sample_has_no_bootstrap_t_interval_and_a_point_percentile_one():
     data = np.array([[0.25, -4.0, 7.5]])
     mean, low, high = mean_and_interval(data, rng=np.random.default_rng(0))
     np.testing.assert_array_equal(mean, data[0])
+    assert np.isnan(low).all() and np.isnan(high).all()
+    _, low, high = mean_and_interval(data, rng=np.random.default_rng(0), method="percentile")
     np.testing.assert_array_equal(low, data[0])
     np.testing.assert_array_equal(high, data[0])
     one_low, one_high = percentile_interval(np.array([2.5]), rng=np.random.default_rng(0))
     assert one_low.shape == ()
     assert float(one_low) == float(one_high) == 2.5
+
+
+def _textbook_bootstrap_t(data, picks, confidence):
+    """Bootstrap-t bounds written out as Efron & Tibshirani (1993), section 12.5, one resample at a time."""
+    n = data.size
+    se = data.std(ddof=1) / np.sqrt(n)
+    t_values = []
+    for row in picks:
+        resample = data[row]
+        t_values.append((resample.mean() - data.mean()) / (resample.std(ddof=1) / np.sqrt(n)))
+    alpha = 1.0 - confidence
+    low_t, high_t = np.quantile(t_values, [alpha / 2.0, 1.0 - alpha / 2.0])
+    return data.mean() - high_t * se, data.mean() - low_t * se
+
+
+def test_bootstrap_t_matches_the_textbook_definition_column_by_column():
+    data = np.random.default_rng(17).gamma(2.0, 1.5, size=(12, 4))
+    low, high = studentized_interval(data, confidence=0.9, n_resamples=3000, rng=np.random.default_rng(8))
+    # same draws as the vectorised code: numpy's Generator.integers on the same generator state
+    picks = np.random.default_rng(8).integers(0, 12, size=(3000, 12))
+    for column in range(data.shape[1]):
+        # reference: Efron & Tibshirani (1993), An Introduction to the Bootstrap, section 12.5 (bootstrap-t)
+        ref_low, ref_high = _textbook_bootstrap_t(data[:, column], picks, 0.9)
+        assert low[column] == pytest.approx(ref_low, rel=1e-9)
+        assert high[column] == pytest.approx(ref_high, rel=1e-9)
+
+
+def test_bootstrap_t_approaches_the_t_interval_for_large_normal_samples():
+    data = np.random.default_rng(6).normal(size=400)
+    low, high = studentized_interval(data, n_resamples=20000, rng=np.random.default_rng(0))
+    # reference: scipy.stats.t.interval(0.95, n - 1, loc=mean, scale=scipy.stats.sem); for large normal samples
+    # the bootstrap-t quantiles approach Student's t quantiles (common practice)
+    ref_low, ref_high = stats.t.interval(0.95, data.size - 1, loc=data.mean(), scale=stats.sem(data))
+    assert float(low) == pytest.approx(ref_low, abs=0.01)
+    assert float(high) == pytest.approx(ref_high, abs=0.01)
+
+
+def test_bootstrap_t_widens_to_the_range_when_resamples_have_no_spread():
+    # two seeds: half the resamples pick one seed twice and have no spread, so no finite t quantile holds
+    low, high = studentized_interval(np.array([1.0, 3.0]), rng=np.random.default_rng(0))
+    assert (float(low), float(high)) == (1.0, 3.0)
+    # nine failures and one success: a third of resamples are all failures; the interval must still hold the
+    # mean and reach above it rather than collapse onto it
+    mean, low, high = mean_and_interval(np.r_[np.zeros(9), 1.0], rng=np.random.default_rng(0))
+    assert float(low) == 0.0 and float(high) > 0.3 and float(mean) == pytest.approx(0.1)
+
+
+def test_caption_names_the_method():
+    assert interval_caption(0.95) == "95% bootstrap-t interval over seeds"
+    assert interval_caption(0.9, "percentile") == "90% percentile interval over seeds"
+    with pytest.raises(ValueError, match="interval method"):
+        interval_caption(0.95, "bca")
 
 
 def test_constant_columns_have_a_zero_width_interval_containing_the_mean():

@@ -93,9 +93,10 @@ def test_write_report_writes_every_file(tmp_path):
             "seeds_advice",
             "frontier",
             "break_even",
+            "flagged_seeds",
         )
     }
-    figures = {env: ["curves", "budget"] for env in _ENVS}
+    figures = {env: ["curves", "curves_seeds", "budget"] for env in _ENVS}
     figures["FrozenLake-v1 4x4"] += ["threshold", "frontier"]  # the only env with a threshold
     for env, stems in figures.items():
         expected |= {f"{stem}_{safe_name(env)}.{ext}" for stem in stems for ext in ("png", "svg")}
@@ -110,7 +111,8 @@ def test_write_report_writes_every_file(tmp_path):
         assert (out_dir / f"curves_{safe_name(env)}.svg").read_text(encoding="utf-8").lstrip().startswith("<?xml")
 
     summary = pd.read_csv(out_dir / "summary.csv")
-    assert list(summary.columns) == SUMMARY_COLUMNS
+    assert list(summary.columns) == [*SUMMARY_COLUMNS, "interval"]
+    assert (summary["interval"] == "95% bootstrap-t interval over seeds").all()
     assert len(summary) == len(_ENVS) * len(_AGENTS)
     assert list(summary["env"]) == [env for env in _ENVS for _ in _AGENTS]
     assert list(summary["agent"]) == [agent for _ in _ENVS for agent, _, _ in _AGENTS]
@@ -130,7 +132,8 @@ def test_write_report_writes_every_file(tmp_path):
         assert f"## {env}" in markdown
     assert "Baseline agent: `q-learning`" in markdown
     assert "time-averaged greedy evaluation return" in markdown
-    assert "95% percentile bootstrap" in markdown
+    assert "95% bootstrap-t interval over seeds" in markdown
+    assert "## Methods" in markdown and "Kaplan & Meier (1958)" in markdown and "Holm (1979)" in markdown
 
     for agent, _, _ in _AGENTS:
         assert agent in output.terminal_text

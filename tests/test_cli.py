@@ -86,6 +86,10 @@ def test_list_names_every_agent_kind_and_planning_steps(tmp_path):
     for kind in AGENTS.names():
         assert re.search(rf"^\s+{kind}: ", result.stdout, flags=re.MULTILINE), kind
     assert "planning_steps" in result.stdout
+    # parameters declared with the planning-budget role are marked, whatever their name; others are not
+    for name in ("planning_steps", "replays", "simulations"):
+        assert re.search(rf"^\s+{name} .*\[planning budget\]$", result.stdout, flags=re.MULTILINE), name
+    assert not re.search(r"^\s+max_sweeps .*\[planning budget\]$", result.stdout, flags=re.MULTILINE)
 
 
 def test_report_on_folder_without_experiment_is_one_error_line(tmp_path):

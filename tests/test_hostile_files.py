@@ -212,8 +212,8 @@ CASES = [
         _HEAD + _ENV + "agents:\n  - {label: a, kind: sarsa}\n  - {label: b, kind: sarsa}\n",
         "repeats 'a'",
     ),
-    Hostile("agent-os-system", _agent("{kind: 'os:system'}"), "names a builtin_function_or_method, not a subclass"),
-    Hostile("agent-json-dumps", _agent("{kind: 'json:dumps'}"), "names a function, not a subclass"),
+    Hostile("agent-os-system", _agent("{kind: 'os:system'}"), "names a builtin_function_or_method, not a class"),
+    Hostile("agent-json-dumps", _agent("{kind: 'json:dumps'}"), "names a function, not a class"),
     Hostile("agent-missing-module", _agent("{kind: 'no_such_module_here:Agent'}"), "cannot import module"),
     Hostile(
         "agent-module-raises-on-import",
@@ -258,6 +258,22 @@ CASES = [
     Hostile("entry-builtins-dict", _env("{entry: 'builtins:dict'}"), "names a class, not a subclass of gymnasium.Env"),
     Hostile("entry-no-colon", _env("{entry: os.system}"), "expected 'package.module:Class'"),
     Hostile("two-sources", _env("{grid: {map: S.G}, gym: FrozenLake-v1}"), "got gym and grid"),
+    # bins over box observations, and own agents
+    Hostile("bins-nan", _env("{gym: MountainCar-v0, bins: {counts: 2, low: .nan, high: 1}}"), "bins.low[0]"),
+    Hostile("bins-inf-count", _env("{gym: MountainCar-v0, bins: {counts: [.inf, 2]}}"), "bins.counts[0]"),
+    Hostile("bins-a-list", _env("{gym: MountainCar-v0, bins: [1, 2]}"), "bins: expected a mapping"),
+    Hostile(
+        "bins-ten-to-the-eight-cells",
+        _env("{gym: MountainCar-v0, bins: {counts: [10000, 10000]}}"),
+        "expected at most 1,000,000 bins in all, these make 100,000,000",
+    ),
+    Hostile("bins-on-a-grid", _env("{grid: {map: S.G}, bins: {counts: 2}}"), "flat box observations to bin"),
+    Hostile("agent-not-an-agent-class", _agent("{kind: 'collections:OrderedDict'}"), "lacks setup, act, observe"),
+    Hostile(
+        "tabular-agent-on-boxes",
+        _HEAD + "environments:\n  - gym: CartPole-v1\n" + _AGENT,
+        "agents[0].kind: agent kind 'q_learning' takes discrete observations",
+    ),
     # the costs block
     Hostile("cost-price-nan", _OK + "costs: {unit: euros, real_step: .nan, cpu_second: 0.01}\n", "costs.real_step"),
     Hostile("cost-price-negative", _OK + "costs: {unit: euros, real_step: -1, cpu_second: 0.01}\n", "costs.real_step"),

@@ -47,7 +47,7 @@ def test_check_summarises_a_thousand_values_and_states_the_cost(tmp_path, capsys
     assert main(["check", str(_write(tmp_path, seeds=2))]) == 0
     lines = capsys.readouterr().out.splitlines()
     assert len(lines) <= 8, lines
-    assert "1 environments x 1001 agent variants x 2 seeds = 2002 trials" in lines[0]
+    assert "1 environment x 1,001 agent variants x 2 seeds = 2,002 trials" in lines[0]
     assert lines[1].startswith("expected: 2,002 trials, 10,010 metric rows (about ")
     assert any("sweep: 1000 variants (alpha = 0.0005, 0.001499, 0.002498, ..." in line for line in lines)
     assert not any("ask" in line for line in lines)

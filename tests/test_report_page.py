@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 import shutil
 import subprocess
-from itertools import combinations
+from itertools import combinations, pairwise
 from pathlib import Path
 
 import numpy as np
@@ -160,9 +160,10 @@ def _expected_files() -> set[str]:
         "frontier.csv",
         "break_even.csv",
         "costs.csv",
+        "flagged_seeds.csv",
     }
-    stems = {"grid A": ["curves", "threshold", "model_error", "budget", "frontier", "costs"]}
-    stems["grid B & co"] = ["curves", "model_error", "budget"]  # no threshold: no KM or frontier figure
+    stems = {"grid A": ["curves", "curves_seeds", "threshold", "model_error", "budget", "frontier", "costs"]}
+    stems["grid B & co"] = ["curves", "curves_seeds", "model_error", "budget"]  # no threshold: no KM or frontier figure
     for env, env_stems in stems.items():
         names |= {f"{stem}_{safe_name(env)}.{ext}" for stem in env_stems for ext in ("png", "svg")}
     return names
@@ -216,7 +217,7 @@ def test_efficiency_headline_and_terminal_text(report):
     break_even = pd.read_csv(out_dir / "break_even.csv")
     assert len(rest) == len(ratios) + int((break_even["rival"] == "Q-learning").sum())
     assert output.terminal_text.startswith(output.headline[0])
-    assert "page experiment (budget 2000 real steps" in output.terminal_text
+    assert "page experiment (budget 2,000 real steps" in output.terminal_text
     markdown = (out_dir / "summary.md").read_text(encoding="utf-8")
     assert "## Headline" in markdown
     assert output.headline[0] in markdown
@@ -242,21 +243,28 @@ def test_comparisons_cover_every_pair_of_every_env(report):
 def test_seeds_advice_uses_shares_of_the_return_range(report):
     out_dir, _ = report
     advice = pd.read_csv(out_dir / "seeds_advice.csv")
-    assert len(advice) == len(_ENVS) * (len(_AGENTS) - 1) * len(ADVICE_SHARES)
-    assert (advice["agent_b"] == "Q-learning").all()
-    assert set(advice["share_of_range"]) == set(ADVICE_SHARES)
+    baseline = advice[advice["pair"] == "against the baseline"]
+    assert len(baseline) == len(_ENVS) * (len(_AGENTS) - 1) * len(ADVICE_SHARES)
+    assert (baseline["agent_b"] == "Q-learning").all()
+    # Close contenders: each agent against the one ranked just above it by mean AUC, unless that is the baseline.
+    scores = pd.read_csv(out_dir / "trial_scores.csv")
+    for env, rows in advice[advice["pair"] == "against the next better"].groupby("env"):
+        ranked = scores[scores["env"] == env].groupby("agent")["auc"].mean().sort_values(ascending=False).index
+        pairs = {(worse, better) for better, worse in pairwise(ranked) if "Q-learning" not in (better, worse)}
+        assert set(zip(rows["agent_a"], rows["agent_b"], strict=True)) == pairs
+    assert np.allclose(sorted(set(advice["share_of_range"].round(12))), ADVICE_SHARES)
     frame = _frame()
     for env, rows in advice.groupby("env"):
         span = frame.loc[frame["env"] == env, "eval_return"].agg(np.ptp)
         assert np.allclose(rows["difference"], rows["share_of_range"] * span)
         assert np.allclose(rows["return_range"], span)
     # A larger difference never needs more seeds.
-    for _, rows in advice.groupby(["env", "agent_a"]):
+    for _, rows in advice.groupby(["env", "agent_a", "agent_b"]):
         needed = rows.sort_values("difference")["seeds_needed"].to_numpy()
         assert (np.diff(needed) <= 0).all()
 
 
-def test_frontier_marks_variants_no_other_beats(report):
+def test_frontier_compares_cpu_time_intervals(report):
     out_dir, _ = report
     frontier = pd.read_csv(out_dir / "frontier.csv")
     assert list(frontier["agent"]) == _LABELS
@@ -264,17 +272,28 @@ def test_frontier_marks_variants_no_other_beats(report):
     assert rows.loc["Q-learning", "updates_per_real"] == pytest.approx(1.0)
     assert rows.loc["Dyna-Q (planning_steps=50)", "updates_per_real"] == pytest.approx(52.0)
     assert rows.loc["Dyna-Q (planning_steps=50)", "planning_per_real"] == pytest.approx(50.0)
+    # the synthetic CPU time is 0.9e-5 s x (1 + planning) per real step, the same on every seed
+    assert rows.loc["Dyna-Q (planning_steps=50)", "cpu_us_per_real"] == pytest.approx(9.0 * 51)
+    assert rows.loc["Q-learning", "cpu_us_low"] == pytest.approx(9.0)
     reached = frontier.dropna(subset=["median_steps"])
-    for _, row in reached.iterrows():
-        no_worse = (reached["updates_per_real"] <= row["updates_per_real"]) & (
-            reached["median_steps"] <= row["median_steps"]
-        )
-        better = (reached["updates_per_real"] < row["updates_per_real"]) | (
-            reached["median_steps"] < row["median_steps"]
-        )
-        assert bool(row["on_frontier"]) == (not (no_worse & better).any())
+    for env, in_env in reached.groupby("env"):
+        for _, row in in_env.iterrows():
+            # ahead: an interval wholly below; behind: wholly above (a median at the first point spans 0 to it)
+            cpu_ahead = in_env["cpu_us_high"] < row["cpu_us_low"]
+            cpu_behind = in_env["cpu_us_low"] > row["cpu_us_high"]
+            steps_ahead = in_env["median_high"].fillna(np.inf) < row["median_low"]
+            steps_behind = in_env["median_low"] > row["median_high"]
+            beaten = ((cpu_ahead & ~steps_behind) | (steps_ahead & ~cpu_behind)).any()
+            assert bool(row["on_frontier"]) == (not beaten), (env, row["agent"])
     assert not frontier.loc[frontier["median_steps"].isna(), "on_frontier"].any()
-    assert rows.loc["certainty-equivalence", "on_frontier"]  # fewest real steps
+    # the cheapest variant: no other is ahead of it on CPU time, and none is clearly ahead on steps alone
+    assert rows.loc["Q-learning", "on_frontier"]
+    # certainty-equivalence needs the fewest steps, but its interval overlaps that of Dyna-Q (planning_steps=50),
+    # which is clearly cheaper: so it is not marked
+    assert not rows.loc["certainty-equivalence", "on_frontier"]
+    html = (out_dir / "report.html").read_text(encoding="utf-8")
+    assert "CPU µs per real step, median [low, high]" in html
+    assert "no other clearly ahead" in html
 
 
 def test_page_is_self_contained_and_escaped(report):
@@ -323,12 +342,40 @@ def test_budget_families_from_labels_and_params():
     assert budget_families(["Q"], {"Q": "q_learning"}, {"Q": {"alpha": 0.1}}) == []
 
 
+def test_budget_families_follow_the_declared_role_not_the_name():
+    kinds = {"R (replays=1)": "replay_q_learning", "R (replays=8)": "replay_q_learning"}
+    kinds |= {"U (simulations=10)": "uct_search", "U (simulations=100)": "uct_search"}
+    found = budget_families(list(kinds), kinds, {})
+    assert [(param, name) for param, name, _ in found] == [("replays", "R"), ("simulations", "U")]
+    # a parameter named like a budget on a kind that does not declare it (or on an unregistered kind) is not one
+    other = {"C (max_sweeps=5)": "certainty_equivalence", "C (max_sweeps=50)": "certainty_equivalence"}
+    other |= {"M (planning_steps=1)": "mine.agents:Mine", "M (planning_steps=9)": "mine.agents:Mine"}
+    assert budget_families(list(other), other, {}) == []
+
+
 def test_pareto_front_marks_variants_no_other_beats():
     compute = np.array([1.0, 5.0, 50.0, 60.0, 7.0, np.nan, 2.0])
     steps = np.array([np.nan, 1400.0, 600.0, 700.0, 1400.0, 10.0, 1400.0])
     # 5.0 and 7.0 need as many steps as 2.0 with more compute; 60.0 is beaten by 50.0 on both axes.
     assert pareto_front(compute, steps).tolist() == [False, False, True, False, False, False, True]
     assert pareto_front(np.array([3.0, 3.0]), np.array([10.0, 10.0])).tolist() == [True, True]
+
+
+def test_pareto_front_with_bounds_needs_intervals_that_separate():
+    compute = np.array([10.0, 12.0, 100.0])
+    steps = np.array([1000.0, 900.0, 400.0])
+    cpu_bounds = (np.array([8.0, 11.0, 90.0]), np.array([12.0, 13.0, 110.0]))
+    # the second variant's steps interval overlaps the first's: neither is clearly ahead of the other
+    overlapping = (np.array([800.0, 700.0, 300.0]), np.array([1200.0, 1100.0, 500.0]))
+    front = pareto_front(compute, steps, compute_bounds=cpu_bounds, steps_bounds=overlapping)
+    assert front.tolist() == [True, True, True]
+    # now the first is clearly ahead on CPU time (intervals 1-2 against 11-13) and not behind on steps
+    cpu_apart = (np.array([1.0, 11.0, 90.0]), np.array([2.0, 13.0, 110.0]))
+    front = pareto_front(compute, steps, compute_bounds=cpu_apart, steps_bounds=overlapping)
+    assert front.tolist() == [True, False, True]
+    # unknown bounds (NaN) never separate
+    unknown = (np.full(3, np.nan), np.full(3, np.nan))
+    assert pareto_front(compute, steps, compute_bounds=unknown, steps_bounds=unknown).all()
 
 
 def test_old_style_facts_and_consecutive_points(tmp_path):
@@ -371,7 +418,8 @@ def test_no_baseline_and_no_threshold_still_write_a_page(tmp_path):
     assert "the experiment declares no baseline agent" in html
     assert not list(tmp_path.glob("threshold_*.png")) and not list(tmp_path.glob("frontier_*.png"))
     advice = pd.read_csv(tmp_path / "seeds_advice.csv")
-    assert set(advice["agent_b"]) == {_LABELS[0]}  # the first agent stands in for the missing baseline
+    against = advice[advice["pair"] == "against the baseline"]
+    assert set(against["agent_b"]) == {_LABELS[0]}  # the first agent stands in for the missing baseline
 
 
 def _chromium() -> str:
@@ -442,3 +490,30 @@ def test_report_of_a_stored_experiment_carries_its_records(tmp_path):
     assert len(output.headline) == 2 * len(ratios)  # no costs block: ratios, then break-even prices
     # On the maze: dyna x 3 and ce against q, each with a ratio and a break-even price.
     assert sum(sentence.startswith("On maze,") for sentence in output.headline) == 8
+
+
+def test_frontier_reads_a_median_at_the_first_point_as_a_bound():
+    from runner.analysis.page import frontier_view
+
+    rows = pd.DataFrame(
+        {
+            "env": "aisle",
+            "agent": ["coarse", "measured"],
+            "kind": "dyna_q",
+            "updates_per_real": [6.0, 1.0],
+            "planning_per_real": [5.0, 0.0],
+            "cpu_us_per_real": [40.0, np.nan],
+            "cpu_us_low": [35.0, np.nan],
+            "cpu_us_high": [45.0, np.nan],
+            "reached_share": [1.0, 1.0],
+            "median_steps": [1000.0, 3000.0],
+            "median_low": [np.nan, 2000.0],
+            "median_high": [np.nan, 4000.0],
+            "first_point": [1000.0, 1000.0],
+            "on_frontier": [True, False],
+        }
+    )
+    view = frontier_view(rows)
+    cells = dict(zip(view.frame()["agent"], view.frame()["median real steps [low, high]"], strict=True))
+    assert cells == {"coarse": "at or before 1,000", "measured": "3,000 [2,000, 4,000]"}
+    assert view.frame()["CPU µs per real step, median [low, high]"].tolist()[1] == "n/a"

@@ -50,7 +50,13 @@ def test_rows_provenance_and_tidy_frame(tmp_path):
     )
     assert (summary.planned, summary.ran, summary.failed) == (4, 4, [])
     frame = runner.load_results(tmp_path / "results" / "tiny")
-    assert list(frame.columns) == ["env", "agent", "kind", "trial_id", "seed", "point", *METRIC_COLUMNS]
+    fixed = ["env", "agent", "kind", "trial_id", "seed", "version", "point", *METRIC_COLUMNS]
+    assert list(frame.columns[: len(fixed)]) == fixed
+    params = ["param_alpha", "param_epsilon", "param_gamma", "param_initial_q", "param_planning_steps"]
+    assert sorted(frame.columns[len(fixed) :]) == params
+    assert (frame["version"] == 1).all()
+    assert frame.loc[frame["agent"] == "dyna", "param_planning_steps"].eq(5).all()
+    assert frame.loc[frame["agent"] == "q", "param_planning_steps"].isna().all()  # Q-learning has no such parameter
     assert len(frame) == 4 * 4  # 4 trials x evaluation points at 0, 100, 200, 300 real steps
     assert sorted(frame["real_steps"].unique()) == [0, 100, 200, 300]
     dyna = frame[frame["kind"] == "dyna_q"]

@@ -146,7 +146,7 @@ def test_sentence_forms():
     fewer, more, same, missing, no_interval = efficiency_sentences(table, "a return of 0.9")
     assert fewer == (
         "On maze, Dyna-Q (n=50) needed 6.1x fewer real steps than Q-learning to reach a return of 0.9 "
-        "(95% interval 4.8-7.9; 30/30 and 27/30 paired seeds reached it)."
+        "(95% paired percentile interval 4.8-7.9; 30/30 and 27/30 paired seeds reached it)."
     )
     # a ratio of 0.5 means twice the steps; the interval 0.4-0.8 becomes 1.25-2.5 times as many
     assert "needed 2x more real steps" in more and "interval 1.25-2.5" in more

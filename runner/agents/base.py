@@ -17,6 +17,7 @@ from runner.errors import EnvironmentSourceError
 from runner.models.table_error import no_model_error
 from runner.params import Param, resolve_params
 from runner.streams import as_stream
+from runner.tags import AgentTags
 
 __all__ = ["COUNTER_NAMES", "TabularAgent"]
 
@@ -39,11 +40,15 @@ class TabularAgent:
         """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
         return dict(self._params)
 
-    needs_rules: ClassVar[bool] = False
-    """Kinds that search a game's rules set this; they run only on game environments (`game_rules()`)."""
+    tags: ClassVar[AgentTags] = AgentTags()
+    """What the kind takes and needs (see `runner.tags.AgentTags`): discrete observations and actions, compiled
+    kernels, no learned model unless a kind says otherwise. `needs` holds `rules` for kinds that search a game's
+    rules and `table` for oracles that plan on the environment's true table (`setup` then requires it)."""
 
-    needs_table: ClassVar[bool] = False
-    """Kinds that plan on the environment's true table (oracles) set this; `setup` then requires the table."""
+    @classmethod
+    def needs_rules(cls) -> bool:
+        """Whether the kind searches a game's rules (it runs only on game environments, `game_rules()`)."""
+        return "rules" in cls.tags.needs
 
     def setup(
         self,
@@ -77,7 +82,7 @@ class TabularAgent:
 
     def uses_table(self) -> bool:
         """Whether this agent, with its parameters, plans on the true table (an oracle upper bound)."""
-        return self.needs_table
+        return "table" in self.tags.needs
 
     def label_note(self) -> str:
         """Text appended to the agent's variant label in every output (e.g. to mark an oracle); empty: none."""
@@ -95,8 +100,14 @@ class TabularAgent:
         """Behaviour action for a real step (draws from the agent's own stream)."""
         return int(self.act_kernel(self.arrays_, self.hyper_, state, self.stream_))
 
-    def observe(self, state: int, action: int, reward: float, next_state: int, terminated: bool) -> None:
-        """Learn from one real transition (and plan, for agents that plan)."""
+    def observe(
+        self, state: int, action: int, reward: float, next_state: int, terminated: bool, truncated: bool = False
+    ) -> None:
+        """Learn from one real transition (and plan, for agents that plan).
+
+        A truncated step (the episode was cut by a time limit) still bootstraps from `next_state`: only
+        `terminated` ends the return, so the tabular kernels need no more than it.
+        """
         self.observe_kernel(
             self.arrays_,
             self.hyper_,

@@ -9,6 +9,7 @@ from runner.agents.kernels import epsilon_greedy
 from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import Param
 from runner.planning.value_iteration import sweep_until_converged
+from runner.tags import AgentTags
 
 __all__ = ["CertaintyEquivalence", "count_model_arrays"]
 
@@ -115,6 +116,8 @@ def certainty_equivalence_model_error(arrays, table):
 
 class CertaintyEquivalence(TabularAgent):
     """Model-based agent that trusts its maximum-likelihood model and solves it by value iteration."""
+
+    tags = AgentTags(learned_model="table")
 
     kind = "certainty_equivalence"
     summary = "count-based transition and mean-reward model, value iteration re-planned every k real steps"

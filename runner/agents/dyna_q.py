@@ -7,8 +7,9 @@ from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.models.table_error import true_mean_reward, true_probability
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
+from runner.tags import AgentTags
 
 __all__ = ["DynaQ", "last_outcome_arrays", "record_last_outcome"]
 
@@ -104,6 +105,8 @@ def dyna_q_model_error(arrays, table):
 class DynaQ(TabularAgent):
     """Tabular Dyna-Q with a deterministic last-outcome model and a planning budget per real step."""
 
+    tags = AgentTags(learned_model="table")
+
     kind = "dyna_q"
     summary = "Q-learning plus n simulated updates per real step from a learned last-outcome model"
     source = "Sutton (1990); Sutton & Barto (2018), section 8.2"
@@ -112,7 +115,14 @@ class DynaQ(TabularAgent):
         GAMMA,
         EPSILON,
         INITIAL_Q,
-        Param("planning_steps", "int", 5, "simulated updates per real step (n; 0 gives Q-learning)", low=0),
+        Param(
+            "planning_steps",
+            "int",
+            5,
+            "simulated updates per real step (n; 0 gives Q-learning)",
+            low=0,
+            role=PLANNING_BUDGET,
+        ),
     )
 
     def make_arrays(self, n_states, n_actions):

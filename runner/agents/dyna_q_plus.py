@@ -12,8 +12,9 @@ from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
 from runner.agents.kernels import epsilon_greedy, q_learning_update
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
+from runner.tags import AgentTags
 
 __all__ = ["DynaQPlus"]
 
@@ -63,6 +64,8 @@ def dyna_q_plus_observe(arrays, hyper, counters, state, action, reward, next_sta
 class DynaQPlus(TabularAgent):
     """Dyna-Q with an exploration bonus in planning, for environments that change."""
 
+    tags = AgentTags(learned_model="table")
+
     kind = "dyna_q_plus"
     summary = "Dyna-Q whose planning rewards pairs untried for tau real steps with kappa * sqrt(tau)"
     source = "Sutton (1990); Sutton & Barto (2018), section 8.3"
@@ -71,7 +74,7 @@ class DynaQPlus(TabularAgent):
         GAMMA,
         EPSILON,
         INITIAL_Q,
-        Param("planning_steps", "int", 5, "simulated updates per real step (n)", low=0),
+        Param("planning_steps", "int", 5, "simulated updates per real step (n)", low=0, role=PLANNING_BUDGET),
         Param("kappa", "float", 1e-3, "size of the exploration bonus kappa * sqrt(tau)", low=0.0),
     )
 

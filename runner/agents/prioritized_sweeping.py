@@ -11,7 +11,8 @@ from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
 from runner.agents.kernels import epsilon_greedy, q_learning_update
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
+from runner.tags import AgentTags
 
 __all__ = ["PrioritizedSweeping"]
 
@@ -142,6 +143,8 @@ def prioritized_sweeping_observe(arrays, hyper, counters, state, action, reward,
 class PrioritizedSweeping(TabularAgent):
     """Tabular prioritized sweeping with a deterministic model and a per-step update budget."""
 
+    tags = AgentTags(learned_model="table")
+
     kind = "prioritized_sweeping"
     summary = "model-based updates ordered by priority |expected change|, spreading backwards through predecessors"
     source = "Moore & Atkeson (1993); Peng & Williams (1993); Sutton & Barto (2018), section 8.4"
@@ -150,7 +153,7 @@ class PrioritizedSweeping(TabularAgent):
         GAMMA,
         EPSILON,
         INITIAL_Q,
-        Param("planning_steps", "int", 5, "queued updates per real step at most (n)", low=0),
+        Param("planning_steps", "int", 5, "queued updates per real step at most (n)", low=0, role=PLANNING_BUDGET),
         Param("theta", "float", 1e-4, "smallest priority that enters the queue", low=0.0),
         Param("max_predecessors", "int", 64, "(state, action) pairs remembered as leading into one state", low=1),
     )

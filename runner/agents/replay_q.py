@@ -10,8 +10,9 @@ from numba import njit
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.kernels import epsilon_greedy, q_learning_update
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
+from runner.tags import AgentTags
 
 __all__ = ["ReplayQLearning"]
 
@@ -62,6 +63,8 @@ def replay_q_observe(arrays, hyper, counters, state, action, reward, next_state,
 class ReplayQLearning(TabularAgent):
     """Q-learning plus uniform replays from a buffer of recent real transitions."""
 
+    tags = AgentTags()
+
     kind = "replay_q_learning"
     summary = "Q-learning plus k uniform replays per real step from a buffer of recent real transitions"
     source = "Lin (1992); Sutton & Barto (2018), section 8.2 (the model-free contrast to Dyna)"
@@ -73,7 +76,7 @@ class ReplayQLearning(TabularAgent):
         Param(
             "buffer_size", "int", 10_000, "real transitions kept for replay (oldest dropped first)", low=1, high=10**7
         ),
-        Param("replays", "int", 5, "replayed updates per real step (k)", low=0),
+        Param("replays", "int", 5, "replayed updates per real step (k)", low=0, role=PLANNING_BUDGET),
     )
 
     def make_arrays(self, n_states, n_actions):

@@ -13,24 +13,25 @@ environment without them (e.g. a grid map) cannot be searched as a game.
 
 from __future__ import annotations
 
-from typing import ClassVar
-
 import numpy as np
 from numba import njit
 
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA
 from runner.errors import EnvironmentSourceError
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
 from runner.planning.negamax import make_search_arrays, most_visited, random_legal_move, uct_search
 from runner.streams import uniform
+from runner.tags import AgentTags
 
 __all__ = ["NegamaxSearch"]
 
 _SIMULATIONS, _EXPLORATION, _EPSILON, _ALPHA, _GAMMA = range(5)
 _Q, _NEXT, _TERMINAL, _TERMINAL_VALUE, _VISITS, _VALUE_SUM, _PROVEN, _PATH, _COUNTS = range(9)
 
-SIMULATIONS = Param("simulations", "int", 1000, "search simulations per move (real or evaluation)", low=1)
+SIMULATIONS = Param(
+    "simulations", "int", 1000, "search simulations per move (real or evaluation)", low=1, role=PLANNING_BUDGET
+)
 EXPLORATION = Param(
     "exploration", "float", 1.4, "UCT exploration constant c in -mean + c sqrt(ln N / n); values lie in [-1, 1]", low=0
 )
@@ -101,7 +102,7 @@ class NegamaxSearch(TabularAgent):
     source = "Kocsis & Szepesvari (2006); Winands, Bjornsson & Saito (2008); Sutton & Barto (2018), section 8.11"
     schema = (SIMULATIONS, EXPLORATION, EPSILON, ALPHA, GAMMA)
 
-    needs_rules: ClassVar[bool] = True
+    tags = AgentTags(needs=("rules",))
     """This kind searches a game tree, so `setup` requires the environment's game rules."""
 
     def setup(

@@ -22,7 +22,7 @@ from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA
 from runner.agents.kernels import q_learning_update
 from runner.models.table_error import true_mean_reward, true_probability
-from runner.params import Param
+from runner.params import PLANNING_BUDGET, Param
 from runner.planning.tree import (
     BACKUP_BELLMAN,
     BACKUP_MEAN,
@@ -45,6 +45,7 @@ from runner.planning.tree import (
     table_arrays,
 )
 from runner.streams import below, uniform
+from runner.tags import AgentTags
 
 __all__ = ["PUCTSearch", "UCTSearch"]
 
@@ -136,7 +137,7 @@ def tree_search_model_error(arrays, table):
 
 
 _SHARED = (
-    Param("simulations", "int", 100, "simulations per search (one search per real step)", low=1),
+    Param("simulations", "int", 100, "simulations per search (one search per real step)", low=1, role=PLANNING_BUDGET),
     Param("depth", "int", 20, "depth limit of a simulation, tree and rollout steps together", low=1),
     Param(
         "backup",
@@ -184,6 +185,8 @@ _SHARED = (
 
 class _TreeSearch(TabularAgent):
     """What UCT and PUCT share: arrays, hyper layout, kernels, oracle handling and accounting."""
+
+    tags = AgentTags(learned_model="table")
 
     selection: ClassVar[int] = SELECT_UCT
 

@@ -377,7 +377,7 @@ def break_even_sentences(table: pd.DataFrame, prices: Prices) -> list[str]:
     sentences = []
     for _, row in table.iterrows():
         env, agent, rival = row["env"], row["agent"], row["rival"]
-        level = f"{round(100 * float(row['confidence']), 1):g}%"
+        level = f"{round(100 * float(row['confidence']), 1):g}% paired percentile"
         if row["verdict"] == "undefined":
             sentences.append(f"On {env}, no break-even price for {agent} against {rival}: {row['note']}.")
             continue
@@ -429,7 +429,7 @@ def decision_sentences(costs: pd.DataFrame, prices: Prices) -> list[str]:
         if not best["rival"]:
             sentences.append(f"{head}.")
             continue
-        level = f"{round(100 * float(best['confidence']), 1):g}%"
+        level = f"{round(100 * float(best['confidence']), 1):g}% paired percentile"
         saving = -float(best["difference"])
         interval = (
             f" ({level} interval {_money(-float(best['high']))} to {_money(-float(best['low']))})"

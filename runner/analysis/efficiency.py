@@ -268,7 +268,7 @@ def _sentence(row: pd.Series, threshold_label: str | Mapping[str, str]) -> str:
             f"On {env}, {agent} needed at least {_number(factor)}x {direction} real steps than {baseline} to "
             f"reach {label}: {row['note']}."
         )
-    level = f"{round(100 * float(row['confidence']), 1):g}%"
+    level = f"{round(100 * float(row['confidence']), 1):g}% paired percentile"
     counts = (
         f"{row['agent_reached']}/{row['paired_seeds']} and {row['baseline_reached']}/{row['paired_seeds']} "
         "paired seeds reached it"

@@ -18,9 +18,13 @@ import jinja2
 import numpy as np
 import pandas as pd
 
+from runner.analysis.bootstrap import interval_caption
 from runner.analysis.costs import BREAK_EVEN_COLUMNS, COST_COLUMNS, COST_TRIAL_COLUMNS, format_cpu_time
 from runner.analysis.measures import MEASURES
+from runner.analysis.methods import method_lines
+from runner.analysis.seeds import COLLAPSE_DROP, COLLAPSE_POINTS, OUTLIER_Z, SEED_FLAG_COLUMNS
 from runner.analysis.tables import format_interval, format_number
+from runner.analysis.versions import VERSION_COLUMNS
 from runner.safe_files import write_atomic
 
 if TYPE_CHECKING:
@@ -48,6 +52,7 @@ __all__ = [
     "markdown_sections",
     "recovery_view",
     "render_page",
+    "seeds_view",
     "summary_view",
     "threshold_view",
     "windows_view",
@@ -107,6 +112,7 @@ class ReportTables:
     break_even: pd.DataFrame = field(default_factory=lambda: _empty(BREAK_EVEN_COLUMNS))
     costs: pd.DataFrame = field(default_factory=lambda: _empty(COST_COLUMNS))
     priced: pd.DataFrame = field(default_factory=lambda: _empty(COST_TRIAL_COLUMNS))
+    seed_flags: pd.DataFrame = field(default_factory=lambda: _empty(SEED_FLAG_COLUMNS))
 
 
 @dataclass(frozen=True)
@@ -116,13 +122,15 @@ class ExperimentRecords:
     runs: run_id, started, finished, outcome, command, experiment_file, experiment_text, experiment_hash,
     versions (JSON text), platform, jobs.
     failures: env, agent, seed, trial_id, run_id, error_type, message, at, stored_later.
-    missing and undeclared: env, agent, seed, trial_id.
+    missing and undeclared: env, agent, seed, trial_id (undeclared also version).
+    versions: the experiment file's versions (`runner.analysis.versions.VERSION_COLUMNS`).
     """
 
     runs: pd.DataFrame = field(default_factory=lambda: _empty(RUN_COLUMNS))
     failures: pd.DataFrame = field(default_factory=lambda: _empty(FAILURE_COLUMNS))
     missing: pd.DataFrame = field(default_factory=lambda: _empty(TRIAL_COLUMNS))
     undeclared: pd.DataFrame = field(default_factory=lambda: _empty(TRIAL_COLUMNS))
+    versions: pd.DataFrame = field(default_factory=lambda: _empty(VERSION_COLUMNS))
 
 
 @dataclass(frozen=True)
@@ -210,7 +218,7 @@ def _number(value: object) -> str:
     return "n/a" if pd.isna(value) else format_number(float(value))  # type: ignore[arg-type]
 
 
-def summary_view(rows: pd.DataFrame) -> TableView:
+def summary_view(rows: pd.DataFrame, confidence: float = 0.95) -> TableView:
     """AUC and final return with intervals, planning ratio and wall time per agent of one environment."""
     columns: list[_Column] = [
         ("agent", False, lambda r: str(r["agent"])),
@@ -224,7 +232,10 @@ def summary_view(rows: pd.DataFrame) -> TableView:
         ("planning updates per real step", True, lambda r: _number(r["planning_per_real"])),
         ("wall seconds per trial", True, lambda r: _number(r["wall_seconds"])),
     ]
-    note = "AUC: the time-averaged greedy evaluation return over the real-step budget, in return units."
+    note = (
+        "AUC: the time-averaged greedy evaluation return over the real-step budget, in return units. "
+        f"[low, high]: {interval_caption(confidence)}."
+    )
     return _view(rows, columns, note, "Summary")
 
 
@@ -250,7 +261,9 @@ def threshold_view(rows: pd.DataFrame, confidence: float) -> TableView:
     return _view(rows, columns, note + _FINER, "Real steps to threshold")
 
 
-def efficiency_view(rows: pd.DataFrame, title: str = "Real steps against the baseline") -> TableView:
+def efficiency_view(
+    rows: pd.DataFrame, title: str = "Real steps against the baseline", confidence: float = 0.95
+) -> TableView:
     """Baseline median over agent median of real steps to threshold, with its paired-bootstrap interval."""
 
     def ratio(r: pd.Series) -> str:
@@ -277,12 +290,14 @@ def efficiency_view(rows: pd.DataFrame, title: str = "Real steps against the bas
     ]
     note = (
         "A ratio above 1 means the agent needed fewer real steps than the baseline; an interval that includes 1 "
-        "shows no clear difference. Seeds are resampled in pairs (both agents' trials of a seed together)."
+        f"shows no clear difference. [low, high]: {interval_caption(confidence, 'percentile')}, seeds resampled "
+        'in pairs (both agents\' trials of a seed together). ">= x": a median at the first evaluation point is only '
+        "bounded, so the ratio is too and gets no interval."
     )
     return _view(rows, columns, note, title)
 
 
-def earnings_view(rows: pd.DataFrame) -> TableView:
+def earnings_view(rows: pd.DataFrame, confidence: float = 0.95) -> TableView:
     """Reward earned while learning per agent: in total, per real step, and over the last evaluation interval."""
     columns: list[_Column] = [
         ("agent", False, lambda r: str(r["agent"])),
@@ -301,7 +316,8 @@ def earnings_view(rows: pd.DataFrame) -> TableView:
     ]
     note = (
         "Reward of every real step taken while learning, exploration included (the measure of Sutton & Barto "
-        "2018, Examples 8.2 and 8.3); per real step it is the earning rate. Means over seeds with bootstrap intervals."
+        "2018, Examples 8.2 and 8.3); per real step it is the earning rate. Means over seeds; [low, high]: "
+        f"{interval_caption(confidence)}."
     )
     return _view(rows, columns, note, "Reward earned while learning")
 
@@ -332,7 +348,7 @@ def recovery_view(rows: pd.DataFrame, confidence: float) -> TableView:
     return _view(rows, columns, note, "Adaptation after the change")
 
 
-def windows_view(rows: pd.DataFrame) -> TableView:
+def windows_view(rows: pd.DataFrame, confidence: float = 0.95) -> TableView:
     """The measure in windows before, just after and at the end of the phase each change starts."""
     columns: list[_Column] = [
         ("change", False, lambda r: f"{int(r['change'])} at {_steps(r['at'])}"),
@@ -342,8 +358,8 @@ def windows_view(rows: pd.DataFrame) -> TableView:
         ("mean [low, high]", True, lambda r: format_interval(r["mean"], r["low"], r["high"])),
     ]
     note = (
-        "The primary measure averaged over each window's evaluation points, then over seeds, with bootstrap "
-        "intervals. Windows are a quarter of the shorter neighbouring phase."
+        "The primary measure averaged over each window's evaluation points, then over seeds; [low, high]: "
+        f"{interval_caption(confidence)}. Windows are a quarter of the shorter neighbouring phase."
     )
     return _view(rows, columns, note, "The measure around each change")
 
@@ -375,31 +391,62 @@ def comparisons_view(rows: pd.DataFrame, confidence: float, score: str = "AUC") 
     note = (
         f"Welch's t-test on {score} (unequal variances), Holm-adjusted over the pairs of this environment so the "
         f"chance of any false alarm stays at {alpha:.0%}. P(A > B): chance that a random trial of A scores a higher "
-        f"{score} than one of B (ties count half), with a bootstrap interval; 0.5 means no tendency either way."
+        f"{score} than one of B (ties count half), with a {interval_caption(confidence, 'percentile')}; 0.5 means "
+        "no tendency either way."
     )
     return _view(rows, columns, note, f"Are the differences real? ({score})")
 
 
-def frontier_view(rows: pd.DataFrame) -> TableView:
-    """Compute per real step against median real steps to threshold, and which variants no other beats."""
+def frontier_view(rows: pd.DataFrame, confidence: float = 0.95) -> TableView:
+    """CPU time per real step against median real steps to threshold, and which variants none is clearly ahead of."""
+
+    def cpu(r: pd.Series) -> str:
+        if pd.isna(r["cpu_us_per_real"]):
+            return "n/a"
+        return format_interval(r["cpu_us_per_real"], r["cpu_us_low"], r["cpu_us_high"])
+
     columns: list[_Column] = [
         ("agent", False, lambda r: str(r["agent"])),
+        ("CPU µs per real step, median [low, high]", True, cpu),
         ("updates per real step", True, lambda r: _number(r["updates_per_real"])),
         ("planning updates per real step", True, lambda r: _number(r["planning_per_real"])),
-        ("wall µs per real step", True, lambda r: _number(r["wall_us_per_real"])),
         (
             "median real steps [low, high]",
             True,
-            lambda r: _steps_interval(r["median_steps"], r["median_low"], r["median_high"]),
+            lambda r: _steps_interval(r["median_steps"], r["median_low"], r["median_high"], _first(r)),
         ),
-        ("beaten by no other", False, lambda r: "yes" if bool(r["on_frontier"]) else ""),
+        ("no other clearly ahead", False, lambda r: "yes" if bool(r["on_frontier"]) else ""),
     ]
     note = (
-        "Updates per real step count real, planning and model updates. A variant is marked when no other needs "
-        "no more real steps (median) and no more compute while needing less of one; variants whose median was not "
-        "reached are not ranked. Point estimates: read the intervals before calling one variant better."
+        "Compute is measured CPU time spent acting, learning and planning (evaluation excluded) per real step, "
+        f"median over seeds with a {interval_caption(confidence, 'percentile')}; updates per real step (real, "
+        "planning and model updates) are shown beside it but count a value-iteration backup and a sample update "
+        "alike. A variant is clearly ahead of another on one axis when its interval lies wholly below the other's "
+        "(Kaplan-Meier complementary log-log intervals for the steps; a median at the first evaluation point is "
+        'read as "0 to that point"); a variant is marked when no other is clearly ahead on one axis without being '
+        "clearly behind on the other. Variants whose median was not reached are not ranked. CPU times depend on "
+        "the machine and on what else it ran: compare them within one run."
     )
     return _view(rows, columns, note, "Compute against real steps")
+
+
+def seeds_view(rows: pd.DataFrame) -> TableView:
+    """Seeds a mean hides: runs that collapsed after reaching the threshold or lie far from the other seeds."""
+    columns: list[_Column] = [
+        ("agent", False, lambda r: str(r["agent"])),
+        ("seed", True, lambda r: str(int(r["seed"]))),
+        ("trial id", False, lambda r: str(r["trial_id"])),
+        ("flag", False, lambda r: str(r["flag"])),
+        ("note", False, lambda r: str(r["detail"])),
+    ]
+    note = (
+        "collapsed: reached the threshold, then the mean of its last "
+        f"{COLLAPSE_POINTS} evaluations fell more than {COLLAPSE_DROP:.0%} of the environment's observed range "
+        "below it. far from the rest: a modified z-score (0.6745 x distance from the median / MAD over the agent's "
+        f"seeds) beyond {OUTLIER_Z:g}. The per-seed figure draws them dark; `stepmeter rerun` re-runs a trial "
+        "by its id."
+    )
+    return _view(rows, columns, note, "Seeds to look at")
 
 
 def _cpu_price(value: float) -> str:
@@ -469,7 +516,9 @@ def advice_note(rows: pd.DataFrame, power: float = 0.8, alpha: float = 0.05) -> 
         "return stored for it), so they read in return units like the AUC itself, whatever the reward scale. "
         f"Seeds needed: the smallest equal number per agent for a two-sided two-sample t-test at {alpha:.0%} to "
         f"detect that difference in mean AUC with {power:.0%} power, from the pilot spreads of this experiment; those "
-        "spreads are themselves uncertain with few seeds, so read the numbers as a guide."
+        "spreads are themselves uncertain with few seeds, so read the numbers as a guide. Each agent is compared "
+        "with the baseline and with the agent ranked just above it (close contenders need the most seeds); "
+        "`stepmeter seeds` prints the same advice."
     )
 
 
@@ -485,6 +534,7 @@ def advice_view(rows: pd.DataFrame, *, with_env: bool = True, title: str = "Seed
     columns += [
         ("agent", False, lambda r: str(r["agent_a"])),
         ("against", False, lambda r: str(r["agent_b"])),
+        ("why this pair", False, lambda r: str(r.get("pair", ""))),
         ("pilot seeds", True, lambda r: f"{int(r['n_a'])} / {int(r['n_b'])}"),
         ("observed AUC difference", True, lambda r: _number(r["observed_difference"])),
         (
@@ -505,26 +555,28 @@ def _env_rows(table: pd.DataFrame, env: str) -> pd.DataFrame:
 
 def env_views(data: ReportTables, facts: ExperimentFacts, env: str) -> dict[str, TableView | None]:
     """Every table of one environment keyed by its place on the page (None when it does not apply)."""
-    views: dict[str, TableView | None] = {"summary": summary_view(_env_rows(data.summary, env))}
+    views: dict[str, TableView | None] = {"summary": summary_view(_env_rows(data.summary, env), facts.confidence)}
     tsummary = _env_rows(data.tsummary, env)
     views["threshold"] = threshold_view(tsummary, facts.confidence) if len(tsummary) else None
     efficiency = _env_rows(data.efficiency, env)
-    views["efficiency"] = efficiency_view(efficiency) if len(efficiency) else None
+    views["efficiency"] = efficiency_view(efficiency, confidence=facts.confidence) if len(efficiency) else None
     comparisons = _env_rows(data.comparisons, env)
     score = "AUC" if facts.measure == "greedy_return" else "reward per real step"
     views["comparisons"] = comparisons_view(comparisons, facts.confidence, score) if len(comparisons) else None
     frontier = _env_rows(data.frontier, env)
-    views["frontier"] = frontier_view(frontier) if len(frontier) else None
+    views["frontier"] = frontier_view(frontier, facts.confidence) if len(frontier) else None
     earnings = _env_rows(data.earnings, env)
-    views["earnings"] = earnings_view(earnings) if len(earnings) else None
+    views["earnings"] = earnings_view(earnings, facts.confidence) if len(earnings) else None
     recovery = _env_rows(data.rsummary, env)
     views["recovery"] = recovery_view(recovery, facts.confidence) if len(recovery) else None
     ratios = _env_rows(data.rratios, env)
     views["recovery_ratios"] = (
-        efficiency_view(ratios, "Real steps to recover against the baseline") if len(ratios) else None
+        efficiency_view(ratios, "Real steps to recover against the baseline", facts.confidence) if len(ratios) else None
     )
     windows = _env_rows(data.windows, env)
-    views["windows"] = windows_view(windows) if len(windows) else None
+    views["windows"] = windows_view(windows, facts.confidence) if len(windows) else None
+    flagged = _env_rows(data.seed_flags, env)
+    views["seeds"] = seeds_view(flagged) if len(flagged) else None
     break_even = _env_rows(data.break_even, env)
     views["break_even"] = break_even_view(break_even) if len(break_even) else None
     costs = _env_rows(data.costs, env)
@@ -567,7 +619,24 @@ def _records_views(records: ExperimentRecords) -> dict[str, TableView]:
     return {
         "failures": _view(records.failures, failures, title="Failures"),
         "missing": _view(records.missing, trial, title="Missing trials"),
-        "undeclared": _view(records.undeclared, trial, title="Stored but undeclared trials"),
+        "undeclared": _view(
+            records.undeclared,
+            [*trial, ("version", False, lambda r: str(r.get("version", "")))],
+            title="Stored but undeclared trials",
+        ),
+        "versions": _view(
+            records.versions,
+            [
+                ("version", False, lambda r: str(r["version"])),
+                ("hash", False, lambda r: str(r["hash"])),
+                ("first run", False, lambda r: str(r["first_run"])),
+                ("runs", True, lambda r: str(r["runs"])),
+                ("trials stored", True, lambda r: f"{int(r['trials_stored']):,}"),
+                ("current", False, lambda r: str(r["current"])),
+                ("what changed from the version before", False, lambda r: str(r["changes"])),
+            ],
+            title="Versions of the experiment file",
+        ),
     }
 
 
@@ -660,13 +729,23 @@ def _data_uri(path: Path | None) -> str | None:
 _FIGURE_TEXT = {
     "curves": (
         "Learning curves",
-        "Mean greedy evaluation return against real environment steps; shaded: bootstrap interval over seeds; "
+        "Mean greedy evaluation return against real environment steps; shaded: {interval}; "
         "dotted vertical lines: the map changes, labelled with the phase they start (phase 1 is the first map).",
     ),
     "earning": (
         "Reward earned while learning",
         "Reward earned per real step over each evaluation interval, exploration included (the slope of the "
-        "cumulative reward); shaded: bootstrap interval over seeds; dotted vertical lines: the map changes.",
+        "cumulative reward); shaded: {interval}; dotted vertical lines: the map changes.",
+    ),
+    "curves_seeds": (
+        "Learning curves, seed by seed",
+        "Greedy evaluation return of every seed (thin lines), one panel per agent, axes shared across panels; "
+        "dark, labelled lines are seeds flagged below; dashed: the threshold; dotted: the map changes.",
+    ),
+    "earning_seeds": (
+        "Reward earned while learning, seed by seed",
+        "Reward earned per real step of every seed (thin lines), one panel per agent, axes shared across "
+        "panels; dark, labelled lines are seeds flagged below; dashed: the threshold; dotted: the map changes.",
     ),
     "threshold": (
         "Time to threshold",
@@ -675,19 +754,22 @@ _FIGURE_TEXT = {
     ),
     "budget": (
         "Planning budget: what it buys and what it costs",
-        "Top: AUC and median real steps to threshold against the planning budget (log axis; 0 at the left end), "
-        "with intervals. Bottom: planning updates and wall microseconds per real step. Dotted: the baseline.",
+        "Top: AUC ({interval}) and median real steps to threshold (Kaplan-Meier) against the parameter each agent "
+        "kind declares as its planning budget (log axis; 0 at the left end). Bottom: planning updates and "
+        "measured CPU microseconds per real step (median, {percentile}; log axis when the values span more than "
+        "30x). Dotted: the baseline.",
     ),
     "frontier": (
         "Real steps against compute",
-        "Median real steps to threshold against all updates per real step (log axis). Ringed variants are "
-        "beaten by no other (none needs no more steps and no more compute); hollow markers above the budget "
-        "line did not reach a median.",
+        "Median real steps to threshold (Kaplan-Meier) against measured CPU microseconds per real step (median, "
+        "{percentile}); an axis is logarithmic when its values span more than 30x. Ringed variants have no "
+        "other clearly ahead of them (an interval wholly below theirs on one axis, not wholly above on the "
+        "other); hollow markers above the budget line did not reach a median.",
     ),
     "costs": (
         "Total cost against the price of a real step",
         "Median total cost to the threshold (real steps times their price plus training CPU seconds times theirs) "
-        "against the price of one real step, both log axes; shaded: percentile bootstrap band over seeds. Circles "
+        "against the price of one real step, both log axes; shaded: {percentile} (paired). Circles "
         "mark where an agent becomes cheaper than the baseline (its break-even price); dashed: your price.",
     ),
     "model_error": (
@@ -699,24 +781,30 @@ _FIGURE_TEXT = {
 }
 
 
-def _figure(key: str, path: Path | None, env: str) -> dict[str, str] | None:
-    """Template data of one figure, or None when the figure was not drawn."""
+def _figure(key: str, path: Path | None, env: str, confidence: float = 0.95) -> dict[str, str] | None:
+    """Template data of one figure, or None when the figure was not drawn; the caption names its intervals."""
     uri = _data_uri(path)
     if uri is None:
         return None
     title, caption = _FIGURE_TEXT[key]
+    caption = caption.format(
+        interval=interval_caption(confidence), percentile=interval_caption(confidence, "percentile")
+    )
     return {"title": title, "caption": caption, "src": uri, "alt": f"{title} for {env}", "file": Path(path).name}
 
 
 def _env_context(page: EnvPage, index: int, data: ReportTables, facts: ExperimentFacts) -> dict[str, object]:
     """Template data of one environment: figures and tables in reading order."""
     views = env_views(data, facts, page.env)
-    figures = {key: _figure(key, path, page.env) for key, path in page.figures.items()}
+    figures = {key: _figure(key, path, page.env, facts.confidence) for key, path in page.figures.items()}
     blocks = [
         ("figure", figures.get("curves")),
         ("table", views["summary"]),
+        ("figure", figures.get("curves_seeds")),
         ("figure", figures.get("earning")),
         ("table", views["earnings"]),
+        ("figure", figures.get("earning_seeds")),
+        ("table", views["seeds"]),
         ("figure", figures.get("threshold")),
         ("table", views["threshold"]),
         ("table", views["efficiency"]),
@@ -802,10 +890,11 @@ def render_page(
         ],
         advice_note=advice_note(data.advice),
         records=record_views,
-        counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs")},
+        counts={key: len(getattr(records, key)) for key in ("failures", "missing", "undeclared", "runs", "versions")},
         runs=_runs(records.runs),
         glance=glance_sentences(data.tsummary, envs, facts.changes),
         experiment_texts=_experiment_texts(records.runs),
+        methods=method_lines(facts.confidence),
     )
 
 

@@ -100,14 +100,20 @@ def _save_both(figure: Figure, out_dir: Path, stem: str) -> list[Path]:
 
 
 def _finish(axes: Axes, xlabel: str, ylabel: str, title: str | None = None, legend: bool = True) -> None:
-    """Labels, light grid and a frameless legend shared by every panel."""
+    """Labels, light grid and a frameless legend shared by every panel; the legend sits outside the panel, to its
+    right, so no number of variants hides the data (the constrained layout makes room for it)."""
     axes.set_xlabel(xlabel)
     axes.set_ylabel(ylabel)
     if title:
         axes.set_title(title)
     axes.grid(True, color=_GRID_COLOUR, linewidth=0.6)
     if legend and axes.get_legend_handles_labels()[0]:
-        axes.legend(loc="best", fontsize="small", frameon=False)
+        _legend_beside(axes)
+
+
+def _legend_beside(axes: Axes) -> None:
+    """A frameless legend to the right of the panel, outside the data area."""
+    axes.legend(loc="upper left", bbox_to_anchor=(1.02, 1.0), borderaxespad=0.0, fontsize="small", frameon=False)
 
 
 def _draw_bands(axes: Axes, bands: pd.DataFrame, styles: dict[str, tuple[str, str]]) -> None:
@@ -229,7 +235,7 @@ def plot_threshold(
     axes.set_xlim(0, 1.02 * max(float(budget), float(km_steps["time"].max()) if len(km_steps) else 1.0))
     axes.set_ylim(-0.02, 1.02)
     _finish(axes, "real environment steps", f"share of trials not yet at\n{threshold_text}", title, legend=False)
-    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    _legend_beside(axes)
     return _save_both(figure, out_dir, f"threshold_{safe_name(env)}")
 
 
@@ -269,7 +275,7 @@ class BudgetFamily:
     """Agent variants that differ only in one planning parameter, with their results per value.
 
     `rows` has one row per variant with columns value, agent, auc_mean, auc_low, auc_high, median_steps,
-    median_low, median_high, planning_per_real, wall_us_per_real, wall_us_low, wall_us_high.
+    median_low, median_high, planning_per_real, cpu_us_per_real, cpu_us_low, cpu_us_high.
     """
 
     name: str
@@ -281,12 +287,12 @@ class BudgetFamily:
 
 @dataclass(frozen=True)
 class BudgetReference:
-    """The baseline agent's AUC, median real steps to threshold and wall microseconds per real step."""
+    """The baseline agent's AUC, median real steps to threshold and CPU microseconds per real step."""
 
     label: str
     auc: float
     median_steps: float
-    wall_us_per_real: float
+    cpu_us_per_real: float
 
 
 def _budget_axis(axes: Axes, values: np.ndarray) -> None:
@@ -303,6 +309,19 @@ def _budget_axis(axes: Axes, values: np.ndarray) -> None:
     ticks = np.unique(values)
     axes.set_xticks(ticks, [f"{tick:g}" for tick in ticks])
     axes.minorticks_off()
+
+
+# Values spanning more than this ratio (largest over smallest positive) get a logarithmic axis.
+LOG_SPAN = 30.0
+
+
+def _spans_orders(values: np.ndarray) -> bool:
+    """True when the positive finite values span more than LOG_SPAN (and none is zero or negative)."""
+    values = np.asarray(values, dtype=float)
+    values = values[np.isfinite(values)]
+    if values.size == 0 or (values <= 0).any():
+        return False
+    return float(values.max()) / float(values.min()) > LOG_SPAN
 
 
 def _error_bar(axes: Axes, x: np.ndarray, columns: Sequence[np.ndarray], style: dict[str, object]) -> None:
@@ -336,14 +355,15 @@ def plot_budget(
 
     Four panels against the planning parameter of each family: AUC with its interval, Kaplan-Meier median
     real steps to threshold with its interval (no point where fewer than half the trials reached it), planning
-    updates per real step, and wall microseconds per real step with its interval. The baseline, when given,
-    is a dotted reference line. A budget of 0 sits at the left end of a symmetric-log axis.
+    updates per real step, and measured CPU microseconds per real step (median over seeds) with its interval;
+    the CPU axis is logarithmic when its values span more than LOG_SPAN. The baseline, when given, is a dotted
+    reference line. A budget of 0 sits at the left end of a symmetric-log axis.
     """
     if not families:
         raise ValueError("plot_budget needs at least one family of variants")
     figure = Figure(figsize=(11.0, 7.5), layout="constrained")
     panels = figure.subplots(2, 2)
-    auc_axes, steps_axes, planning_axes, wall_axes = panels.ravel()
+    auc_axes, steps_axes, planning_axes, cpu_axes = panels.ravel()
     for family in families:
         rows = family.rows.sort_values("value")
         x = rows["value"].to_numpy(dtype=float)
@@ -351,14 +371,14 @@ def plot_budget(
         _error_bar(auc_axes, x, [rows[f"auc_{part}"] for part in ("mean", "low", "high")], style)
         _error_bar(steps_axes, x, [rows[f"median_{part}"] for part in ("steps", "low", "high")], style)
         planning_axes.plot(x, rows["planning_per_real"].to_numpy(dtype=float), linewidth=1.6, markersize=5, **style)
-        _error_bar(wall_axes, x, [rows[c] for c in ("wall_us_per_real", "wall_us_low", "wall_us_high")], style)
+        _error_bar(cpu_axes, x, [rows[c] for c in ("cpu_us_per_real", "cpu_us_low", "cpu_us_high")], style)
     _note_if_empty(steps_axes, "no median: no threshold, or fewer than half the trials reached it")
     if reference is not None:
         label = f"baseline {reference.label}"
         for axes, value in (
             (auc_axes, reference.auc),
             (steps_axes, reference.median_steps),
-            (wall_axes, reference.wall_us_per_real),
+            (cpu_axes, reference.cpu_us_per_real),
         ):
             if math.isfinite(value):
                 axes.axhline(value, color=_THRESHOLD_COLOUR, linestyle=":", linewidth=1.1, label=label)
@@ -368,13 +388,20 @@ def plot_budget(
         (auc_axes, "AUC (time-averaged return)", "return over the budget"),
         (steps_axes, "median real steps to threshold", "real steps to threshold"),
         (planning_axes, "planning updates per real step", "planning compute"),
-        (wall_axes, "wall microseconds per real step", "wall time"),
+        (cpu_axes, "CPU microseconds per real step (median)", "CPU time"),
     ):
         _budget_axis(axes, values)
         _finish(axes, xlabel, ylabel, panel_title, legend=axes is auc_axes)
     steps_axes.set_ylim(0, budget * 1.05)
     planning_axes.set_ylim(bottom=0)
-    wall_axes.set_ylim(bottom=0)
+    cpu_values = [family.rows[c].to_numpy(dtype=float) for family in families for c in ("cpu_us_low", "cpu_us_high")]
+    if reference is not None:
+        cpu_values.append(np.array([reference.cpu_us_per_real]))
+    if _spans_orders(np.concatenate(cpu_values)):
+        cpu_axes.set_yscale("log")
+        cpu_axes.set_ylabel("CPU microseconds per real step (median, log scale)")
+    else:
+        cpu_axes.set_ylim(bottom=0)
     figure.suptitle(title)
     return _save_both(figure, out_dir, f"budget_{safe_name(env)}")
 
@@ -425,7 +452,7 @@ def plot_costs(
     axes.set_xscale("log")
     axes.set_yscale("log")
     _finish(axes, f"price of one real step ({unit}, log scale)", f"median total cost to threshold ({unit})", title)
-    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+    _legend_beside(axes)
     return _save_both(figure, out_dir, f"costs_{safe_name(env)}")
 
 
@@ -438,30 +465,37 @@ def plot_frontier(
     out_dir: Path,
     title: str,
 ) -> list[Path]:
-    """Write `frontier_<env>.png/.svg`: median real steps to threshold against compute per real step.
+    """Write `frontier_<env>.png/.svg`: median real steps to threshold against CPU time per real step.
 
-    `points` has one row per agent with updates_per_real, median_steps, median_low, median_high and on_frontier.
-    Variants no other variant beats (see `pareto_front` in report.py) are ringed and joined by a dashed
-    staircase; variants whose median was not reached within the budget sit above the budget line, hollow.
+    `points` has one row per agent with cpu_us_per_real, cpu_us_low, cpu_us_high, median_steps, median_low,
+    median_high and on_frontier. Both coordinates carry their intervals as error bars; variants that no other
+    is clearly ahead of (see `pareto_front` in report.py) are ringed; variants whose median was not reached
+    within the budget sit above the budget line, hollow; variants without CPU times are not drawn. An axis
+    whose values span more than LOG_SPAN is logarithmic.
     """
     figure = Figure(figsize=(7.5, 5.0), layout="constrained")
     axes = figure.add_subplot()
     ceiling = budget * 1.12
     for agent, (colour, marker) in agent_styles(agents).items():
-        row = points[points["agent"] == agent]
+        row = points[(points["agent"] == agent) & points["cpu_us_per_real"].notna()]
         if row.empty:
             continue
-        x = row["updates_per_real"].to_numpy(dtype=float)
+        x = row["cpu_us_per_real"].to_numpy(dtype=float)
+        x_low, x_high = row["cpu_us_low"].to_numpy(dtype=float), row["cpu_us_high"].to_numpy(dtype=float)
+        xerr = np.nan_to_num(np.vstack([np.clip(x - x_low, 0, None), np.clip(x_high - x, 0, None)]))
         median = row["median_steps"].to_numpy(dtype=float)
         if np.isnan(median[0]):
-            axes.plot(
+            axes.errorbar(
                 x,
                 [ceiling],
+                xerr=xerr,
                 linestyle="none",
                 marker=marker,
                 markersize=8,
                 markerfacecolor="white",
                 markeredgecolor=colour,
+                color=colour,
+                capsize=3,
                 label=f"{agent} (median not reached)",
             )
             continue
@@ -469,7 +503,16 @@ def plot_frontier(
         upper = np.where(np.isinf(high), ceiling, high)
         yerr = np.nan_to_num(np.vstack([np.clip(median - low, 0, None), np.clip(upper - median, 0, None)]))
         axes.errorbar(
-            x, median, yerr=yerr, color=colour, marker=marker, markersize=7, capsize=3, linestyle="none", label=agent
+            x,
+            median,
+            xerr=xerr,
+            yerr=yerr,
+            color=colour,
+            marker=marker,
+            markersize=7,
+            capsize=3,
+            linestyle="none",
+            label=agent,
         )
         if bool(row["on_frontier"].iloc[0]):
             axes.plot(
@@ -482,24 +525,30 @@ def plot_frontier(
                 markeredgecolor=_THRESHOLD_COLOUR,
                 markeredgewidth=1.2,
             )
-    best = points[points["on_frontier"].astype(bool)].sort_values("updates_per_real")
-    if len(best) > 1:
-        axes.step(
-            best["updates_per_real"],
-            best["median_steps"],
-            where="post",
-            color=_THRESHOLD_COLOUR,
-            linestyle="--",
-            linewidth=1.0,
-            label="beaten by no other variant",
-        )
+    axes.plot(
+        [],
+        [],
+        linestyle="none",
+        marker="o",
+        markersize=12,
+        markerfacecolor="none",
+        color=_THRESHOLD_COLOUR,
+        label="no other clearly ahead",
+    )
     axes.axhline(budget, color=_THRESHOLD_COLOUR, linestyle=":", linewidth=1.0, label=f"budget ({budget:,} real steps)")
-    positive = points["updates_per_real"].to_numpy(dtype=float)
-    if (positive > 0).all():
+    drawn = points[points["cpu_us_per_real"].notna()]
+    xlabel = "CPU microseconds per real step (median over seeds)"
+    if _spans_orders(drawn[["cpu_us_low", "cpu_us_per_real", "cpu_us_high"]].to_numpy(dtype=float).ravel()):
         axes.set_xscale("log")
+        xlabel += ", log scale"
+    steps = drawn["median_steps"].to_numpy(dtype=float)
+    if _spans_orders(np.r_[steps[np.isfinite(steps)], budget]):
+        axes.set_yscale("log")
+        axes.set_ylim(np.nanmin(steps) / 1.5, budget * 1.4)
+        ylabel = "median real steps to threshold (log scale)"
     else:
-        axes.set_xscale("symlog", linthresh=1.0)
-    axes.set_ylim(0, budget * 1.2)
-    _finish(axes, "updates per real step (real + planning + model, log scale)", "median real steps to threshold", title)
-    axes.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize="small", frameon=False)
+        axes.set_ylim(0, budget * 1.2)
+        ylabel = "median real steps to threshold"
+    _finish(axes, xlabel, ylabel, title)
+    _legend_beside(axes)
     return _save_both(figure, out_dir, f"frontier_{safe_name(env)}")

@@ -7,7 +7,7 @@ overestimated the way a normal approximation would.
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
-from itertools import combinations
+from itertools import combinations, pairwise
 
 import numpy as np
 import pandas as pd
@@ -15,7 +15,20 @@ from scipy import stats
 
 from runner.analysis.tables import ordered_labels
 
-__all__ = ["ADVICE_COLUMNS", "achieved_power", "seeds_advice", "seeds_needed"]
+__all__ = [
+    "ADVICE_COLUMNS",
+    "ADVICE_SHARES",
+    "ADVICE_TABLE_COLUMNS",
+    "achieved_power",
+    "advice_pairs",
+    "advice_table",
+    "seeds_advice",
+    "seeds_needed",
+]
+
+ADVICE_SHARES = (0.05, 0.1, 0.2)
+"""Differences to detect by default, as shares of an environment's return range, so they read in return units
+whatever the reward scale."""
 
 ADVICE_COLUMNS = [
     "env",
@@ -125,6 +138,23 @@ def _pairs(agents: list[str], baseline: str | None) -> list[tuple[str, str]]:
     return [(agent, baseline) for agent in agents if agent != baseline]
 
 
+def advice_pairs(means: pd.Series, baseline: str | None) -> list[tuple[str, str, str]]:
+    """Who to advise on: every agent against the baseline, then each agent against the one ranked just above it
+    by mean score (close contenders, the comparisons most in need of seeds), each pair once.
+
+    `means` maps agent label to mean score, in the report's agent order. Returns (agent, against, why) triples.
+    """
+    agents = list(means.index)
+    pairs = [(agent, baseline, "against the baseline") for agent in agents if baseline in agents and agent != baseline]
+    seen = {frozenset(pair[:2]) for pair in pairs}
+    ranked = means.sort_values(ascending=False, kind="stable").index.tolist()
+    for better, worse in pairwise(ranked):
+        if frozenset((better, worse)) not in seen:
+            seen.add(frozenset((better, worse)))
+            pairs.append((worse, better, "against the next better"))
+    return pairs
+
+
 def seeds_advice(
     scores: pd.DataFrame,
     env: str,
@@ -136,12 +166,13 @@ def seeds_advice(
     alpha: float = 0.05,
     power: float = 0.8,
     max_seeds: int = 10000,
+    pairs: Sequence[tuple[str, str]] | None = None,
 ) -> pd.DataFrame:
     """Seeds per agent needed to detect each requested difference in mean `metric`, from a pilot experiment.
 
-    One row per (pair of agents, difference): every pair in `agent_order` order, or each agent against
-    `baseline`. Columns: env, agent_a, agent_b, n_a, n_b, the pilot sds (ddof=1), the observed mean difference,
-    the requested difference, seeds_needed (NA when a side has fewer than 2 pilot trials or more than
+    One row per (pair of agents, difference): the given `pairs`, else every pair in `agent_order` order, or each
+    agent against `baseline`. Columns: env, agent_a, agent_b, n_a, n_b, the pilot sds (ddof=1), the observed mean
+    difference, the requested difference, seeds_needed (NA when a side has fewer than 2 pilot trials or more than
     `max_seeds` would be needed) and power_now (power at the smaller pilot size, NA below 2 trials).
     Pilot sds are themselves uncertain with few seeds; treat the answer as a guide, not a guarantee.
     """
@@ -151,7 +182,7 @@ def seeds_advice(
     agents = ordered_labels(in_env["agent"], agent_order)
     values = {agent: in_env.loc[in_env["agent"] == agent, metric].to_numpy(dtype=float) for agent in agents}
     rows = []
-    for first, second in _pairs(agents, baseline):
+    for first, second in pairs if pairs is not None else _pairs(agents, baseline):
         x, y = values[first], values[second]
         sd_a = float(x.std(ddof=1)) if x.size > 1 else np.nan
         sd_b = float(y.std(ddof=1)) if y.size > 1 else np.nan
@@ -180,3 +211,43 @@ def seeds_advice(
                 }
             )
     return pd.DataFrame.from_records(rows, columns=ADVICE_COLUMNS).astype({"seeds_needed": "Int64"})
+
+
+ADVICE_TABLE_COLUMNS = [*ADVICE_COLUMNS, "share_of_range", "return_range", "pair"]
+
+
+def advice_table(
+    scores: pd.DataFrame,
+    env: str,
+    return_range: float,
+    *,
+    baseline: str | None,
+    agent_order: Sequence[str] = (),
+    differences: Iterable[float] | None = None,
+    alpha: float = 0.05,
+    power: float = 0.8,
+) -> pd.DataFrame:
+    """The seeds advice of `stepmeter seeds` and of the report, in one form: AUC differences in return units,
+    each also given as a share of the environment's return range (highest minus lowest stored evaluation
+    return), for every agent against the baseline and against its closest better-ranked contender.
+
+    `differences` default to ADVICE_SHARES of the range. Columns ADVICE_TABLE_COLUMNS (`pair` says why a pair
+    is there). Empty when the range is not positive or fewer than two agents have trials.
+    """
+    in_env = scores[scores["env"] == env]
+    agents = ordered_labels(in_env["agent"], agent_order)
+    if not np.isfinite(return_range) or return_range <= 0 or len(agents) < 2:
+        return pd.DataFrame(columns=ADVICE_TABLE_COLUMNS)
+    reference = baseline if baseline in agents else agents[0]
+    means = in_env.groupby("agent", sort=False)["auc"].mean().reindex(agents)
+    chosen = advice_pairs(means, reference)
+    wanted = [float(d) for d in differences] if differences is not None else [s * return_range for s in ADVICE_SHARES]
+    table = seeds_advice(
+        in_env, env, wanted, agent_order=agents, alpha=alpha, power=power, pairs=[p[:2] for p in chosen]
+    )
+    why = {p[:2]: p[2] for p in chosen}
+    return table.assign(
+        share_of_range=table["difference"] / return_range,
+        return_range=return_range,
+        pair=[why[(a, b)] for a, b in zip(table["agent_a"], table["agent_b"], strict=True)],
+    )

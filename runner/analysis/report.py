@@ -20,6 +20,7 @@ import numpy as np
 import pandas as pd
 from scipy import special
 
+from runner.agents import AGENTS, agent_class
 from runner.analysis.adaptation import (
     RECOVERY_COLUMNS,
     RECOVERY_RATIO_COLUMNS,
@@ -30,7 +31,7 @@ from runner.analysis.adaptation import (
     recovery_times,
     window_means,
 )
-from runner.analysis.bootstrap import keyed_rng, mean_and_interval
+from runner.analysis.bootstrap import interval_caption, keyed_rng, median_and_interval
 from runner.analysis.compare import PAIRWISE_COLUMNS, pairwise_welch
 from runner.analysis.costs import (
     BREAK_EVEN_COLUMNS,
@@ -46,6 +47,7 @@ from runner.analysis.costs import (
 from runner.analysis.curves import curve_bands, trial_scores
 from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
 from runner.analysis.measures import EARNING_COLUMNS, GREEDY_RETURN, MEASURES, earning_summary, with_earning_rate
+from runner.analysis.methods import method_lines
 from runner.analysis.page import (
     EnvPage,
     ExperimentRecords,
@@ -65,7 +67,9 @@ from runner.analysis.plots import (
     plot_model_error,
     plot_threshold,
 )
-from runner.analysis.power import ADVICE_COLUMNS, seeds_advice
+from runner.analysis.power import ADVICE_SHARES, ADVICE_TABLE_COLUMNS, advice_table
+from runner.analysis.seed_plots import plot_seed_curves
+from runner.analysis.seeds import seed_flags
 from runner.analysis.tables import ordered_labels, summary_table, to_markdown, to_terminal
 from runner.analysis.threshold import (
     CROSSING_COLUMNS,
@@ -74,6 +78,7 @@ from runner.analysis.threshold import (
     steps_to_threshold,
     threshold_summary,
 )
+from runner.params import budget_params
 from runner.safe_files import ensure_folder, remove_leftovers, write_atomic
 
 __all__ = [
@@ -103,19 +108,15 @@ REQUIRED_COLUMNS = (
     "planning_updates",
     "wall_seconds",
 )
-# Seeds advice asks for AUC differences of these shares of the environment's observed return range
-# (max - min of every evaluation return stored for it): AUC is in return units, so a share of that range is
-# a difference in absolute units that stays meaningful whatever the reward scale of the environment.
-ADVICE_SHARES = (0.05, 0.1, 0.2)
 COMPUTE_COLUMNS = [
     "env",
     "agent",
     "trials",
     "updates_per_real",
     "planning_per_real",
-    "wall_us_per_real",
-    "wall_us_low",
-    "wall_us_high",
+    "cpu_us_per_real",
+    "cpu_us_low",
+    "cpu_us_high",
 ]
 FRONTIER_COLUMNS = [
     "env",
@@ -123,15 +124,16 @@ FRONTIER_COLUMNS = [
     "kind",
     "updates_per_real",
     "planning_per_real",
-    "wall_us_per_real",
+    "cpu_us_per_real",
+    "cpu_us_low",
+    "cpu_us_high",
     "reached_share",
     "median_steps",
     "median_low",
     "median_high",
+    "first_point",
     "on_frontier",
 ]
-# A varied agent parameter whose name matches this is treated as a planning budget in the budget figure.
-_PLANNING_PARAM = re.compile(r"planning")
 _LABEL_PARAMS = re.compile(r"^(?P<base>.*?) \((?P<inner>[^()]*)\)$")
 _TRIAL_KEYS = ["env", "agent", "kind", "trial_id", "seed"]
 
@@ -188,6 +190,11 @@ class ReportOutput:
     warnings: list[str] = field(default_factory=list)
 
 
+def write_csv(path: Path, table: pd.DataFrame) -> Path:
+    """Write one table as CSV atomically (see `_write_text_atomic`)."""
+    return _write_text_atomic(path, table.to_csv(index=False))
+
+
 def _write_text_atomic(path: Path, text: str) -> Path:
     """Write text under a temporary name in the same folder, then rename, so readers never see half a file."""
     return write_atomic(path, lambda stream: stream.write(text.encode("utf-8")))
@@ -211,41 +218,42 @@ def _last_rows(frame: pd.DataFrame) -> pd.DataFrame:
     last = frame.groupby(["env", "agent", "trial_id"], sort=False, observed=True)["point"].idxmax()
     columns = [
         c
-        for c in (*_TRIAL_KEYS, "real_steps", "real_updates", "planning_updates", "model_updates", "wall_seconds")
+        for c in (*_TRIAL_KEYS, "real_steps", "real_updates", "planning_updates", "model_updates", "cpu_seconds")
         if c in frame.columns
     ]
     return frame.loc[last.to_numpy(), columns].reset_index(drop=True)
 
 
 def compute_table(frame: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts) -> pd.DataFrame:
-    """Per (env, agent): updates and planning updates per real step, and wall microseconds per real step.
+    """Per (env, agent): updates and planning updates per real step, and measured CPU microseconds per real step.
 
     `updates_per_real` counts every update an agent makes per real step (real, planning and model updates),
-    so model-free agents sit at about 1 rather than 0; the wall time has a percentile bootstrap interval.
+    so model-free agents sit at about 1 rather than 0; but a value-iteration backup and a sample update count
+    alike there, so compute is compared on `cpu_us_per_real`: each trial's CPU time spent acting, learning and
+    planning (evaluation excluded) over its real steps, median over seeds with a percentile bootstrap interval
+    (a median, so not bootstrap-t). Stores without CPU times give NaN.
     """
     last = _last_rows(frame)
     steps = last["real_steps"].to_numpy(dtype=float)
     model = last["model_updates"].to_numpy(dtype=float) if "model_updates" in last else 0.0
     total = last["real_updates"].to_numpy(dtype=float) + last["planning_updates"].to_numpy(dtype=float) + model
+    cpu = last["cpu_seconds"].to_numpy(dtype=float) if "cpu_seconds" in last else np.full(len(last), np.nan)
     with np.errstate(divide="ignore", invalid="ignore"):
         per_trial = last[["env", "agent"]].assign(
             updates_per_real=np.where(steps > 0, total / steps, np.nan),
             planning_per_real=np.where(steps > 0, last["planning_updates"].to_numpy(dtype=float) / steps, np.nan),
-            wall_us_per_real=np.where(steps > 0, 1e6 * last["wall_seconds"].to_numpy(dtype=float) / steps, np.nan),
+            cpu_us_per_real=np.where(steps > 0, 1e6 * cpu / steps, np.nan),
         )
     rows = []
     for (env, agent), group in per_trial.groupby(["env", "agent"], sort=False):
-        wall = group["wall_us_per_real"].dropna().to_numpy()
-        mean, low, high = (np.nan,) * 3
-        if wall.size:
-            mean, low, high = (
-                float(value)
-                for value in mean_and_interval(
-                    wall,
-                    confidence=facts.confidence,
-                    n_resamples=facts.n_resamples,
-                    rng=keyed_rng(facts.seed, "wall", str(env), str(agent)),
-                )
+        cpu_us = group["cpu_us_per_real"].dropna().to_numpy()
+        median, low, high = (np.nan,) * 3
+        if cpu_us.size:
+            median, low, high = median_and_interval(
+                cpu_us,
+                confidence=facts.confidence,
+                n_resamples=facts.n_resamples,
+                rng=keyed_rng(facts.seed, "cpu", str(env), str(agent)),
             )
         rows.append(
             {
@@ -254,9 +262,9 @@ def compute_table(frame: pd.DataFrame, envs: list[str], agents: list[str], facts
                 "trials": len(group),
                 "updates_per_real": float(group["updates_per_real"].mean()),
                 "planning_per_real": float(group["planning_per_real"].mean()),
-                "wall_us_per_real": mean,
-                "wall_us_low": low,
-                "wall_us_high": high,
+                "cpu_us_per_real": median,
+                "cpu_us_low": low,
+                "cpu_us_high": high,
             }
         )
     return _sort_by_order(pd.DataFrame.from_records(rows, columns=COMPUTE_COLUMNS), envs, agents)
@@ -332,6 +340,30 @@ def threshold_warnings(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[s
     return warnings
 
 
+# Flagged trials named one by one in a warning; the rest are counted (the table and CSV list them all).
+_NAMED_FLAGS = 5
+
+
+def seed_warnings(flags: pd.DataFrame, envs: list[str]) -> list[str]:
+    """One warning per environment with flagged seeds, naming the first few by agent, seed and trial id."""
+    warnings = []
+    for env in envs:
+        rows = flags[flags["env"] == env] if len(flags) else flags
+        if rows.empty:
+            continue
+        named = [
+            f"{row['agent']} seed {int(row['seed'])} {row['flag']} (trial {row['trial_id']})"
+            for _, row in rows.head(_NAMED_FLAGS).iterrows()
+        ]
+        more = f" and {len(rows) - _NAMED_FLAGS} more" if len(rows) > _NAMED_FLAGS else ""
+        noun = "seed is" if len(rows) == 1 else "seeds are"
+        warnings.append(
+            f"On {env}, {len(rows)} {noun} unlike the mean: {'; '.join(named)}{more}. See 'Seeds to look at', "
+            "flagged_seeds.csv and the per-seed figures."
+        )
+    return warnings
+
+
 def _adaptation(
     frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agents: list[str]
 ) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame, pd.DataFrame]:
@@ -398,9 +430,9 @@ def _leading_agents(means: pd.Series, agents: list[str], baseline: str | None) -
 def _advice(
     frame: pd.DataFrame, scores: pd.DataFrame, envs: list[str], agents: list[str], facts: ExperimentFacts
 ) -> pd.DataFrame:
-    """Seeds per agent needed to detect AUC differences of ADVICE_SHARES of each env's return range.
+    """Seeds per agent needed to detect AUC differences of ADVICE_SHARES of each env's return range
+    (`advice_table`, the same advice as `stepmeter seeds`).
 
-    Each agent is compared with the baseline, or with the first agent of the env when the baseline is absent.
     Beyond FIGURE_AGENTS variants, only the ones the figures draw are advised on (the baseline and the best).
     """
     ranges = frame.groupby("env", sort=False)["eval_return"].agg(["min", "max"])
@@ -409,20 +441,14 @@ def _advice(
         span = float(ranges.loc[env, "max"] - ranges.loc[env, "min"])
         in_env = scores[scores["env"] == env]
         env_agents = ordered_labels(in_env["agent"], agents)
-        if not math.isfinite(span) or span <= 0 or len(env_agents) < 2:
-            continue
-        reference = facts.baseline if facts.baseline in env_agents else env_agents[0]
         if len(env_agents) > FIGURE_AGENTS:
+            reference = facts.baseline if facts.baseline in env_agents else env_agents[0]
             means = in_env.groupby("agent", sort=False)["auc"].mean()
-            kept = _leading_agents(means, env_agents, reference)
-            in_env = in_env[in_env["agent"].isin(kept)]
-        differences = [share * span for share in ADVICE_SHARES]
-        table = seeds_advice(in_env, env, differences, baseline=reference, agent_order=agents)
-        shares = dict(zip(differences, ADVICE_SHARES, strict=True))
-        parts.append(table.assign(share_of_range=table["difference"].map(shares), return_range=span))
-    if not parts:
-        return pd.DataFrame(columns=[*ADVICE_COLUMNS, "share_of_range", "return_range"])
-    return pd.concat(parts, ignore_index=True)
+            in_env = in_env[in_env["agent"].isin(_leading_agents(means, env_agents, reference))]
+        table = advice_table(in_env, env, span, baseline=facts.baseline, agent_order=agents)
+        if len(table):
+            parts.append(table)
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=ADVICE_TABLE_COLUMNS)
 
 
 # --- figure data ----------------------------------------------------------------------------------------------
@@ -520,22 +546,35 @@ def _family_name(agent: str, param: str) -> str:
     return f"{base} ({', '.join(others)})" if others else base
 
 
+def _budget_params(kind: str) -> tuple[str, ...]:
+    """Parameters a registered kind declares as planning budgets.
+
+    Only registered kinds are looked up: a report never imports users' own modules (see `runner/trust.py`), so
+    their variants get no budget figure.
+    """
+    if kind not in AGENTS.names():
+        return ()
+    return budget_params(agent_class(kind).schema)
+
+
 def budget_families(
     agents: list[str], kinds: Mapping[str, str], variant_params: Mapping[str, Mapping[str, object]]
 ) -> list[tuple[str, str, list[tuple[float, str]]]]:
     """Groups of variants that differ only in a planning parameter, as (param, family name, [(value, agent)]).
 
     Parameters come from `variant_params` when it has an entry for the agent, else from the label's
-    "(name=value, ...)" suffix. A planning parameter is a numeric one whose name contains "planning"; a family
-    needs at least two distinct values. Families follow the order of their first member in `agents`.
+    "(name=value, ...)" suffix. A planning parameter is one the agent kind's schema declares with the role
+    PLANNING_BUDGET (whatever its name: `planning_steps`, `replays`, `simulations`); a family needs at least two
+    distinct values. Families follow the order of their first member in `agents`.
     """
     groups: dict[tuple[str, str], list[tuple[float, str]]] = {}
     for agent in agents:
         base, parsed = _label_params(agent)
         params = dict(variant_params.get(agent) or parsed)
         identity = "" if agent in variant_params else base
+        budgets = _budget_params(kinds.get(agent, ""))
         for param, value in params.items():
-            if not _PLANNING_PARAM.search(param) or isinstance(value, bool) or not isinstance(value, int | float):
+            if param not in budgets or isinstance(value, bool) or not isinstance(value, int | float):
                 continue
             others = json.dumps({k: v for k, v in params.items() if k != param}, sort_keys=True, default=str)
             groups.setdefault((param, f"{kinds.get(agent, '')}|{identity}|{others}"), []).append((float(value), agent))
@@ -546,41 +585,87 @@ def budget_families(
     ]
 
 
-def pareto_front(compute: np.ndarray, steps: np.ndarray) -> np.ndarray:
-    """True for points that no other point beats: none needs no more compute and no more steps while needing
-    strictly less of at least one (so of two variants with the same median, only the cheaper one is marked).
+def _bounds(estimate: np.ndarray, low: np.ndarray | None, high: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """Interval bounds of each point: the estimate itself without bounds, unbounded where a bound is unknown."""
+    if low is None or high is None:
+        return estimate, estimate
+    low, high = np.asarray(low, dtype=float), np.asarray(high, dtype=float)
+    return np.where(np.isnan(low), -np.inf, low), np.where(np.isnan(high), np.inf, high)
 
-    Points with a NaN coordinate are never on the front and never beat another point.
+
+def pareto_front(
+    compute: np.ndarray,
+    steps: np.ndarray,
+    *,
+    compute_bounds: tuple[np.ndarray, np.ndarray] | None = None,
+    steps_bounds: tuple[np.ndarray, np.ndarray] | None = None,
+) -> np.ndarray:
+    """True for points that no other point is clearly ahead of.
+
+    A point j is ahead of i on an axis when j's interval lies wholly below i's (j's high < i's low), and
+    behind when wholly above. i is off the front when some j is ahead on one axis and not behind on the other.
+    Without bounds the intervals are the points themselves, which is the usual Pareto front (none needs no
+    more compute and no more steps while needing strictly less of one). A NaN bound counts as unbounded, so
+    an unknown interval never separates. Points with a NaN coordinate are never on the front and never beat
+    another point.
 
     Parameters
     ----------
-    compute : ndarray, shape (n,)
-    steps : ndarray, shape (n,)
+    compute, steps : ndarray, shape (n,)
+    compute_bounds, steps_bounds : pair of ndarray, shape (n,), optional
+        Low and high bound of each point's interval.
 
     Returns
     -------
     ndarray of bool, shape (n,)
     """
     x, y = np.asarray(compute, dtype=float), np.asarray(steps, dtype=float)
+    x_low, x_high = _bounds(x, *(compute_bounds or (None, None)))
+    y_low, y_high = _bounds(y, *(steps_bounds or (None, None)))
     valid = np.isfinite(x) & np.isfinite(y)
-    no_worse = (x[None, :] <= x[:, None]) & (y[None, :] <= y[:, None])
-    better = (x[None, :] < x[:, None]) | (y[None, :] < y[:, None])
-    beaten = (no_worse & better & valid[None, :]).any(axis=1)
+    # [i, j]: is j ahead of / behind i on each axis
+    x_ahead, x_behind = x_high[None, :] < x_low[:, None], x_low[None, :] > x_high[:, None]
+    y_ahead, y_behind = y_high[None, :] < y_low[:, None], y_low[None, :] > y_high[:, None]
+    beaten = (((x_ahead & ~y_behind) | (y_ahead & ~x_behind)) & valid[None, :]).any(axis=1)
     return valid & ~beaten
+
+
+def _step_bounds(joined: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Bounds of median real steps; a median at the first evaluation point only says "at or before" it."""
+    median = joined["median_steps"].to_numpy(dtype=float)
+    low = joined["median_low"].to_numpy(dtype=float)
+    high = joined["median_high"].to_numpy(dtype=float)
+    if "first_point" in joined:
+        first = joined["first_point"].to_numpy(dtype=float)
+        coarse = median <= first
+        low, high = np.where(coarse, 0.0, low), np.where(coarse, first, high)
+    return low, high
 
 
 def _frontier(
     compute: pd.DataFrame, summary: pd.DataFrame, tsummary: pd.DataFrame, envs: list[str], agents: list[str]
 ) -> pd.DataFrame:
-    """Per (env, agent) with a threshold: compute per real step, KM median steps, and whether it is on the front."""
+    """Per (env, agent) with a threshold: CPU time per real step, KM median steps, and whether it is on the front.
+
+    The front compares intervals (CPU microseconds per real step, median real steps to threshold), so a
+    variant is ahead of another only when one of its intervals separates from the other's.
+    """
     if tsummary.empty:
         return pd.DataFrame(columns=FRONTIER_COLUMNS)
-    medians = tsummary[["env", "agent", "reached_share", "median_steps", "median_low", "median_high"]]
+    keep = ["env", "agent", "reached_share", "median_steps", "median_low", "median_high"]
+    medians = tsummary[keep].assign(
+        first_point=tsummary["first_point"].astype(float) if "first_point" in tsummary else np.nan
+    )
     kinds = summary[["env", "agent", "kind"]]
     joined = compute.merge(medians, on=["env", "agent"]).merge(kinds, on=["env", "agent"])
     flags = pd.Series(False, index=joined.index)
     for _, group in joined.groupby("env", sort=False):
-        flags[group.index] = pareto_front(group["updates_per_real"].to_numpy(), group["median_steps"].to_numpy())
+        flags[group.index] = pareto_front(
+            group["cpu_us_per_real"].to_numpy(dtype=float),
+            group["median_steps"].to_numpy(dtype=float),
+            compute_bounds=(group["cpu_us_low"].to_numpy(dtype=float), group["cpu_us_high"].to_numpy(dtype=float)),
+            steps_bounds=_step_bounds(group),
+        )
     return _sort_by_order(joined.assign(on_frontier=flags)[FRONTIER_COLUMNS], envs, agents)
 
 
@@ -595,7 +680,7 @@ def _budget_rows(
         tsummary.loc[tsummary["env"] == env, steps_columns] if len(tsummary) else pd.DataFrame(columns=steps_columns)
     )
     cost = compute.loc[
-        compute["env"] == env, ["agent", "planning_per_real", "wall_us_per_real", "wall_us_low", "wall_us_high"]
+        compute["env"] == env, ["agent", "planning_per_real", "cpu_us_per_real", "cpu_us_low", "cpu_us_high"]
     ]
     joined = base.merge(auc, on="agent").merge(steps, on="agent", how="left").merge(cost, on="agent")
     return joined.astype({c: float for c in ("median_steps", "median_low", "median_high")})
@@ -638,7 +723,19 @@ def _env_figures(
 ) -> _Figures:
     """Write every figure of one environment (at most FIGURE_AGENTS variants in each, said in the title)."""
     figures = _Figures(
-        png=dict.fromkeys(("curves", "earning", "threshold", "model_error", "budget", "frontier", "costs"))
+        png=dict.fromkeys(
+            (
+                "curves",
+                "curves_seeds",
+                "earning",
+                "earning_seeds",
+                "threshold",
+                "model_error",
+                "budget",
+                "frontier",
+                "costs",
+            )
+        )
     )
     agents = _figure_agents(env, all_agents, data, facts)
     title = f"{facts.name}: {env}"
@@ -666,6 +763,12 @@ def _env_figures(
             changes=facts.changes.get(env, ()),
         ),
     )
+    flagged = set(data.seed_flags.loc[data.seed_flags["env"] == env, "trial_id"].astype(str))
+    seed_figure = {"frame": frame, "env": env, "agents": agents, "flagged": flagged, "out_dir": out_dir, "title": title}
+    seed_figure["changes"] = facts.changes.get(env, ())
+    figures.add(
+        "curves_seeds", plot_seed_curves(**seed_figure, column="eval_return", threshold=facts.thresholds.get(env))
+    )
     earning_bands = data.earning_bands[data.earning_bands["env"] == env] if len(data.earning_bands) else None
     if earning_bands is not None and earning_bands["mean"].notna().any():
         figures.add(
@@ -679,6 +782,16 @@ def _env_figures(
                 title=title,
                 changes=facts.changes.get(env, ()),
                 ylabel=MEASURES["earning_rate"].axis,
+                stem="earning",
+            ),
+        )
+        figures.add(
+            "earning_seeds",
+            plot_seed_curves(
+                **seed_figure,
+                column="earning_rate",
+                threshold=facts.earning_thresholds.get(env),
+                ylabel="reward earned per real step",
                 stem="earning",
             ),
         )
@@ -786,7 +899,7 @@ def _reference(env: str, agents: list[str], data: ReportTables, facts: Experimen
         label=str(facts.baseline),
         auc=value(data.summary, "auc_mean"),
         median_steps=value(data.tsummary, "median_steps"),
-        wall_us_per_real=value(data.compute, "wall_us_per_real"),
+        cpu_us_per_real=value(data.compute, "cpu_us_per_real"),
     )
 
 
@@ -846,6 +959,13 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         if len(priced) and facts.prices.real_step is not None
         else pd.DataFrame(columns=COST_COLUMNS)
     )
+    flags = seed_flags(
+        frame,
+        scores,
+        facts.primary_thresholds,
+        column=column,
+        score="auc" if facts.measure == GREEDY_RETURN or "earned_per_step" not in scores else "earned_per_step",
+    )
     return ReportTables(
         bands=bands,
         scores=scores,
@@ -866,6 +986,7 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         break_even=break_even,
         costs=costs,
         priced=priced,
+        seed_flags=_sort_by_order(flags, envs, agents, "seed") if len(flags) else flags,
     )
 
 
@@ -909,8 +1030,8 @@ def _markdown(
         "",
         f"Baseline agent: {baseline}.",
         "",
-        "AUC is the time-averaged greedy evaluation return over the real-step budget; intervals are "
-        f"{facts.confidence:.0%} percentile bootstrap intervals over seeds ({facts.n_resamples} resamples).",
+        "AUC is the time-averaged greedy evaluation return over the real-step budget; each interval of a mean is "
+        f"a {interval_caption(facts.confidence)} ({facts.n_resamples} resamples).",
     ]
     lines += ["", f"Primary measure: {MEASURES[facts.measure].noun}."]
     if headline or glance:
@@ -926,11 +1047,35 @@ def _markdown(
             lines += ["", f"### {view.title}", "", to_markdown(view.frame()).rstrip("\n"), "", view.note]
     for view in markdown_sections(data, facts, None):
         lines += ["", f"## {view.title}", "", to_markdown(view.frame()).rstrip("\n"), "", view.note]
+    lines += ["", "## Methods", "", *(f"- {line}" for line in method_lines(facts.confidence))]
     return "\n".join(lines) + "\n"
 
 
-def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_dir: Path) -> list[Path]:
-    """Write every CSV of the report in a fixed order."""
+def _interval_names(confidence: float) -> dict[str, str]:
+    """The method behind the low/high columns of each CSV, written in its last column `interval`."""
+    mean = interval_caption(confidence)
+    paired = f"{interval_caption(confidence, 'percentile')}, seeds resampled in pairs"
+    km = f"{confidence:.0%} Kaplan-Meier interval, Greenwood variance on the complementary log-log scale"
+    return {
+        "summary.csv": mean,
+        "curves.csv": mean,
+        "earnings.csv": mean,
+        "change_windows.csv": mean,
+        "threshold_summary.csv": km,
+        "recovery_summary.csv": km,
+        "efficiency.csv": paired,
+        "recovery_ratios.csv": paired,
+        "break_even.csv": paired,
+        "costs.csv": paired,
+        "comparisons.csv": f"probability of improvement: {interval_caption(confidence, 'percentile')}",
+        "frontier.csv": f"CPU time: {interval_caption(confidence, 'percentile')} of the median; steps: {km}",
+    }
+
+
+def _write_tables(
+    data: ReportTables, envs: list[str], agents: list[str], out_dir: Path, confidence: float = 0.95
+) -> list[Path]:
+    """Write every CSV of the report in a fixed order; tables with intervals name their method in `interval`."""
     tables = {
         "summary.csv": data.summary,
         "trial_scores.csv": _sort_by_order(data.scores, envs, agents, "seed"),
@@ -942,6 +1087,7 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
         "seeds_advice.csv": data.advice,
         "frontier.csv": data.frontier,
         "break_even.csv": data.break_even,
+        "flagged_seeds.csv": data.seed_flags,
     }
     # Written only when they apply: earnings need `reward_earned`, the adaptation tables a map that changes.
     optional = {
@@ -954,6 +1100,10 @@ def _write_tables(data: ReportTables, envs: list[str], agents: list[str], out_di
     tables.update({name: table for name, table in optional.items() if len(table)})
     if len(data.costs):
         tables["costs.csv"] = data.costs
+    methods = _interval_names(confidence)
+    tables = {
+        name: table.assign(interval=methods[name]) if name in methods else table for name, table in tables.items()
+    }
     return [_write_text_atomic(out_dir / name, table.to_csv(index=False)) for name, table in tables.items()]
 
 
@@ -982,7 +1132,7 @@ def write_report(
     data = _analyse(frame, facts, envs, agents)
     labels = {env: _threshold_label(facts, env) for env in envs}
     headline = _headline(data, facts, labels)
-    warnings = threshold_warnings(frame, facts, envs)
+    warnings = threshold_warnings(frame, facts, envs) + seed_warnings(data.seed_flags, envs)
     files: list[Path] = []
     pages = []
     for env in envs:
@@ -996,7 +1146,7 @@ def write_report(
                 figures=figures.png,
             )
         )
-    files += _write_tables(data, envs, agents, out_dir)
+    files += _write_tables(data, envs, agents, out_dir, facts.confidence)
     glance = glance_sentences(data.tsummary, pages, facts.changes)
     markdown = _markdown(data, facts, envs, headline, glance, warnings)
     files.append(_write_text_atomic(out_dir / "summary.md", markdown))
@@ -1011,7 +1161,7 @@ def write_report(
             warnings=warnings,
         )
     )
-    header = f"{facts.name} (budget {facts.budget} real steps, baseline: {facts.baseline or 'none declared'})"
+    header = f"{facts.name} (budget {facts.budget:,} real steps, baseline: {facts.baseline or 'none declared'})"
     lead = "\n".join([*headline, *(f"warning: {w}" for w in warnings)])
     lead = f"{lead}\n\n" if lead else ""
     terminal_text = f"{lead}{header}\n\n{to_terminal(data.summary)}"

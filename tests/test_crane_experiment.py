@@ -1,0 +1,69 @@
+"""The crane demo: `configs/crane.yaml` validates, its bins are the grid it declares, and a shortened copy (one
+seed, fewer real steps) runs end to end through `stepmeter run` with its report; and the five classic-control ids
+run in one experiment with the tabular kinds on bins and a user's own agent on boxes."""
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import runner
+from runner.cli import main
+from runner.config import load_experiment
+
+CONFIG = Path(__file__).resolve().parent.parent / "configs" / "crane.yaml"
+EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
+
+
+def test_crane_config_declares_bins_and_a_threshold():
+    experiment = load_experiment(CONFIG)
+    (env,) = experiment.environments
+    assert env.spec["id"] == "stepmeter/OverheadCrane-v0"
+    assert [len(e) + 1 for e in env.spec["bins"]["edges"]] == [12, 8, 3, 3]
+    assert env.tags.observation == "discrete" and env.tags.observation_size == 864
+    assert env.threshold == -150
+    assert {a.kind for a in experiment.agents} == {"q_learning", "dyna_q", "certainty_equivalence"}
+
+
+def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
+    text = CONFIG.read_text().replace("seeds: 6", "seeds: 1").replace("real_steps: 40000", "real_steps: 2000")
+    text = text.replace("every: 4000 ", "every: 1000 ").replace("episodes: 5 ", "episodes: 1 ")
+    path = tmp_path / "crane.yaml"
+    path.write_text(text)
+    assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1"]) == 0
+    frame = runner.load_results(tmp_path / "results" / "crane-loading-bay")
+    assert len(frame) == 4 * 3  # four agent variants x evaluation points at 0, 1000 and 2000 real steps
+    assert np.isfinite(frame["eval_return"]).all()
+    assert (tmp_path / "results" / "crane-loading-bay" / "report" / "report.html").exists()
+
+
+CLASSIC = ("CartPole-v1", "MountainCar-v0", "Acrobot-v1", "Pendulum-v1", "MountainCarContinuous-v0")
+_HEAD = "seeds: 1\nreal_steps: 400\nevaluation: {every: 200, episodes: 1}\nenvironments:\n"
+
+
+@pytest.mark.slow
+def test_classic_control_ids_run_in_experiments(tmp_path, monkeypatch):
+    """Every id with an own agent on boxes; the discrete-action ids with the tabular kinds on bins."""
+    monkeypatch.syspath_prepend(str(EXAMPLES))
+    boxes = tmp_path / "boxes.yaml"
+    boxes.write_text(
+        "experiment: classic-boxes\n"
+        + _HEAD
+        + "".join(f"  - gym: {env_id}\n    step_limit: 100\n" for env_id in CLASSIC)
+        + "agents:\n  - kind: linear_q:LinearQ\n"
+    )
+    binned = tmp_path / "binned.yaml"
+    binned.write_text(
+        "experiment: classic-bins\n"
+        + _HEAD
+        + "".join(
+            f"  - gym: {env_id}\n    step_limit: 100\n    bins: {{counts: 4, low: -2, high: 2}}\n"
+            for env_id in CLASSIC[:3]
+        )
+        + "agents:\n  - kind: q_learning\n  - kind: dyna_q\n  - kind: certainty_equivalence\n"
+    )
+    for path, name, envs, agents in ((boxes, "classic-boxes", 5, 1), (binned, "classic-bins", 3, 3)):
+        assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1", "--no-report"]) == 0
+        frame = runner.load_results(tmp_path / "results" / name)
+        assert frame["env"].nunique() == envs and frame["agent"].nunique() == agents
+        assert len(frame) == envs * agents * 3 and np.isfinite(frame["eval_return"]).all()
