@@ -872,6 +872,20 @@ def item_scaling(ctx: Context) -> None:
         )
     if len(cpus) < 2:
         say("    (fewer than 2 CPUs are allowed, so --jobs 2 cannot be faster here)")
+    if autogroup_on():
+        say(
+            "    (Linux shares CPU between terminal sessions first (sched_autogroup_enabled = 1): while other "
+            "sessions keep the cores busy, --jobs 2 gets no more CPU than --jobs 1, so these figures mean "
+            "something only when the other processes' share printed below is near 0%)"
+        )
+
+
+def autogroup_on() -> bool:
+    """Whether the kernel groups each session's processes for CPU sharing."""
+    try:
+        return Path("/proc/sys/kernel/sched_autogroup_enabled").read_text(encoding="ascii").strip() == "1"
+    except OSError:
+        return False
 
 
 # --- item 5: the report of a large stored experiment ------------------------------------------------------------

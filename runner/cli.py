@@ -197,8 +197,6 @@ def _migrate(folder: Path) -> int:
 
 
 def _run(args: argparse.Namespace) -> int:
-    from runner.run import RunOptions, run_experiment
-
     if args.jobs is not None and args.jobs < 1:
         print(f"stepmeter: error: --jobs: expected a whole number >= 1, got {args.jobs}", file=sys.stderr)
         return 2
@@ -208,6 +206,20 @@ def _run(args: argparse.Namespace) -> int:
     if not args.cluster_timeout > 0:
         print(f"stepmeter: error: --cluster-timeout: expected seconds > 0, got {args.cluster_timeout}", file=sys.stderr)
         return 2
+    from runner.workers import default_jobs, start_workers, stop_workers
+
+    if not args.cluster:  # workers import while this process reads, plans and opens the store
+        start_workers(args.jobs or default_jobs())
+    try:
+        return _run_started(args)
+    except BaseException:
+        stop_workers()
+        raise
+
+
+def _run_started(args: argparse.Namespace) -> int:
+    from runner.run import RunOptions, run_experiment
+
     options = RunOptions(
         jobs=args.jobs,
         trial_path=args.path,

@@ -21,7 +21,7 @@ from numba import literally, njit, typeof, types
 
 from runner.clock import cpu_clock, wall_clock
 from runner.compiled_trial import agent_act, agent_greedy, agent_observe
-from runner.envs.bins import BinnedObservation
+from runner.envs.bins import BinnedObservation, bin_index
 from runner.envs.dynamics import DYNAMICS
 from runner.envs.dynamics.compiled import env_observation, env_reset, env_step
 from runner.metrics import (
@@ -42,6 +42,7 @@ from runner.metrics import (
     TRAIN_RETURN,
     WALL_SECONDS,
 )
+from runner.models.held_out_bins import bin_arrays, bin_model_errors
 
 __all__ = ["CompiledDynamics", "compiled_dynamics", "run_dynamics_kind_trial", "run_dynamics_trial"]
 
@@ -55,9 +56,8 @@ class CompiledDynamics:
     step_limit: int
     state_size: int
     obs_size: int
-    edges: np.ndarray  # every dimension's interior edges, concatenated
-    edge_offsets: np.ndarray  # dimension d owns edges[edge_offsets[d]:edge_offsets[d + 1]]
-    strides: np.ndarray  # row-major strides of the bins
+    bins: tuple  # (edges, edge_offsets, strides) as `runner.envs.bins.bin_index` reads them
+    grid: tuple  # (centres, centre_offsets, strides) as the bin-model prediction kernels read it
 
 
 def _time_limit(env: gym.Env) -> int:
@@ -88,28 +88,16 @@ def compiled_dynamics(spec: dict[str, Any], env: gym.Env) -> CompiledDynamics | 
     limit = _time_limit(env)
     if limit >= np.iinfo(np.int64).max:
         return "it has no step limit"
-    edges = [np.asarray(e, dtype=np.float64) for e in spec["bins"]["edges"]]
-    counts = [e.size + 1 for e in edges]
+    bins, grid = bin_arrays(spec["bins"]["edges"], env.env.observation_space)
     return CompiledDynamics(
         env_id=dynamics.env_id,
         params=params,
         step_limit=limit,
         state_size=dynamics.state_size,
         obs_size=dynamics.obs_size,
-        edges=np.concatenate(edges),
-        edge_offsets=np.concatenate(([0], np.cumsum([e.size for e in edges]))).astype(np.int64),
-        strides=np.array([int(np.prod(counts[d + 1 :])) for d in range(len(counts))], dtype=np.int64),
+        bins=bins,
+        grid=grid,
     )
-
-
-@njit(cache=True)
-def bin_index(obs, edges, edge_offsets, strides):
-    """The bin of an observation: what `BinnedObservation.observation` returns (numpy.digitize per dimension)."""
-    index = 0
-    for d in range(obs.shape[0]):
-        k = np.searchsorted(edges[edge_offsets[d] : edge_offsets[d + 1]], obs[d], side="right")
-        index += k * strides[d]
-    return index
 
 
 @njit(cache=True)
@@ -141,6 +129,8 @@ def run_dynamics_trial(
     agent_stream,
     params,
     bins,
+    grid,
+    held,
     sizes,
     env_stream,
     eval_env_stream,
@@ -158,8 +148,10 @@ def run_dynamics_trial(
     """Run the trial of agent kind `kind` on the compiled environment `env_id`; fill `rows` (n_points x the
     columns of `runner.metrics.METRIC_COLUMNS`) and the episode arrays.
 
-    `bins` is (edges, edge_offsets, strides) and `sizes` (state size, observation size, step limit). Returns the
-    number of finished training episodes, or -1 when the trial ran past `time_limit` seconds (0: no limit).
+    `bins` is (edges, edge_offsets, strides), `grid` the bins' centres (`runner.models.bin_prediction`), `held`
+    the held-out real transitions of `runner.models.held_out_bins.held_out_arrays` (no runs: no model error
+    measured) and `sizes` (state size, observation size, step limit). Returns the number of finished training
+    episodes, or -1 when the trial ran past `time_limit` seconds (0: no limit).
     """
     edges, edge_offsets, strides = bins
     state_size, obs_size, step_limit = sizes
@@ -229,10 +221,11 @@ def run_dynamics_trial(
             rows[point, PLANNING_UPDATES] = counters[1]
             rows[point, MODEL_UPDATES] = counters[2]
             rows[point, MODEL_TV_ERROR] = np.nan
-            rows[point, MODEL_REWARD_ERROR] = np.nan
-            rows[point, MODEL_ERROR_1] = np.nan
-            rows[point, MODEL_ERROR_5] = np.nan
-            rows[point, MODEL_ERROR_20] = np.nan
+            one_step, reward_error, short, long = bin_model_errors(kind, arrays, bins, grid, held)
+            rows[point, MODEL_REWARD_ERROR] = reward_error
+            rows[point, MODEL_ERROR_1] = one_step
+            rows[point, MODEL_ERROR_5] = short
+            rows[point, MODEL_ERROR_20] = long
             rows[point, ENV_PHASE] = 0
             rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured
@@ -246,12 +239,12 @@ _run_dynamics_trial_uncached = njit(cache=False)(run_dynamics_trial.py_func)
 """The same loop for agent kinds from the user's own modules (see `runner.compiled_trial`)."""
 
 
-def run_dynamics_kind_trial(kind: str, dynamics: CompiledDynamics, *args: Any) -> int:
-    """Call `run_dynamics_trial` for agent kind `kind` on `dynamics`, compiled once per kind, environment id and
-    argument types and called straight through its entry point (as `runner.compiled_trial.run_kind_trial`)."""
-    bins = (dynamics.edges, dynamics.edge_offsets, dynamics.strides)
+def run_dynamics_kind_trial(kind: str, dynamics: CompiledDynamics, held: tuple, *args: Any) -> int:
+    """Call `run_dynamics_trial` for agent kind `kind` on `dynamics` with the held-out arrays `held`, compiled once
+    per kind, environment id and argument types and called straight through its entry point (as
+    `runner.compiled_trial.run_kind_trial`)."""
     sizes = (dynamics.state_size, dynamics.obs_size, dynamics.step_limit)
-    call = (dynamics.params, bins, sizes, *args[4:])
+    call = (dynamics.params, dynamics.bins, dynamics.grid, held, sizes, *args[4:])
     head = args[:4]
     arg_types = tuple(typeof(arg) for arg in (*head, *call))
     key = (kind, dynamics.env_id, arg_types)

@@ -87,6 +87,23 @@ def _agent_model_error(kind, arrays, table):
     return impl
 
 
+def agent_predict(kind, arrays, state, action, grid, out):
+    """The bin-model prediction kernel of agent kind `kind` (a compile-time literal); compiled code only."""
+    raise NotImplementedError("agent_predict is resolved inside compiled code")
+
+
+@overload(agent_predict)
+def _agent_predict(kind, arrays, state, action, grid, out):
+    if not isinstance(kind, types.StringLiteral):
+        return None
+    kernel = agent_class(kind.literal_value).predict_kernel
+
+    def impl(kind, arrays, state, action, grid, out):
+        return kernel(arrays, state, action, grid, out)
+
+    return impl
+
+
 @overload(agent_act)
 def _agent_act(kind, arrays, hyper, state, stream):
     if not isinstance(kind, types.StringLiteral):

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import os
 import sys
 import threading
 from collections.abc import Callable
@@ -27,6 +26,7 @@ from runner.store import Store, experiment_dir, remove_store
 from runner.store_check import repair_store
 from runner.store_faults import faults_as_store_errors
 from runner.wording import count
+from runner.workers import default_jobs, stop_workers
 
 __all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
 
@@ -63,14 +63,6 @@ def experiment_facts(experiment: Experiment) -> dict:
         "confidence": experiment.analysis.confidence,
         "costs": asdict(experiment.costs) if experiment.costs else None,
     }
-
-
-def default_jobs() -> int:
-    """All cores this process may use."""
-    try:
-        return len(os.sched_getaffinity(0))
-    except AttributeError:
-        return os.cpu_count() or 1
 
 
 @dataclass(frozen=True)
@@ -135,8 +127,7 @@ def _where_note(results_root: str | Path) -> str:
 class _SayCompiling(event.Listener):
     """Says once that numba is compiling, when a compilation has gone on for `after` seconds.
 
-    Loading numba's cache compiles nothing; a few tiny functions that cannot be cached (they call back into
-    Python for the clocks) compile in milliseconds on every run, so only a compilation that lasts is worth a word.
+    Loading numba's cache compiles nothing worth a word; only a compilation that lasts is.
     """
 
     def __init__(self, out: TextIO, after: float = 1.0) -> None:
@@ -211,6 +202,8 @@ def _run_locked(
         f"stored, {len(todo):,} {which} on {where}",
         file=out,
     )
+    if n_jobs == 1 or options.cluster or not todo:
+        stop_workers()  # the command line may have started workers early; this run needs none
     if not todo:
         return summary
     if options.cluster:
@@ -239,7 +232,8 @@ def _run_locked(
 
     outcome = "aborted"
     try:
-        _warm_up_saying_when_compiling([(t.spec, options.trial_path) for t in todo], out)
+        if n_jobs == 1 and not options.cluster:  # workers load their own kernels
+            _warm_up_saying_when_compiling([(t.spec, options.trial_path) for t in todo], out)
         progress.restart()
         run_parallel(
             todo, n_jobs, keep, options.trial_path, options.time_limit, options.cluster, options.cluster_timeout

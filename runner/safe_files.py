@@ -33,10 +33,10 @@ def _refuse(path: Path) -> StoreError:
 def check_no_links(path: str | Path, below: str | Path | None = None) -> None:
     """Refuse `path` when it, or any folder between `below` (exclusive) and it, is a symbolic link.
 
-    Without `below`, `path` and its own folder are checked. Missing components are fine (they will be created).
+    Without `below` only `path` itself is checked. Missing components are fine (they will be created).
     """
     path = Path(path)
-    chain = [path.parent, path]
+    chain = [path]
     if below is not None:
         base = Path(below)
         try:

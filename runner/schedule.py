@@ -1,7 +1,8 @@
-"""Run trials in parallel with joblib; only the parent process writes to the store.
+"""Run trials in parallel on local worker processes (or a dask cluster); only the parent writes to the store.
 
-Compiled kernels are warmed in the parent first, which fills numba's on-disk cache, so worker processes
-load them instead of compiling them again.
+On one process, compiled kernels are warmed in the parent first (`warm_up`). On several, the workers
+(`runner.workers`) load the kernels themselves, from numba's disk cache, while the parent prepares the run;
+a few trials more than there are workers stay queued, so no worker waits for the parent.
 """
 
 from __future__ import annotations
@@ -12,14 +13,17 @@ import signal
 import threading
 import traceback
 from collections.abc import Callable, Iterator
+from concurrent.futures import FIRST_COMPLETED, Future, wait
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from joblib import Parallel, delayed
+from joblib import delayed
 
+from runner.cluster import DEFAULT_TIMEOUT
 from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
+from runner.workers import pool, stop_workers, workers_ignore_interrupts
 
 NAN_ALLOWED = (
     "train_return",
@@ -31,7 +35,10 @@ NAN_ALLOWED = (
 )
 """Metric columns where NaN means "not applicable yet" rather than a broken trial."""
 
-__all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "run_parallel", "warm_up"]
+__all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "ignore_interrupts", "run_parallel", "warm_up"]
+
+_QUEUED_PER_WORKER = 3
+"""Trials handed to the pool ahead per worker: enough that none idles, few enough to stop quickly."""
 
 
 @dataclass
@@ -46,7 +53,7 @@ class TrialOutcome:
     traceback: str = ""
 
 
-def _ignore_interrupts() -> None:
+def ignore_interrupts() -> None:
     """In a worker process, leave Ctrl-C to the parent, which stops the pool and keeps finished trials.
 
     Cluster workers run tasks in threads, where signals cannot be set (nor arrive); they are left alone.
@@ -57,26 +64,12 @@ def _ignore_interrupts() -> None:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
-@contextlib.contextmanager
-def _workers_ignore_interrupts() -> Iterator[None]:
-    """Start worker processes with Ctrl-C ignored (an ignored signal survives their start), so a Ctrl-C while
-    they import reaches only this process, which stops the pool and keeps the finished trials."""
-    if threading.current_thread() is not threading.main_thread():
-        yield
-        return
-    previous = signal.signal(signal.SIGINT, signal.SIG_IGN)
-    try:
-        yield
-    finally:
-        signal.signal(signal.SIGINT, previous)
-
-
 def execute_trial(
     trial_id: str, spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0, in_worker: bool = False
 ) -> TrialOutcome:
     """Run one trial; any exception, time-out or non-finite metric becomes a failed outcome."""
     if in_worker:
-        _ignore_interrupts()
+        ignore_interrupts()
     try:
         result = run_trial(spec, path, time_limit)
         for name, column in result.rows.items():
@@ -112,23 +105,53 @@ def run_parallel(
     path: str = "auto",
     time_limit: float = 0.0,
     cluster: str | None = None,
-    cluster_timeout: float = 10.0,
+    cluster_timeout: float = DEFAULT_TIMEOUT,
 ) -> None:
     """Run every trial on `jobs` local processes (1: in this process) or on a dask cluster, calling on_outcome
     in this process as each finishes, so only this process writes."""
     by_id = {t.trial_id: t for t in trials}
-    tasks = (delayed(execute_trial)(t.trial_id, t.spec, path, time_limit, in_worker=True) for t in trials)
     if cluster:
         from runner.cluster import run_on_cluster
 
+        tasks = (delayed(execute_trial)(t.trial_id, t.spec, path, time_limit, in_worker=True) for t in trials)
         for outcome in run_on_cluster(cluster, tasks, cluster_timeout):
             on_outcome(by_id[outcome.trial_id], outcome)
         return
-    outcomes: Iterator[TrialOutcome]
     if jobs == 1:
-        outcomes = (execute_trial(t.trial_id, t.spec, path, time_limit) for t in trials)
-    else:
-        with _workers_ignore_interrupts():
-            outcomes = Parallel(n_jobs=jobs, return_as="generator_unordered")(tasks)
-    for outcome in outcomes:
-        on_outcome(by_id[outcome.trial_id], outcome)
+        for t in trials:
+            on_outcome(t, execute_trial(t.trial_id, t.spec, path, time_limit))
+        return
+    with contextlib.closing(_on_workers(trials, jobs, path, time_limit)) as outcomes:
+        for outcome in outcomes:
+            on_outcome(by_id[outcome.trial_id], outcome)
+
+
+def _on_workers(trials: list[PlannedTrial], jobs: int, path: str, time_limit: float) -> Iterator[TrialOutcome]:
+    """Outcomes of `trials` run on `jobs` worker processes, in the order they finish.
+
+    Whatever stops the caller (Ctrl-C, a store fault) ends the workers at once, so no trial keeps running.
+    """
+    executor = pool(jobs)
+    waiting = iter(trials)
+    running: set[Future] = set()
+
+    def hand_out() -> None:
+        with workers_ignore_interrupts():  # a worker that died is replaced on submission
+            for t in waiting:
+                running.add(executor.submit(execute_trial, t.trial_id, t.spec, path, time_limit, in_worker=True))
+                if len(running) >= jobs * _QUEUED_PER_WORKER:
+                    break
+
+    finished = False
+    try:
+        hand_out()
+        while running:
+            done, _ = wait(running, return_when=FIRST_COMPLETED)
+            for future in done:
+                running.discard(future)
+                yield future.result()
+            hand_out()
+        finished = True
+    finally:
+        if not finished:
+            stop_workers()

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import errno
 import json
+import os
 import sqlite3
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -50,6 +51,14 @@ def _os_line(err: OSError, where: str) -> str:
     return f"{where}: {err.strerror or err}"
 
 
+def _read_only(folder: Path) -> bool:
+    """Whether `folder` lies on a file system mounted read-only."""
+    try:
+        return bool(os.statvfs(folder).f_flag & os.ST_RDONLY)
+    except OSError:
+        return False
+
+
 def _sqlite_line(err: sqlite3.Error, folder: Path | None) -> str:
     where = str(folder / "experiment.sqlite") if folder is not None else "the experiment's database"
     text = str(err)
@@ -71,7 +80,9 @@ def _sqlite_line(err: sqlite3.Error, folder: Path | None) -> str:
     if "locked" in lowered or "busy" in lowered:
         return f"{where}: the database is busy in another program ({text}); close it and run again"
     if "unable to open" in lowered:
-        return f"{where}: cannot open the database ({text}); check that the folder exists and is writable"
+        if folder is not None and _read_only(folder):
+            return f"{where}: the file system is read-only; copy the results folder to a writable place and run there"
+        return f"{where}: cannot open the database ({text}); check that the folder exists and is writable by you"
     return f"{where}: database error ({text}); run again, or with --start-over to run the experiment afresh"
 
 

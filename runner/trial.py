@@ -15,6 +15,7 @@ import json
 import math
 import time
 from collections import deque
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -29,7 +30,8 @@ from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.metrics import METRIC_COLUMNS
-from runner.models.held_out import collect_held_out, model_errors
+from runner.models.held_out import HeldOut, collect_held_out, model_errors
+from runner.models.held_out_bins import bin_arrays, bin_predictor, held_out_arrays
 from runner.seeding import TrialStreams, held_out_sequence, trial_streams
 from runner.streams import new_stream
 from runner.tags import EnvTags
@@ -103,6 +105,7 @@ class _EnvFacts:
     rules: tuple | None
     dynamics: CompiledDynamics | None
     not_dynamics_reason: str
+    bin_layout: tuple | None  # (bins, grid) of `runner.models.held_out_bins.bin_arrays` for binned environments
     bounds: tuple[np.ndarray, np.ndarray] | None = None
     box: BoxDynamics | None = None
     not_box_reason: str = ""
@@ -125,14 +128,15 @@ def _env_facts(env_json: str) -> _EnvFacts:
         rules = env.unwrapped.game_rules() if hasattr(env.unwrapped, "game_rules") else None
         steps = change_steps(env)
         dynamics = compiled_dynamics(spec, env)
+        layout = bin_arrays(spec["bins"]["edges"], env.env.observation_space) if spec.get("bins") else None
         bounds = observation_bounds(env.observation_space)
         box = box_dynamics(spec, env)
     finally:
         env.close()
     box_facts = (None, box) if isinstance(box, str) else (box, "")
     if isinstance(dynamics, str):
-        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics, bounds, *box_facts)
-    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "", bounds, *box_facts)
+        return _EnvFacts(tags, reason, tables, steps, rules, None, dynamics, layout, bounds, *box_facts)
+    return _EnvFacts(tags, reason, tables, steps, rules, dynamics, "", layout, bounds, *box_facts)
 
 
 def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
@@ -226,7 +230,9 @@ def _run_compiled(
         changes = np.array([*facts.change_steps, budget + 1], dtype=np.int64)
         n_episodes = run_kind_trial(kind, *agent_args, tables, changes, *loop_args)
     elif facts.dynamics is not None:
-        n_episodes = run_dynamics_kind_trial(kind, facts.dynamics, *agent_args, *loop_args)
+        held = _held_out(spec) if agent.has_bin_model() else None
+        held_arrays = held_out_arrays(held, facts.dynamics.obs_size)
+        n_episodes = run_dynamics_kind_trial(kind, facts.dynamics, held_arrays, *agent_args, *loop_args)
     else:
         n_episodes = run_box_kind_trial(kind, facts.box, *agent_args, *loop_args)
     if n_episodes < 0:
@@ -240,12 +246,32 @@ def _run_compiled(
     )
 
 
-def _predicts(agent: TabularAgent | OwnAgent) -> bool:
-    """Whether the agent has a function model the trial can ask: an own agent with `predict`, or a kind whose
-    tags say `learned_model="function"` and that has `predict(observation, action)`."""
+def _predictor(agent: TabularAgent | OwnAgent, facts: _EnvFacts) -> Callable[[np.ndarray, Any], Any] | None:
+    """The agent's `predict(observation, action) -> (next observation, reward)` that the trial measures on
+    held-out real transitions, or None: on box observations an own agent with `predict` or a kind whose tags say
+    `learned_model="function"`; on bins a kind with a learned table model (the expected bin centre,
+    `runner.models.bin_prediction`)."""
+    if facts.bin_layout is not None:
+        return (
+            bin_predictor(agent, *facts.bin_layout)
+            if isinstance(agent, TabularAgent) and agent.has_bin_model()
+            else None
+        )
+    if facts.tags.observation != "box":
+        return None
     if isinstance(agent, OwnAgent):
-        return agent.has_model()
-    return agent.tags.learned_model == "function" and callable(getattr(agent, "predict", None))
+        return agent.predict if agent.has_model() else None
+    function_model = agent.tags.learned_model == "function" and callable(getattr(agent, "predict", None))
+    return agent.predict if function_model else None
+
+
+def _held_out(spec: dict[str, Any]) -> HeldOut:
+    """The trial's held-out real transitions, on a copy of its environment that gives box observations."""
+    held_env = build_env({**spec["env"], "bins": None})
+    try:
+        return collect_held_out(held_env, held_out_sequence(spec["seed"]))
+    finally:
+        held_env.close()
 
 
 def _run_gymnasium(
@@ -263,11 +289,8 @@ def _run_gymnasium(
     recent: deque[float] = deque(maxlen=ev["training_window"])
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
     read = _reader(facts.tags.observation)
-    held = None
-    if _predicts(agent) and facts.tags.observation == "box":
-        held_env = build_env(spec["env"])
-        held = collect_held_out(held_env, held_out_sequence(spec["seed"]))
-        held_env.close()
+    predict = _predictor(agent, facts)
+    held = _held_out(spec) if predict is not None else None
     phase = 0
     earned = 0.0
     start = time.perf_counter()
@@ -290,8 +313,8 @@ def _run_gymnasium(
             rows[name][point] = value
         errors = agent.model_error(tables[phase]) if tables is not None else (np.nan, np.nan)
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
-        if held is not None:
-            one_step, reward_error, *rollouts = model_errors(agent.predict, held)
+        if predict is not None and held is not None:
+            one_step, reward_error, *rollouts = model_errors(predict, held)
             rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
             rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
         else:

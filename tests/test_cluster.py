@@ -236,7 +236,7 @@ def test_an_unreachable_scheduler_leaves_no_run_recorded_as_complete(unreachable
 
 def test_a_scheduler_with_no_workers_is_one_line_within_the_timeout_and_releases_the_lock(tmp_path):
     (tmp_path / "spread.yaml").write_text(_SMALL, encoding="utf-8")
-    with distributed.LocalCluster(n_workers=0, dashboard_address=None) as empty:
+    with distributed.LocalCluster(n_workers=0, dashboard_address=":0") as empty:
         started = time.monotonic()
         done = subprocess.run(
             [sys.executable, "-m", "runner", "run", "spread.yaml", "--results", "results", "--jobs", "1",

@@ -39,7 +39,7 @@ def test_bin_index_matches_the_wrapper():
     dynamics = compiled_dynamics(_env("Acrobot-v1", count=5), env)
     rng = np.random.default_rng(1)
     for obs in rng.uniform(-3, 3, size=(500, 6)):
-        assert bin_index(obs, dynamics.edges, dynamics.edge_offsets, dynamics.strides) == env.observation(obs)
+        assert bin_index(obs, *dynamics.bins) == env.observation(obs)
 
 
 @pytest.mark.parametrize(

@@ -74,7 +74,12 @@ def test_model_error_panels_keep_their_legends_outside_both_panels(captured, tmp
     errors = bands.assign(
         mean=lambda b: 1.0 - b["mean"], low=lambda b: 0.95 - b["mean"], high=lambda b: 1.05 - b["mean"]
     )
-    plots.plot_model_error(bands, errors, "floor", agents=AGENTS, threshold=0.9, out_dir=tmp_path, title="models")
+    held_out = pd.concat([errors.assign(steps_ahead=k) for k in (1, 5, 20)], ignore_index=True)
+    plots.plot_model_error(
+        bands, errors, "floor", agents=AGENTS, threshold=0.9, out_dir=tmp_path, title="models", held_out=held_out
+    )
     (figure,) = captured
-    assert sum(axes.get_legend() is not None for axes in figure.axes) == 2
+    assert len(figure.axes) == 5  # return, distance to the true table, held-out errors 1, 5 and 20 steps ahead
+    assert [axes.get_legend() is not None for axes in figure.axes] == [False] * 4 + [True]
+    assert len(figure.axes[-1].get_legend().get_texts()) == 11  # ten variants and the threshold line
     assert _overlaps(figure) == []

@@ -1,11 +1,14 @@
 """Broken stores and hostile results folders: each fault is one line and exit 2, or a clean re-run, and nothing
 that was stored is lost (stored rows are compared before and after)."""
 
+import contextlib
 import errno
 import hashlib
 import os
 import shutil
 import sqlite3
+import subprocess
+from collections.abc import Iterator
 from pathlib import Path
 
 import pandas as pd
@@ -20,6 +23,7 @@ from runner.lock import LOCK_NAME, ExperimentLock
 from runner.metrics import TIMING_COLUMNS
 from runner.run import RunOptions, run_experiment
 from runner.store import DB_NAME, Store
+from runner.store_check import check_store
 
 _TEXT = """\
 experiment: ledger
@@ -65,9 +69,12 @@ def _folder(work: Path) -> Path:
     return work / "results" / "ledger"
 
 
-def _rows(folder: Path) -> pd.DataFrame:
-    """Stored trials and metric rows with timing columns left out, sorted, as plain values."""
-    with sqlite3.connect(folder / DB_NAME) as conn:
+def _rows(folder: Path, frozen: bool = False) -> pd.DataFrame:
+    """Stored trials and metric rows with timing columns left out, sorted, as plain values.
+
+    `frozen`: the database lies on a read-only file system (SQLite may then only read it as immutable).
+    """
+    with sqlite3.connect(f"file:{folder / DB_NAME}{'?immutable=1' if frozen else ''}", uri=True) as conn:
         metrics = pd.read_sql_query("SELECT * FROM metrics ORDER BY trial_id, point", conn)
         trials = pd.read_sql_query("SELECT trial_id, spec FROM trials ORDER BY trial_id", conn)
     conn.close()
@@ -392,3 +399,76 @@ def test_a_report_snapshot_does_not_see_a_trial_written_meanwhile(work):
         assert reader.query("SELECT count(*) FROM metrics")[0][0] == _TRIALS * _POINTS
     with Store(folder) as reader:
         assert reader.query("SELECT count(*) FROM trials")[0][0] == _TRIALS - 1
+
+
+def test_a_symlinked_write_ahead_log_is_refused_and_its_target_untouched(work, capsys):
+    folder = _folder(work)
+    target = _outside(work) / "journal.bin"
+    target.write_bytes(b"someone else's journal")
+    (folder / f"{DB_NAME}-wal").unlink(missing_ok=True)
+    (folder / f"{DB_NAME}-wal").symlink_to(target)
+    code, err = _run(capsys)
+    assert code == 2
+    _one_line(err, "refusing to write through a symbolic link", f"{DB_NAME}-wal")
+    assert target.read_bytes() == b"someone else's journal"
+
+
+def test_a_symlinked_experiment_folder_is_refused(work, capsys):
+    folder = _folder(work)
+    moved = _outside(work) / "ledger"
+    shutil.move(folder, moved)
+    folder.symlink_to(moved, target_is_directory=True)
+    before = _digest(moved / DB_NAME)
+    code, err = _run(capsys)
+    assert code == 2
+    _one_line(err, "would leave the results folder")
+    assert _digest(moved / DB_NAME) == before
+
+
+@contextlib.contextmanager
+def _tiny_filesystem(mount_point: Path, size: str, read_only: bool = False) -> Iterator[Path]:
+    """A tmpfs of `size` at mount_point (skips the test where mounting is not allowed)."""
+    mount_point.mkdir()
+    options = f"size={size}" + (",ro" if read_only else "")
+    mounted = subprocess.run(["mount", "-t", "tmpfs", "-o", options, "tmpfs", str(mount_point)], capture_output=True)
+    if mounted.returncode != 0:
+        pytest.skip("mounting a tmpfs is not allowed here; the simulated faults above cover it")
+    try:
+        yield mount_point
+    finally:
+        subprocess.run(["umount", "-l", str(mount_point)], capture_output=True, check=False)
+
+
+def test_a_really_full_disk_is_one_line_and_every_stored_trial_stays_whole(tmp_path, capsys, monkeypatch):
+    if shutil.which("mount") is None or os.geteuid() != 0:
+        pytest.skip("mounting a tmpfs needs root; the simulated faults above cover it")
+    with _tiny_filesystem(tmp_path / "small", "2m") as small:
+        (small / "ledger.yaml").write_text(_TEXT.replace("seeds: 2", "seeds: 300"), encoding="utf-8")
+        monkeypatch.chdir(small)
+        code, err = _run(capsys)
+        assert code == 2
+        _one_line(err, "no space left on the disk")
+        with Store(small / "results" / "ledger") as store:
+            health = check_store(store)
+            stored = len(store.stored_ids())
+        assert health.whole and 0 < stored < 600
+        monkeypatch.chdir(tmp_path)
+
+
+def test_a_really_read_only_file_system_is_one_line_and_loses_nothing(work, tmp_path, capsys, monkeypatch):
+    if shutil.which("mount") is None or os.geteuid() != 0:
+        pytest.skip("mounting a tmpfs needs root; the simulated faults above cover it")
+    before = _rows(_folder(work))
+    with _tiny_filesystem(tmp_path / "frozen", "8m") as frozen:
+        shutil.copytree(work / "results", frozen / "results")
+        shutil.copy(work / "ledger.yaml", frozen / "ledger.yaml")
+        subprocess.run(["mount", "-o", "remount,ro", str(frozen)], check=True, capture_output=True)
+        monkeypatch.chdir(frozen)
+        code, err = _run(capsys)
+        assert code == 2
+        _one_line(err, "read-only")
+        code, err = _cli(capsys, "report", "results/ledger")
+        assert code == 2
+        _one_line(err, "read-only")
+        pd.testing.assert_frame_equal(_rows(frozen / "results" / "ledger", frozen=True), before)
+        monkeypatch.chdir(tmp_path)

@@ -14,6 +14,7 @@ import numpy as np
 
 from runner.agents.kernels import q_table_greedy
 from runner.errors import EnvironmentSourceError
+from runner.models.bin_prediction import no_prediction
 from runner.models.table_error import no_model_error
 from runner.params import Param, resolve_params
 from runner.streams import as_stream
@@ -146,6 +147,15 @@ class TabularAgent:
     model_error_kernel = staticmethod(no_model_error)
     """Compiled (arrays, table) -> (mean total-variation distance, mean absolute reward error) of the agent's
     learned model against a true transition table; model-free kinds keep this default, which gives NaN."""
+
+    predict_kernel = staticmethod(no_prediction)
+    """Compiled (arrays, state, action, grid, out) -> predicted reward, writing the predicted next observation
+    into `out`, for kinds with a learned model on a grid of bins (`runner.models.bin_prediction`: the expected
+    bin centre); model-free kinds keep this default, which predicts NaN."""
+
+    def has_bin_model(self) -> bool:
+        """Whether the kind predicts next observations on bins (its model error is measured on held-out data)."""
+        return self.predict_kernel is not TabularAgent.predict_kernel
 
     def model_error(self, table: tuple) -> tuple[float, float]:
         """The learned model's error against a true table (see `model_error_kernel`)."""

@@ -6,12 +6,13 @@ from numba import njit
 from runner.agents.base import TabularAgent
 from runner.agents.common import EPSILON, GAMMA
 from runner.agents.kernels import epsilon_greedy
+from runner.models.bin_prediction import add_bin_centre, own_bin_centre
 from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import Param
 from runner.planning.value_iteration import sweep_until_converged
 from runner.tags import AgentTags
 
-__all__ = ["CertaintyEquivalence", "count_model_arrays"]
+__all__ = ["CertaintyEquivalence", "count_model_arrays", "count_model_prediction", "expected_bin_centre"]
 
 _GAMMA, _EPSILON, _TOL, _MAX_SWEEPS, _REPLAN, _UNVISITED, _OPTIMISTIC, _KNOWN_AFTER = range(8)
 _Q, _V, _SUCC, _WEIGHT, _N_SUCC, _VISITS, _REWARD_SUM, _SINCE = range(8)
@@ -114,6 +115,44 @@ def certainty_equivalence_model_error(arrays, table):
     return tv / visited, reward_error / visited
 
 
+@njit(cache=True)
+def count_model_prediction(arrays, state, action, grid, out):
+    """Predicted next observation on bins (into `out`) and reward: the expected bin centre under the counted
+    next-bin distribution, and the mean reward (see `runner.models.bin_prediction`)."""
+    return expected_bin_centre(
+        arrays[_SUCC],
+        arrays[_WEIGHT],
+        arrays[_N_SUCC],
+        arrays[_VISITS],
+        arrays[_REWARD_SUM][state, action],
+        state,
+        action,
+        grid,
+        out,
+    )
+
+
+@njit(cache=True)
+def expected_bin_centre(succ, weight, n_succ, visits, reward_sum, state, action, grid, out):
+    """The expected centre of the next bin under counted successors (ended episodes left out), and the mean
+    reward `reward_sum / visits`; an unseen pair, or one seen only to end, predicts its own bin's centre."""
+    own_bin_centre(out, state, grid)
+    total = visits[state, action]
+    if total == 0.0:
+        return 0.0
+    n_states = succ.shape[0]
+    going_on = 0.0
+    for j in range(n_succ[state, action]):
+        if succ[state, action, j] != n_states:
+            going_on += weight[state, action, j]
+    if going_on > 0.0:
+        out[:] = 0.0
+        for j in range(n_succ[state, action]):
+            if succ[state, action, j] != n_states:
+                add_bin_centre(out, succ[state, action, j], weight[state, action, j] / going_on, grid)
+    return reward_sum / total
+
+
 class CertaintyEquivalence(TabularAgent):
     """Model-based agent that trusts its maximum-likelihood model and solves it by value iteration."""
 
@@ -197,3 +236,4 @@ class CertaintyEquivalence(TabularAgent):
     act_kernel = staticmethod(certainty_equivalence_act)
     observe_kernel = staticmethod(certainty_equivalence_observe)
     model_error_kernel = staticmethod(certainty_equivalence_model_error)
+    predict_kernel = staticmethod(count_model_prediction)

@@ -6,12 +6,13 @@ from numba import njit
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
 from runner.agents.kernels import epsilon_greedy, q_learning_update
+from runner.models.bin_prediction import add_bin_centre, own_bin_centre
 from runner.models.table_error import true_mean_reward, true_probability
 from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
 from runner.tags import AgentTags
 
-__all__ = ["DynaQ", "last_outcome_arrays", "record_last_outcome"]
+__all__ = ["DynaQ", "last_outcome_arrays", "last_outcome_prediction", "record_last_outcome"]
 
 _ALPHA, _GAMMA, _EPSILON, _PLANNING = 0, 1, 2, 3
 _Q, _NEXT, _REWARD, _TERMINAL, _SEEN, _SEEN_LIST, _N_SEEN = range(7)
@@ -102,6 +103,19 @@ def dyna_q_model_error(arrays, table):
     return tv / n_seen, reward_error / n_seen
 
 
+@njit(cache=True)
+def last_outcome_prediction(arrays, state, action, grid, out):
+    """Predicted next observation on bins (into `out`) and reward: the centre of the remembered next bin and the
+    remembered reward (see `runner.models.bin_prediction`; an unseen or ending pair predicts its own bin)."""
+    own_bin_centre(out, state, grid)
+    if arrays[_SEEN][state, action] == 0:
+        return 0.0
+    if arrays[_TERMINAL][state, action] == 0:
+        out[:] = 0.0
+        add_bin_centre(out, arrays[_NEXT][state, action], 1.0, grid)
+    return arrays[_REWARD][state, action]
+
+
 class DynaQ(TabularAgent):
     """Tabular Dyna-Q with a deterministic last-outcome model and a planning budget per real step."""
 
@@ -145,3 +159,4 @@ class DynaQ(TabularAgent):
     act_kernel = staticmethod(dyna_q_act)
     observe_kernel = staticmethod(dyna_q_observe)
     model_error_kernel = staticmethod(dyna_q_model_error)
+    predict_kernel = staticmethod(last_outcome_prediction)

@@ -10,7 +10,12 @@ from numba import njit
 
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
-from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
+from runner.agents.dyna_q import (
+    dyna_q_model_error,
+    last_outcome_arrays,
+    last_outcome_prediction,
+    record_last_outcome,
+)
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
@@ -103,3 +108,4 @@ class DynaQPlus(TabularAgent):
     act_kernel = staticmethod(dyna_q_plus_act)
     observe_kernel = staticmethod(dyna_q_plus_observe)
     model_error_kernel = staticmethod(dyna_q_model_error)
+    predict_kernel = staticmethod(last_outcome_prediction)

@@ -9,7 +9,12 @@ from numba import njit
 
 from runner.agents.base import TabularAgent
 from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
-from runner.agents.dyna_q import dyna_q_model_error, last_outcome_arrays, record_last_outcome
+from runner.agents.dyna_q import (
+    dyna_q_model_error,
+    last_outcome_arrays,
+    last_outcome_prediction,
+    record_last_outcome,
+)
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import PLANNING_BUDGET, Param
 from runner.tags import AgentTags
@@ -190,3 +195,4 @@ class PrioritizedSweeping(TabularAgent):
     act_kernel = staticmethod(prioritized_sweeping_act)
     observe_kernel = staticmethod(prioritized_sweeping_observe)
     model_error_kernel = staticmethod(dyna_q_model_error)
+    predict_kernel = staticmethod(last_outcome_prediction)

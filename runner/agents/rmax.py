@@ -12,6 +12,7 @@ from runner.agents.certainty_equivalence import (
     certainty_equivalence_model_error,
     certainty_equivalence_observe,
     count_model_arrays,
+    count_model_prediction,
 )
 from runner.params import Param
 
@@ -65,3 +66,4 @@ class RMax(CertaintyEquivalence):
     act_kernel = staticmethod(certainty_equivalence_act)
     observe_kernel = staticmethod(certainty_equivalence_observe)
     model_error_kernel = staticmethod(certainty_equivalence_model_error)
+    predict_kernel = staticmethod(count_model_prediction)

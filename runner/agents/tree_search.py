@@ -19,6 +19,7 @@ import numpy as np
 from numba import njit
 
 from runner.agents.base import TabularAgent
+from runner.agents.certainty_equivalence import expected_bin_centre
 from runner.agents.common import ALPHA, EPSILON, GAMMA
 from runner.agents.kernels import q_learning_update
 from runner.models.table_error import true_mean_reward, true_probability
@@ -134,6 +135,22 @@ def tree_search_model_error(arrays, table):
     if visited == 0:
         return np.nan, np.nan
     return tv / visited, reward_error / visited
+
+
+@njit(cache=True)
+def tree_search_prediction(arrays, state, action, grid, out):
+    """Predicted next observation on bins (into `out`) and reward from the learned count model: the expected bin
+    centre and the mean reward (see `runner.models.bin_prediction`). The oracle never runs on bins (it needs a
+    true table), so it predicts nothing (NaN)."""
+    if arrays[_TABLE].shape[0] > 0:
+        out[:] = np.nan
+        return np.nan
+    model, _, _ = _parts(arrays)
+    succ, count, reward_sum, n_succ, visits = model
+    total_reward = 0.0
+    for j in range(n_succ[state, action]):
+        total_reward += reward_sum[state, action, j]
+    return expected_bin_centre(succ, count, n_succ, visits, total_reward, state, action, grid, out)
 
 
 _SHARED = (
@@ -254,6 +271,7 @@ class _TreeSearch(TabularAgent):
     observe_kernel = staticmethod(tree_search_observe)
     greedy_kernel = staticmethod(tree_search_greedy)
     model_error_kernel = staticmethod(tree_search_model_error)
+    predict_kernel = staticmethod(tree_search_prediction)
 
 
 def _exploration(default: float, meaning: str) -> Param:

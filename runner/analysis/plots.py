@@ -248,24 +248,48 @@ def plot_model_error(
     threshold: float | None,
     out_dir: Path,
     title: str,
+    held_out: pd.DataFrame | None = None,
 ) -> list[Path]:
-    """Write `model_error_<env>.png/.svg`: the return curves beside the learned model's error over real steps.
+    """Write `model_error_<env>.png/.svg`: the return curves beside the learned models' errors over real steps.
 
-    The right panel shows the mean total-variation distance of each agent's learned transition model to the
-    true table, with the band given in `error_bands`; agents without a model have no line there but keep their
-    colour.
+    After the return panel come, where measured: the mean total-variation distance of each learned transition
+    model to the true table (`error_bands`), and one panel per horizon of the errors on held-out real
+    transitions (`held_out`, columns of `runner.analysis.model_errors.MODEL_ERROR_COLUMNS`: one step, then open
+    loop after 5 and 20 steps), all with their bands. Agents without a model have no line there but keep their
+    colour; the legend sits beside the last panel.
     """
-    figure = Figure(figsize=(12.0, 4.5), layout="constrained")
-    left, right = figure.subplots(1, 2, sharex=True)
+    held_out = held_out if held_out is not None else pd.DataFrame(columns=["steps_ahead", "agent"])
+    panels: list[tuple[str, str, pd.DataFrame]] = []
+    if len(error_bands) and error_bands["mean"].notna().any():
+        panels.append(("model error (mean total-variation distance)", "distance to the true table", error_bands))
+    for steps_ahead in sorted(pd.unique(held_out["steps_ahead"])):
+        rows = held_out[held_out["steps_ahead"] == steps_ahead]
+        what = "one step" if steps_ahead == 1 else f"open loop, {steps_ahead} steps"
+        panels.append((f"held-out error in spreads ({what})", f"held-out error, {what}", rows))
+    figure = Figure(figsize=(4.2 * (1 + len(panels)) + 2.0, 4.5), layout="constrained")
+    axes = figure.subplots(1, 1 + len(panels), sharex=True, squeeze=False)[0]
     styles = agent_styles(agents)
-    _draw_bands(left, return_bands, styles)
-    _draw_threshold_line(left, threshold)
-    _finish(left, "real environment steps", "mean greedy evaluation return", "return")
-    _draw_bands(
-        right, error_bands, {agent: style for agent, style in styles.items() if agent in set(error_bands["agent"])}
+    _draw_bands(axes[0], return_bands, styles)
+    _draw_threshold_line(axes[0], threshold)
+    _finish(axes[0], "real environment steps", "mean greedy evaluation return", "return", legend=False)
+    for panel, (ylabel, panel_title, bands) in zip(axes[1:], panels, strict=True):
+        present = set(bands["agent"])
+        _draw_bands(panel, bands, {agent: style for agent, style in styles.items() if agent in present})
+        panel.set_ylim(bottom=0.0)
+        _finish(panel, "real environment steps", ylabel, panel_title, legend=False)
+    handles: dict[str, object] = {}
+    for panel in axes:
+        for handle, label in zip(*panel.get_legend_handles_labels(), strict=True):
+            handles.setdefault(label, handle)
+    axes[-1].legend(
+        list(handles.values()),
+        list(handles),
+        loc="upper left",
+        bbox_to_anchor=(1.02, 1.0),
+        borderaxespad=0.0,
+        fontsize="small",
+        frameon=False,
     )
-    right.set_ylim(bottom=0.0)
-    _finish(right, "real environment steps", "model error (mean total-variation distance)", "learned model error")
     figure.suptitle(title)
     return _save_both(figure, out_dir, f"model_error_{safe_name(env)}")
 

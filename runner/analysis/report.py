@@ -48,6 +48,7 @@ from runner.analysis.curves import curve_bands, trial_scores
 from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
 from runner.analysis.measures import EARNING_COLUMNS, GREEDY_RETURN, MEASURES, earning_summary, with_earning_rate
 from runner.analysis.methods import method_lines
+from runner.analysis.model_errors import held_out_error_bands
 from runner.analysis.page import (
     EnvPage,
     ExperimentRecords,
@@ -813,10 +814,20 @@ def _env_figures(
                 ),
             )
     errors = _model_error_bands(frame, env, facts.confidence)
-    if len(errors) and errors["mean"].notna().any():
+    held_out = data.model_errors[data.model_errors["env"] == env] if len(data.model_errors) else data.model_errors
+    if (len(errors) and errors["mean"].notna().any()) or len(held_out):
         figures.add(
             "model_error",
-            plot_model_error(env_bands, errors, env, agents=agents, threshold=threshold, out_dir=out_dir, title=title),
+            plot_model_error(
+                env_bands,
+                errors,
+                env,
+                agents=agents,
+                threshold=threshold,
+                out_dir=out_dir,
+                title=title,
+                held_out=_only(held_out, agents),
+            ),
         )
     styles = agent_styles(agents)
     kinds = dict(zip(data.summary["agent"], data.summary["kind"], strict=True))
@@ -987,6 +998,11 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
         costs=costs,
         priced=priced,
         seed_flags=_sort_by_order(flags, envs, agents, "seed") if len(flags) else flags,
+        model_errors=_sort_by_order(
+            held_out_error_bands(frame, confidence=facts.confidence, n_resamples=facts.n_resamples, seed=facts.seed),
+            envs,
+            agents,
+        ),
     )
 
 
@@ -1059,6 +1075,7 @@ def _interval_names(confidence: float) -> dict[str, str]:
     return {
         "summary.csv": mean,
         "curves.csv": mean,
+        "model_errors.csv": mean,
         "earnings.csv": mean,
         "change_windows.csv": mean,
         "threshold_summary.csv": km,
@@ -1096,6 +1113,7 @@ def _write_tables(
         "recovery_summary.csv": data.rsummary,
         "recovery_ratios.csv": data.rratios,
         "change_windows.csv": data.windows,
+        "model_errors.csv": data.model_errors,
     }
     tables.update({name: table for name, table in optional.items() if len(table)})
     if len(data.costs):

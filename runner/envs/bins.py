@@ -18,8 +18,17 @@ from typing import Any
 
 import gymnasium as gym
 import numpy as np
+from numba import njit
 
-__all__ = ["MAX_BINS_PER_DIMENSION", "MAX_BIN_STATES", "BinnedObservation", "BinsError", "resolve_bins"]
+__all__ = [
+    "MAX_BINS_PER_DIMENSION",
+    "MAX_BIN_STATES",
+    "BinnedObservation",
+    "BinsError",
+    "bin_centres",
+    "bin_index",
+    "resolve_bins",
+]
 
 MAX_BINS_PER_DIMENSION = 10_000
 MAX_BIN_STATES = 1_000_000
@@ -131,3 +140,37 @@ class BinnedObservation(gym.ObservationWrapper):
         for value, edges, stride in zip(values, self._edges, self._strides, strict=True):
             index += int(np.searchsorted(edges, value, side="right")) * stride
         return index
+
+
+@njit(cache=True)
+def bin_index(obs, edges, edge_offsets, strides):
+    """The bin of an observation in compiled code: what `BinnedObservation.observation` returns, with every
+    dimension's interior edges concatenated in `edges` (dimension d owns `edges[edge_offsets[d]:edge_offsets[d + 1]]`)
+    and the row-major `strides` of the bins."""
+    index = 0
+    for d in range(obs.shape[0]):
+        k = np.searchsorted(edges[edge_offsets[d] : edge_offsets[d + 1]], obs[d], side="right")
+        index += k * strides[d]
+    return index
+
+
+def bin_centres(edges: list[list[float]], space: gym.spaces.Box) -> list[np.ndarray]:
+    """The centre of every bin, per dimension: what a model that knows only bins predicts for a bin.
+
+    Interior bins have two edges. The outer bins hold everything outside the edges, so they get the width of
+    their neighbouring interior bin: for bins made from `counts` over `low`..`high` that is exactly the outer
+    bin inside the clipping range (the resolved spec keeps only the edges, and this recovers `low` and `high`).
+    A dimension cut at a single edge has no neighbour to copy: its outer bins reach the observation space's bound
+    where it is finite, else they are centred on the edge itself.
+    """
+    low, high = _space_bounds(space, "low"), _space_bounds(space, "high")
+    centres = []
+    for d, row in enumerate(edges):
+        e = np.asarray(row, dtype=np.float64)
+        if e.size >= 2:
+            first, last = e[0] - (e[1] - e[0]) / 2, e[-1] + (e[-1] - e[-2]) / 2
+        else:
+            first = (low[d] + e[0]) / 2 if low[d] is not None else e[0]
+            last = (high[d] + e[0]) / 2 if high[d] is not None else e[0]
+        centres.append(np.concatenate(([first], (e[:-1] + e[1:]) / 2, [last])))
+    return centres

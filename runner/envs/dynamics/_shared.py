@@ -19,11 +19,14 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from llvmlite import ir
+from numba import njit, types
+from numba.core import cgutils
+from numba.extending import intrinsic
 
 from runner.streams import uniform
 
-__all__ = ["as_f32", "c_powf", "c_square", "uniform_between"]
+__all__ = ["as_f32", "c_powf", "c_square", "fused_multiply_add", "uniform_between"]
 
 
 @njit(cache=True, error_model="numpy")
@@ -32,11 +35,26 @@ def as_f32(x):
     return np.float64(np.float32(x))
 
 
-_SPLITTER = 134217729.0
-"""2^27 + 1: Veltkamp's constant that splits a double into two halves of 26 significant bits."""
 _SQUARE_LOW, _SQUARE_HIGH = 2.0**-960, 2.0**960
-"""Squares outside this range (or near it) take the libm call: the exact splitting below could underflow or
-overflow there."""
+"""Squares outside this range (or near it) take the libm call: the error term below could underflow there."""
+_EXPONENT_BITS = 0x7FF0000000000000
+_FRACTION_BITS = 0x000FFFFFFFFFFFFF
+_ULP_OF_ONE = 2.0**-52
+"""A double's exponent and fraction fields, and the spacing of doubles in [1, 2): the unit in the last place of
+p is its leading bit times this, read from p's bits (no `frexp`/`ldexp` calls, which cost more than the rest)."""
+
+
+@intrinsic
+def fused_multiply_add(typingctx, a, b, c):
+    """a * b + c rounded once (LLVM's `llvm.fma`: the processor's instruction, or libm's `fma` without one)."""
+    signature = types.float64(types.float64, types.float64, types.float64)
+
+    def codegen(context, builder, sig, args):
+        double = ir.DoubleType()
+        fma = cgutils.get_or_insert_function(builder.module, ir.FunctionType(double, [double] * 3), "llvm.fma.f64")
+        return builder.call(fma, args)
+
+    return signature, codegen
 
 
 @njit(cache=True, error_model="numpy")
@@ -44,24 +62,23 @@ def c_square(x, two):
     """C's pow(x, two) for two == 2.0 given at run time (a literal 2.0 lets LLVM fold the call into x * x),
     without the libm call when its result is certain.
 
-    The exact error of the rounded square p = x * x is computed with Dekker's product (x split into halves by
-    Veltkamp's method). When x^2 lies within 0.45 of a unit in the last place of p (and p is not a power of two,
-    where the spacing of doubles changes), x^2 is at least 0.05 units away from every rounding boundary, and
-    `pow` returns p: its result is the rounded exact value give or take 0.04 units (Arm's optimized-routines
-    pow.c, used by glibc since 2.28 (from memory), states a worst-case error of 0.54 units for any y, almost all
-    of it the final rounding). Otherwise (about 1 call in 10) it calls `pow`, about three times slower. Tested
-    equal to numpy's scalar `x ** 2` on 300,000 values.
+    The exact error of the rounded square p = x * x is one fused multiply-add, x * x - p (the error of a rounded
+    product is itself a double, so the result is exact). When x^2 lies within 0.45 of a unit in the last place
+    of p (and p is not a power of two, where the spacing of doubles changes), x^2 is at least 0.05 units away
+    from every rounding boundary, and `pow` returns p: its result is the rounded exact value give or take 0.04
+    units (Arm's optimized-routines pow.c, used by glibc since 2.28 (from memory), states a worst-case error of
+    0.54 units for any y, almost all of it the final rounding). Otherwise (about 1 call in 10) it calls `pow`,
+    about three times slower. Tested equal to numpy's scalar `x ** 2` on 300,000 values.
     """
     p = x * x
     magnitude = abs(p)
     if _SQUARE_LOW < magnitude < _SQUARE_HIGH:
-        c = _SPLITTER * x
-        hi = c - (c - x)
-        lo = x - hi
-        err = ((hi * hi - p) + 2.0 * hi * lo) + lo * lo
-        mantissa, exponent = math.frexp(magnitude)
-        if mantissa != 0.5 and abs(err) <= 0.45 * math.ldexp(1.0, exponent - 53):
-            return p
+        err = fused_multiply_add(x, x, -p)
+        bits = np.float64(magnitude).view(np.int64)
+        if bits & _FRACTION_BITS != 0:  # not a power of two
+            binade = np.int64(bits & _EXPONENT_BITS).view(np.float64)  # 2 ** floor(log2 p): p's leading bit
+            if abs(err) <= 0.45 * _ULP_OF_ONE * binade:
+                return p
     return math.pow(x, two)
 
 

@@ -78,9 +78,13 @@ def reset(state, params, stream):
         state[i] = as_f32(uniform_between(stream, params[LOW], params[HIGH]))
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _dsdt(params, a, theta1, theta2, dtheta1, dtheta2):
-    """Time derivative of the state under torque `a` (gymnasium's `_dsdt`, book dynamics)."""
+    """Time derivative of the state under torque `a` (gymnasium's `_dsdt`, book dynamics).
+
+    Inlined into `step` by numba: as a call, LLVM kept it out of line, and the four calls of each step, each
+    passing the params array, took about an eighth of the step's time (measured with
+    `benchmarks/dynamics_speed.py`)."""
     m1, m2, l1, lc1, lc2 = params[M1], params[M2], params[L1], params[LC1], params[LC2]
     i1 = params[MOI]
     i2 = params[MOI]

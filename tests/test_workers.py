@@ -1,0 +1,136 @@
+"""Local worker processes: the same rows as one process, and a run that stops (a store fault, Ctrl-C) ends its
+workers at once instead of leaving them running."""
+
+import os
+import signal
+import sqlite3
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import pandas as pd
+import psutil
+import pytest
+
+import runner
+import runner.run as run_module
+from runner.errors import StoreError
+from runner.metrics import TIMING_COLUMNS
+from runner.run import RunOptions, run_experiment
+
+_REPO = Path(__file__).resolve().parents[1]
+
+_TEXT = """\
+experiment: crew
+seeds: {seeds}
+real_steps: {steps}
+evaluation: {{every: {every}, episodes: 2}}
+environments:
+  - label: hall
+    grid:
+      map: |
+        S.~.
+        .#.G
+      slip: 0.2
+    step_limit: 40
+agents:
+  - {{label: q, kind: q_learning}}
+  - {{label: dyna, kind: dyna_q, params: {{planning_steps: 5}}}}
+baseline: q
+"""
+
+
+def _write(folder: Path, seeds: int = 3, steps: int = 400, every: int = 100) -> Path:
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / "crew.yaml"
+    path.write_text(_TEXT.format(seeds=seeds, steps=steps, every=every), encoding="utf-8")
+    return path
+
+
+def _workers(root: psutil.Process) -> list[psutil.Process]:
+    """Running worker processes under `root`: the children of its fork server (which `root` started)."""
+    workers = []
+    for child in root.children(recursive=True):
+        try:
+            forked = "forkserver" in " ".join(child.cmdline()) and child.ppid() != root.pid
+            if forked and child.status() != psutil.STATUS_ZOMBIE:
+                workers.append(child)
+        except psutil.NoSuchProcess:
+            continue
+    return workers
+
+
+def _workers_alive() -> list[psutil.Process]:
+    return _workers(psutil.Process())
+
+
+def _wait_gone(seconds: float = 10.0) -> list[psutil.Process]:
+    deadline = time.monotonic() + seconds
+    while (alive := _workers_alive()) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    return alive
+
+
+def test_two_workers_store_the_same_rows_as_one_process(tmp_path):
+    one = run_experiment(_write(tmp_path / "a"), results_root=tmp_path / "a" / "results", options=RunOptions(jobs=1))
+    two = run_experiment(_write(tmp_path / "b"), results_root=tmp_path / "b" / "results", options=RunOptions(jobs=2))
+    assert (one.ran, two.ran) == (6, 6)
+    assert len(_workers_alive()) == 2  # the pool stays up for the next run in this process
+    frames = [runner.load_results(s.folder).drop(columns=list(TIMING_COLUMNS)) for s in (one, two)]
+    pd.testing.assert_frame_equal(*frames)
+
+
+def test_a_store_fault_while_workers_run_ends_them(tmp_path, monkeypatch):
+    real_write = run_module.Store.write_trial
+    writes = []
+
+    def full_disk_on_the_second_write(self, *args, **kwargs):
+        writes.append(1)
+        if len(writes) == 2:
+            raise sqlite3.OperationalError("database or disk is full")
+        return real_write(self, *args, **kwargs)
+
+    monkeypatch.setattr(run_module.Store, "write_trial", full_disk_on_the_second_write)
+    path = _write(tmp_path, seeds=6, steps=4000, every=1000)
+    with pytest.raises(StoreError, match="no space left on the disk"):
+        run_experiment(path, results_root=tmp_path / "results", options=RunOptions(jobs=2))
+    assert _wait_gone() == []
+    with sqlite3.connect(tmp_path / "results" / "crew" / "experiment.sqlite") as conn:
+        assert conn.execute("SELECT count(*) FROM trials").fetchone()[0] == 1
+    conn.close()
+
+
+@pytest.mark.slow
+def test_ctrl_c_on_two_workers_keeps_finished_trials_and_leaves_no_worker(tmp_path):
+    path = _write(tmp_path, seeds=40, steps=20000, every=1000)
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join(p for p in (str(_REPO), env.get("PYTHONPATH", "")) if p)
+    proc = subprocess.Popen(
+        [sys.executable, "-m", "runner", "run", str(path), "--jobs", "2", "--no-report", "--path", "gymnasium",
+         "--results", str(tmp_path / "results")],
+        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+    )  # fmt: skip
+    db = tmp_path / "results" / "crew" / "experiment.sqlite"
+    deadline = time.monotonic() + 120
+    stored = 0
+    while stored < 2 and time.monotonic() < deadline and proc.poll() is None:
+        time.sleep(0.2)
+        try:
+            with sqlite3.connect(f"file:{db}?mode=ro", uri=True, timeout=0.5) as conn:
+                stored = conn.execute("SELECT count(*) FROM trials").fetchone()[0]
+            conn.close()
+        except sqlite3.Error:
+            stored = 0
+    workers = _workers(psutil.Process(proc.pid))
+    assert stored >= 2 and len(workers) == 2
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=60)
+    assert proc.returncode == 130, err
+    assert "finished in this run are stored" in err and "Traceback" not in err
+    time.sleep(1)
+    assert not [w for w in workers if w.is_running() and w.status() != psutil.STATUS_ZOMBIE]
+    with sqlite3.connect(db) as conn:
+        assert conn.execute("SELECT count(*) FROM trials").fetchone()[0] >= stored
+        assert conn.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    conn.close()
