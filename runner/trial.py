@@ -153,8 +153,8 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
     compiled_env = facts.table is not None or facts.dynamics is not None or box
     if path == "compiled" and not compiled_env:
         raise EnvironmentSourceError(
-            "the compiled path needs a table-backed environment or compiled dynamics (seen through bins, or as a "
-            f"box by kinds that take boxes): {facts.not_table_reason}; {facts.not_dynamics_reason}; "
+            "the compiled path needs a table-backed environment or compiled dynamics seen through bins (or seen "
+            f"as a box by kinds that take boxes): {facts.not_table_reason}; {facts.not_dynamics_reason}; "
             f"{facts.not_box_reason}"
         )
     if path == "compiled" and not compiled_agent:
