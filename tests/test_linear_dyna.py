@@ -39,6 +39,20 @@ def test_planning_zero_is_linear_q_learning_bit_for_bit():
     assert not np.array_equal(run("linear_dyna", planning_steps=3).final_values, plain.final_values)
 
 
+def test_observation_head_predicts_a_linear_system():
+    """With raw features the head H_a learns s' = A s + c and b_a the reward s . v: `predict` recovers both."""
+    agent = make_agent("linear_dyna", {"features": {"kind": "raw"}, "planning_steps": 0, "model_alpha": 0.5})
+    agent.setup(2, 2, 0, bounds=(np.full(2, -1.0), np.ones(2)))
+    rng = np.random.default_rng(5)
+    a, c, v = np.array([[0.9, 0.1], [-0.2, 0.8]]), np.array([0.05, -0.02]), np.array([1.0, -2.0])
+    for _ in range(3000):
+        s = rng.uniform(-1, 1, size=2)
+        agent.observe(s, 1, float(s @ v), a @ s + c, False)
+    s = np.array([0.3, -0.4])
+    nxt, reward = agent.predict(s, 1)
+    assert np.allclose(nxt, a @ s + c, atol=1e-3) and abs(reward - s @ v) < 1e-3
+
+
 def _fit(phi, next_phi, rewards, terminal, epochs, alpha):
     """Cycle linear_model_update over a fixed batch of dense feature vectors; alpha(epoch) sets the step."""
     n, k = phi.shape

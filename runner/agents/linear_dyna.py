@@ -8,6 +8,9 @@ Q-learning (so `planning_steps: 0` is `linear_q_learning` bit for bit); a planni
 (observation, action) pair uniformly from a memory of the last `memory` real steps and backs up
 b_a . phi + gamma max_a' w_a' . (F_a phi). A terminal next state has the zero feature vector, so the model
 learns how likely an episode is to end. F_a is n_features x n_features: keep the features few (hash the tiles).
+Beside F_a and b_a the model keeps an observation head H_a (the next observation as H_a phi, learned by the same
+least-mean-squares steps): planning does not use it; it is what `predict` answers with, so the trial can measure
+the model's error in observation units (`runner.models.held_out`).
 """
 
 from dataclasses import replace
@@ -36,7 +39,7 @@ from runner.tags import AgentTags
 __all__ = ["MAX_MODEL_ENTRIES", "LinearDyna", "linear_model_update"]
 
 _ALPHA, _GAMMA, _EPSILON, _PLANNING, _MODEL_ALPHA = range(5)
-_F, _B, _PRED, _TARGET, _MEMORY, _MEMORY_ACTION, _MEMORY_META = range(LINEAR_ARRAYS, LINEAR_ARRAYS + 7)
+_F, _B, _PRED, _TARGET, _MEMORY, _MEMORY_ACTION, _MEMORY_META, _H, _OBS = range(LINEAR_ARRAYS, LINEAR_ARRAYS + 9)
 _N_ACTIVE = 6
 
 MAX_MODEL_ENTRIES = 1 << 24
@@ -73,6 +76,22 @@ def linear_model_update(f, b, action, idx, val, n, next_idx, next_val, n_next, t
     for i in range(n):
         f[action, idx[i]] += step * val[i] * (target - pred)
         b[action, idx[i]] += reward_step * val[i]
+
+
+@njit(cache=True)
+def observation_head_update(h, action, idx, val, n, next_state, alpha, out):
+    """One least-mean-squares step of the observation head H_a (the next observation as H_a phi) towards the real
+    next observation, step divided by phi . phi; `out` is scratch of the observation's length."""
+    norm = 0.0
+    out[:] = 0.0
+    for i in range(n):
+        norm += val[i] * val[i]
+        out += val[i] * h[action, idx[i]]
+    if norm == 0.0:
+        return
+    step = alpha / norm
+    for i in range(n):
+        h[action, idx[i]] += step * val[i] * (next_state - out)
 
 
 @njit(cache=True)
@@ -113,6 +132,9 @@ def linear_dyna_observe(arrays, hyper, counters, state, action, reward, next_sta
         hyper[_MODEL_ALPHA],
         arrays[_PRED],
         arrays[_TARGET],
+    )
+    observation_head_update(
+        arrays[_H], action, arrays[IDX][STATE], arrays[VAL][STATE], n, next_state, hyper[_MODEL_ALPHA], arrays[_OBS]
     )
     counters[2] += 1
     remember_next(arrays, next_state, terminated)
@@ -171,11 +193,25 @@ class LinearDyna(LinearAgent):
             np.zeros((self._params["memory"], n_states)),
             np.zeros(self._params["memory"], dtype=np.int64),
             np.zeros(2, dtype=np.int64),
+            np.zeros((n_actions, n_features, n_states)),
+            np.zeros(n_states),
         )
 
     def make_hyper(self):
         p = self._params
         return [*super().make_hyper(), float(p["planning_steps"]), p["model_alpha"]]
+
+    def predict(self, observation: np.ndarray, action: int) -> tuple[np.ndarray, float]:
+        """The next observation by the model's observation head H_a phi and the reward b_a . phi (for the
+        model-error contract: F_a predicts features, which have no observation to compare with)."""
+        obs = np.asarray(observation, dtype=np.float64)
+        arrays = self.arrays_
+        n = features_into(arrays, obs, 0)
+        out = np.zeros(obs.size)
+        idx, val = arrays[IDX][0], arrays[VAL][0]
+        for i in range(n):
+            out += val[i] * arrays[_H][int(action), idx[i]]
+        return out, float(np.dot(arrays[_B][int(action), idx[:n]], val[:n]))
 
     def counter_problems(self, real_steps):
         c = self.counters()
