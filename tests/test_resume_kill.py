@@ -18,11 +18,11 @@ from runner.metrics import TIMING_COLUMNS
 
 _REPO = Path(__file__).resolve().parents[1]
 _NAME = "killable"
-_REAL_STEPS = 6000
-_EVERY = 1000
+_REAL_STEPS = 15000
+_EVERY = 1500
 _POINTS = _REAL_STEPS // _EVERY + 1
 
-# 4 agent variants x 30 seeds = 120 trials of about 0.05-0.3 s each on the step-by-step gymnasium path: enough
+# 4 agent variants x 30 seeds = 120 trials of about 0.1-0.7 s each on the step-by-step gymnasium path: enough
 # work that six kills, each after a few more trials are stored, all land before the experiment is done.
 _EXPERIMENT = f"""\
 experiment: {_NAME}
