@@ -21,6 +21,7 @@ import numpy as np
 from joblib import delayed
 
 from runner.cluster import DEFAULT_TIMEOUT
+from runner.errors import TrialTimeout
 from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
 from runner.workers import pool, stop_workers, workers_ignore_interrupts
@@ -39,6 +40,9 @@ __all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "ignore_interrupts", 
 
 _QUEUED_PER_WORKER = 3
 """Trials handed to the pool ahead per worker: enough that none idles, few enough to stop quickly."""
+
+ALARM_GRACE = 1.0
+"""Seconds past the trial's limit before the alarm rings: the loops' own checks normally stop it earlier."""
 
 
 @dataclass
@@ -64,6 +68,30 @@ def ignore_interrupts() -> None:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
+@contextlib.contextmanager
+def _alarm(time_limit: float) -> Iterator[None]:
+    """Raise TrialTimeout in Python code still running `ALARM_GRACE` seconds past the limit.
+
+    The trial loops check the clock between steps; a single step that itself runs for long (a user's own agent
+    training a network inside `observe`) is stopped by this alarm instead, at its next Python instruction.
+    Signals reach only a process's main thread, so cluster workers (threads) rely on the loops' checks alone.
+    """
+    if time_limit <= 0 or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def ring(signum: int, frame: Any) -> None:
+        raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds (inside one step)")
+
+    previous = signal.signal(signal.SIGALRM, ring)
+    signal.setitimer(signal.ITIMER_REAL, time_limit + ALARM_GRACE)
+    try:
+        yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0.0)
+        signal.signal(signal.SIGALRM, previous)
+
+
 def execute_trial(
     trial_id: str, spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0, in_worker: bool = False
 ) -> TrialOutcome:
@@ -71,7 +99,8 @@ def execute_trial(
     if in_worker:
         ignore_interrupts()
     try:
-        result = run_trial(spec, path, time_limit)
+        with _alarm(time_limit):
+            result = run_trial(spec, path, time_limit)
         for name, column in result.rows.items():
             if name not in NAN_ALLOWED and not np.all(np.isfinite(column)):
                 raise FloatingPointError(f"metric {name!r} has a non-finite value")

@@ -14,7 +14,7 @@ from runner.errors import ClusterError
 from runner.lock import LOCK_NAME
 from runner.plan import plan_trials
 from runner.run import RunOptions, run_experiment
-from runner.schedule import execute_trial
+from runner.schedule import ALARM_GRACE, execute_trial
 
 # The goal is walled off, so a greedy evaluation wanders until its step cap of a billion steps (hours).
 _WALLED = """\
@@ -136,3 +136,23 @@ def test_a_malformed_cluster_address_stops_the_run_before_anything_is_written(tm
             tmp_path / "silent.yaml", results_root=tmp_path / "results", options=RunOptions(cluster="tcp://host")
         )
     assert not (tmp_path / "results").exists()
+
+
+def test_a_single_step_that_runs_for_long_is_stopped_after_the_limit(monkeypatch):
+    """A step that never returns to the loop (e.g. an own agent training for minutes inside one call) is ended by
+    the alarm a second past the limit, and the trial is a failed outcome, not a hang."""
+
+    def one_endless_step(spec, path, time_limit):
+        deadline = time.monotonic() + 60.0
+        while time.monotonic() < deadline:
+            time.sleep(0.01)
+        raise AssertionError("the step was not interrupted")
+
+    monkeypatch.setattr("runner.schedule.run_trial", one_endless_step)
+    started = time.monotonic()
+    outcome = execute_trial("0" * 16, {}, "auto", time_limit=0.5)
+    took = time.monotonic() - started
+    assert outcome.rows is None
+    assert outcome.error_type == "TrialTimeout", outcome.traceback
+    assert "inside one step" in outcome.message
+    assert 0.5 + ALARM_GRACE - 0.05 <= took < 0.5 + ALARM_GRACE + 1.0
