@@ -24,7 +24,7 @@ from runner.cluster import DEFAULT_TIMEOUT
 from runner.errors import TrialTimeout
 from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
-from runner.workers import pool, stop_workers, workers_ignore_interrupts
+from runner.workers import pool, stop_workers
 
 NAN_ALLOWED = (
     "train_return",
@@ -165,11 +165,12 @@ def _on_workers(trials: list[PlannedTrial], jobs: int, path: str, time_limit: fl
     running: set[Future] = set()
 
     def hand_out() -> None:
-        with workers_ignore_interrupts():  # a worker that died is replaced on submission
-            for t in waiting:
-                running.add(executor.submit(execute_trial, t.trial_id, t.spec, path, time_limit, in_worker=True))
-                if len(running) >= jobs * _QUEUED_PER_WORKER:
-                    break
+        # No window with Ctrl-C ignored here: a Ctrl-C must never be lost between two trials. A worker that died
+        # is replaced by the fork server, which ignores Ctrl-C since `pool` started it, not by this process.
+        for t in waiting:
+            running.add(executor.submit(execute_trial, t.trial_id, t.spec, path, time_limit, in_worker=True))
+            if len(running) >= jobs * _QUEUED_PER_WORKER:
+                break
 
     finished = False
     try:
