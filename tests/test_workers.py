@@ -102,6 +102,12 @@ def test_a_store_fault_while_workers_run_ends_them(tmp_path, monkeypatch):
 
 
 @pytest.mark.slow
+def _ctrl_c_as_a_terminal_gives() -> None:
+    """Give the run Ctrl-C's default disposition: a shell starts background jobs with it ignored, and a
+    process that starts with Ctrl-C ignored never sees it (so the test would depend on how it was launched)."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def test_ctrl_c_on_two_workers_keeps_finished_trials_and_leaves_no_worker(tmp_path):
     path = _write(tmp_path, seeds=40, steps=20000, every=1000)
     env = dict(os.environ)
@@ -109,7 +115,7 @@ def test_ctrl_c_on_two_workers_keeps_finished_trials_and_leaves_no_worker(tmp_pa
     proc = subprocess.Popen(
         [sys.executable, "-m", "runner", "run", str(path), "--jobs", "2", "--no-report", "--path", "gymnasium",
          "--results", str(tmp_path / "results")],
-        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+        env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, preexec_fn=_ctrl_c_as_a_terminal_gives,
     )  # fmt: skip
     db = tmp_path / "results" / "crew" / "experiment.sqlite"
     deadline = time.monotonic() + 120
