@@ -25,7 +25,7 @@ from runner.features import FEATURES_PARAM, build_feature_map
 from runner.params import Param
 from runner.tags import AgentTags
 
-__all__ = ["LINEAR_SCHEMA", "LinearAgent", "LinearQLearning", "LinearSarsa", "linear_q_update"]
+__all__ = ["LINEAR_SCHEMA", "LinearAgent", "LinearQLearning", "LinearSarsa", "PlanningLinearAgent", "linear_q_update"]
 
 _ALPHA, _GAMMA, _EPSILON = 0, 1, 2
 _PENDING_OBS, _PENDING = LINEAR_ARRAYS, LINEAR_ARRAYS + 1  # Sarsa: next observation and [flag, action]
@@ -146,3 +146,17 @@ class LinearSarsa(LinearAgent):
 
     act_kernel = staticmethod(linear_sarsa_act)
     observe_kernel = staticmethod(linear_sarsa_observe)
+
+
+class PlanningLinearAgent(LinearAgent):
+    """A linear kind that learns a model every real step and makes `planning_steps` simulated updates per step."""
+
+    def counter_problems(self, real_steps):
+        c = self.counters()
+        n = self._params["planning_steps"]
+        problems = super().counter_problems(real_steps)
+        if c["real_updates"] != real_steps or c["model_updates"] != real_steps:
+            problems.append(f"real and model updates should both equal real steps {real_steps}: {c}")
+        if c["planning_updates"] != n * c["real_updates"]:
+            problems.append(f"planning_updates {c['planning_updates']} != n x real_updates = {n * c['real_updates']}")
+        return problems

@@ -21,7 +21,7 @@ from dataclasses import replace
 import numpy as np
 from numba import njit
 
-from runner.agents.linear import LINEAR_SCHEMA, LinearAgent, linear_q_act, linear_q_update
+from runner.agents.linear import LINEAR_SCHEMA, PlanningLinearAgent, linear_q_act, linear_q_update
 from runner.agents.linear_kernels import (
     IDX,
     INTS,
@@ -33,6 +33,7 @@ from runner.agents.linear_kernels import (
     features_into,
     observation_values,
     remember_next,
+    remember_visit,
     semi_gradient_update,
 )
 from runner.errors import EnvironmentSourceError
@@ -170,15 +171,11 @@ def linear_gaussian_observe(arrays, hyper, counters, state, action, reward, next
     )
     counters[2] += 1
     remember_next(arrays, next_state, terminated)
-    meta = arrays[_MEMORY_META]
-    arrays[_MEMORY][meta[1]] = state
-    arrays[_MEMORY_ACTION][meta[1]] = action
-    meta[1] = (meta[1] + 1) % arrays[_MEMORY].shape[0]
-    meta[0] = min(meta[0] + 1, arrays[_MEMORY].shape[0])
+    remember_visit(arrays[_MEMORY], arrays[_MEMORY_ACTION], arrays[_MEMORY_META], state, action)
     linear_gaussian_plan(arrays, hyper, counters, np.int64(hyper[_PLANNING]), rng)
 
 
-class LinearGaussian(LinearAgent):
+class LinearGaussian(PlanningLinearAgent):
     """Linear Q-learning plus planning through a Bayesian linear-Gaussian model of the change of observation."""
 
     tags = AgentTags(observations=("box",), learned_model="function")
@@ -263,16 +260,6 @@ class LinearGaussian(LinearAgent):
         n = features_into(arrays, obs, 0)
         predictive_mean(arrays[_MEAN], int(action), arrays[IDX][0], arrays[VAL][0], n, out)
         return obs + out[: obs.size], float(out[obs.size]), float(np.clip(out[obs.size + 1], 0.0, 1.0))
-
-    def counter_problems(self, real_steps):
-        c = self.counters()
-        n = self._params["planning_steps"]
-        problems = super().counter_problems(real_steps)
-        if c["real_updates"] != real_steps or c["model_updates"] != real_steps:
-            problems.append(f"real and model updates should both equal real steps {real_steps}: {c}")
-        if c["planning_updates"] != n * c["real_updates"]:
-            problems.append(f"planning_updates {c['planning_updates']} != n x real_updates = {n * c['real_updates']}")
-        return problems
 
     act_kernel = staticmethod(linear_q_act)
     observe_kernel = staticmethod(linear_gaussian_observe)

@@ -22,6 +22,7 @@ __all__ = [
     "linear_greedy",
     "observation_values",
     "remember_next",
+    "remember_visit",
     "same_observation",
     "semi_gradient_update",
     "state_features",
@@ -86,6 +87,16 @@ def remember_next(arrays, next_state, terminated):
     arrays[VAL][STATE][:] = arrays[VAL][1]
     arrays[CACHED_OBS][:] = next_state
     arrays[CACHED][0] = 1
+
+
+@njit(cache=True, inline="always")
+def remember_visit(memory, memory_action, meta, state, action):
+    """Add a visited (observation, action) to the ring buffer that planning starts from; `meta` holds
+    (how many are kept, where the next one goes)."""
+    memory[meta[1]] = state
+    memory_action[meta[1]] = action
+    meta[1] = (meta[1] + 1) % memory.shape[0]
+    meta[0] = min(meta[0] + 1, memory.shape[0])
 
 
 @njit(cache=True, inline="always")
