@@ -1,8 +1,9 @@
 """True online Sarsa(lambda) with dutch traces (van Seijen, Mahmood, Pilarski, Machado & Sutton 2016; Sutton &
 Barto 2018, section 12.8), linear in the shared features.
 
-The trace e has the step size folded in (van Seijen & Sutton 2014's form), so the step may change from step to
-step: alpha_t = alpha / (phi . phi), as in every linear kind (constant for tile coding). Per real step, with
+The trace e has the step size folded in (the form of van Seijen & Sutton 2014, from memory; the tests check it
+against section 12.4's online lambda-return algorithm), so the step may change from step to step:
+alpha_t = alpha / (phi . phi), as in every linear kind (constant for tile coding). Per real step, with
 x = phi(S, A), x' = phi(S', A') (zero when S' ends the episode), Q = w . x, Q' = w . x' and Q_old the last
 step's Q':
 
@@ -20,7 +21,8 @@ Cost: the trace is dense (n_actions x n_features), but only entries touched sinc
 nonzero, so the decay and the weight step run over a list of those: O(distinct (action, feature) pairs active
 so far this episode) per real step, at most O(n_actions x n_features), which it reaches with dense features
 (RBF, Fourier, raw) or long episodes; clearing at an episode's start costs the same once. Traces are kept
-exactly (no small trace is dropped), so the kernel equals the pseudocode to rounding.
+exactly (no small trace is dropped), so the kernel equals the pseudocode to rounding. A dense decay over all
+entries would cost O(n_actions x n_features) every step; `benchmarks/true_online_speed.py` times both.
 """
 
 import numpy as np
