@@ -30,6 +30,8 @@ def test_crane_config_declares_bins_and_a_threshold():
         "linear_sarsa",
         "linear_dyna",
         "linear_gaussian",
+        "linear_replay_q_learning",
+        "linear_true_online_sarsa",
     }
     budgets = {a.kind: [] for a in experiment.agents}
     for a in experiment.agents:
@@ -45,7 +47,7 @@ def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
     path.write_text(text)
     assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1"]) == 0
     frame = runner.load_results(tmp_path / "results" / "crane-loading-bay")
-    assert len(frame) == 11 * 3  # eleven agent variants x evaluation points at 0, 1000 and 2000 real steps
+    assert len(frame) == 14 * 3  # fourteen agent variants x evaluation points at 0, 1000 and 2000 real steps
     assert np.isfinite(frame["eval_return"]).all()
     assert (tmp_path / "results" / "crane-loading-bay" / "report" / "report.html").exists()
 
