@@ -105,6 +105,19 @@ def observation_head_update(h, action, idx, val, n, next_state, alpha, out):
 
 
 @njit(cache=True)
+def linear_dyna_predict(arrays, obs, action, out):
+    """The observation head's next observation H_a phi into `out`; returns the planning model's reward b_a . phi."""
+    n = features_into(arrays, obs, 0)
+    idx, val = arrays[IDX][0], arrays[VAL][0]
+    out[:] = 0.0
+    reward = 0.0
+    for i in range(n):
+        out += val[i] * arrays[_H][action, idx[i]]
+        reward += arrays[_B][action, idx[i]] * val[i]
+    return reward
+
+
+@njit(cache=True)
 def linear_dyna_plan(arrays, hyper, counters, n_updates, rng):
     """`n_updates` Q-learning backups through the model from visited (observation, action) pairs."""
     w, f, b, pred = arrays[W], arrays[_F], arrays[_B], arrays[_PRED]
@@ -277,13 +290,10 @@ class LinearDyna(PlanningLinearAgent):
         """The next observation by the model's observation head H_a phi and the reward b_a . phi (for the
         model-error contract: F_a predicts features, which have no observation to compare with)."""
         obs = np.asarray(observation, dtype=np.float64)
-        arrays = self.arrays_
-        n = features_into(arrays, obs, 0)
         out = np.zeros(obs.size)
-        idx, val = arrays[IDX][0], arrays[VAL][0]
-        for i in range(n):
-            out += val[i] * arrays[_H][int(action), idx[i]]
-        return out, float(np.dot(arrays[_B][int(action), idx[:n]], val[:n]))
+        reward = linear_dyna_predict(self.arrays_, obs, int(action), out)
+        return out, float(reward)
 
     act_kernel = staticmethod(linear_q_act)
     observe_kernel = staticmethod(linear_dyna_observe)
+    function_predict_kernel = staticmethod(linear_dyna_predict)
