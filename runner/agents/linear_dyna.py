@@ -108,11 +108,12 @@ def observation_head_update(h, action, idx, val, n, next_state, alpha, out):
 def linear_dyna_predict(arrays, obs, action, out):
     """The observation head's next observation H_a phi into `out`; returns the planning model's reward b_a . phi."""
     n = features_into(arrays, obs, 0)
-    idx, val = arrays[IDX][0], arrays[VAL][0]
+    idx, val, h = arrays[IDX][0], arrays[VAL][0], arrays[_H]
     out[:] = 0.0
     reward = 0.0
     for i in range(n):
-        out += val[i] * arrays[_H][action, idx[i]]
+        for d in range(out.shape[0]):
+            out[d] += val[i] * h[action, idx[i], d]
         reward += arrays[_B][action, idx[i]] * val[i]
     return reward
 
