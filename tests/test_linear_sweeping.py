@@ -152,8 +152,9 @@ def test_both_paths_run_sweeping_within_its_budget(path):
 @pytest.mark.slow
 def test_prioritized_sweeping_saves_real_steps_on_mountain_car():
     """Linear Dyna with prioritized sweeping (5 backups per real step) against no planning, the first 20 episodes
-    of Mountain Car with 8 tilings of 8x8 tiles, 10 paired seeds. Seen on 3 seeds: 1.5 times fewer real steps
-    (uniform planning at the same budget: 2.4 times; the paper's ordering of the two is not checked here)."""
+    of Mountain Car with 8 tilings of 8x8 tiles, 10 paired seeds. Seen: 1.53 times fewer real steps (geometric
+    mean of the paired ratios, 95% bootstrap interval 1.49 to 1.59; uniform planning at the same budget and seeds:
+    2.44, 2.38 to 2.50). Which of the two the paper found better is not checked here."""
     features = {"kind": "tiles", "tilings": 8, "tiles": 8, "hash_size": 0}
     totals = {}
     for sweeping, n in (("none", 0), ("prioritized", 5)):
