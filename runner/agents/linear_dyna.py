@@ -14,7 +14,8 @@ the model's error in observation units (`runner.models.held_out`).
 
 `sweeping: prioritized` replaces the uniform choice of what to plan from by the paper's prioritized sweeping
 over features (`runner.agents.linear_sweeping`): `planning_steps` backups per real step at most, of the features
-that lead to the features whose values changed most; `sweeping: none` is the agent above, unchanged.
+that lead to the features whose values changed most (the memory of visited pairs is then not planned from);
+`sweeping: none` is the agent above, unchanged.
 """
 
 from dataclasses import replace
