@@ -13,6 +13,7 @@ from runner.agents.linear_kernels import (
     STATE,
     VAL,
     W,
+    acting_values,
     copy_into,
     epsilon_greedy_values,
     largest,
@@ -49,7 +50,7 @@ LINEAR_SCHEMA = (LINEAR_ALPHA, LINEAR_GAMMA, EPSILON, FEATURES_PARAM)
 @njit(cache=True, **NO_REFCOUNTS)
 def linear_q_act(arrays, hyper, state, rng):
     """Epsilon-greedy on the linear action values."""
-    return epsilon_greedy_values(observation_values(arrays, state, 0), hyper[_EPSILON], rng)
+    return epsilon_greedy_values(acting_values(arrays, state), hyper[_EPSILON], rng)
 
 
 @njit(cache=True, **NO_REFCOUNTS)

@@ -16,6 +16,7 @@ from runner.streams import below, uniform
 __all__ = [
     "LINEAR_ARRAYS",
     "STATE",
+    "acting_values",
     "action_values",
     "copy_into",
     "epsilon_greedy_values",
@@ -141,6 +142,16 @@ def observation_values(arrays, obs, slot):
     n = features_into(arrays, obs, slot)
     action_values(arrays[W], arrays[IDX][slot], arrays[VAL][slot], n, arrays[Q])
     return arrays[Q]
+
+
+@njit(cache=True, inline="always")
+def acting_values(arrays, obs):
+    """Action values of the observation acted on (into the scratch vector, returned): from the cached features
+    when it is the last next observation (the usual case within an episode), else computed in scratch row 0."""
+    if arrays[CACHED][0] == 1 and same_observation(arrays[CACHED_OBS], obs):
+        action_values(arrays[W], arrays[IDX][STATE], arrays[VAL][STATE], arrays[INTS][6], arrays[Q])
+        return arrays[Q]
+    return observation_values(arrays, obs, 0)
 
 
 @njit(cache=True, **NO_REFCOUNTS)
