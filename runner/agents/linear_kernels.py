@@ -147,7 +147,8 @@ def observation_values(arrays, obs, slot):
 @njit(cache=True, inline="always")
 def acting_values(arrays, obs):
     """Action values of the observation acted on (into the scratch vector, returned): from the cached features
-    when it is the last next observation (the usual case within an episode), else computed in scratch row 0."""
+    when it is the last next observation (the usual case within an episode; the same reuse as `state_features`),
+    else computed in scratch row 0."""
     if arrays[CACHED][0] == 1 and same_observation(arrays[CACHED_OBS], obs):
         action_values(arrays[W], arrays[IDX][STATE], arrays[VAL][STATE], arrays[INTS][6], arrays[Q])
         return arrays[Q]
