@@ -4,6 +4,10 @@ implementation (gymnasium's `env.step`, numpy tile coding, numpy updates) in the
 planning updates per second in the same compiled loop (uniform planning and prioritized sweeping); and what
 measuring linear Dyna's held-out model errors costs at one evaluation point (it happens only there, never per step).
 
+The plain implementation is the one a careful user would write without a compiler: the tile offsets computed once,
+each step's tiles by a few whole-array numpy operations, action values by fancy indexing, one Sarsa update, first
+index on ties; it is checked to pick the same tiles as the compiled kernel before anything is timed.
+
 Targets (issue 12): at least 1 M real steps per second per core on the compiled path, and at least 30x the plain
 Python loop. Each figure is the best of 3 repetitions after a warm-up (compile time never counted), timed by this
 process's CPU time (`time.process_time`, i.e. per core; the process pins itself to one CPU). On a machine shared
@@ -30,6 +34,7 @@ except ImportError:  # imported as part of a package rather than run as a script
 from runner.agents import make_agent
 from runner.compiled_box_trial import BoxDynamics, run_box_kind_trial
 from runner.envs.dynamics import dynamics_spec
+from runner.features import build_feature_map, feature_values, resolve_features
 from runner.metrics import METRIC_COLUMNS
 from runner.models.held_out import collect_held_out
 from runner.models.held_out_bins import held_out_arrays
@@ -76,13 +81,29 @@ def _model_error_cpu_seconds(params: dict, seed: int) -> float:
     return (time.process_time() - start) / 10
 
 
-def _plain_tiles(obs: np.ndarray) -> np.ndarray:
-    """The same tile coding in numpy: one active tile per tiling (asymmetric offsets)."""
+_PLAIN_SHIFTS = ((np.arange(8)[:, None] * (2 * np.arange(2) + 1)) % 8) / 8
+_PLAIN_BASE = np.arange(8) * 81
+"""The plain tile coder's offsets (tiling t shifted by ((t * (2d + 1)) mod 8) / 8 of a tile along dimension d) and
+first index of each tiling, computed once as any tile coder would."""
+
+
+def plain_tiles(obs: np.ndarray) -> np.ndarray:
+    """The same tile coding in numpy: one active tile per tiling (asymmetric offsets), 9 x 9 tiles per tiling."""
     s = np.clip((obs - LOW) / (HIGH - LOW), 0.0, 1.0)
-    t = np.arange(8)[:, None]
-    shift = ((t * (2 * np.arange(2) + 1)) % 8) / 8
-    coords = np.floor(s * 8 + shift).astype(np.int64)
-    return t[:, 0] * 81 + coords[:, 0] * 9 + coords[:, 1]
+    coords = (s * 8 + _PLAIN_SHIFTS).astype(np.int64)  # non-negative: truncation floors
+    return _PLAIN_BASE + coords[:, 0] * 9 + coords[:, 1]
+
+
+def _same_tiles(seed: int, n: int = 10_000) -> bool:
+    """Whether the plain tile coder picks the compiled kernel's tiles on n observations in and around the bounds."""
+    fmap = build_feature_map(resolve_features(TILES), LOW, HIGH)
+    idx, val = np.zeros(8, dtype=np.int64), np.zeros(8)
+    span = HIGH - LOW
+    for obs in np.random.default_rng(seed).uniform(LOW - 0.05 * span, HIGH + 0.05 * span, size=(n, 2)):
+        feature_values(obs, fmap, idx, val)
+        if not np.array_equal(idx, plain_tiles(obs)):
+            return False
+    return True
 
 
 def _plain_python_cpu_seconds(steps: int, seed: int) -> float:
@@ -91,19 +112,19 @@ def _plain_python_cpu_seconds(steps: int, seed: int) -> float:
     rng = np.random.default_rng(seed)
     w = np.zeros((3, 8 * 81))
     obs, _ = env.reset(seed=seed)
-    tiles = _plain_tiles(obs)
+    tiles = plain_tiles(obs)
     action = int(np.argmax(w[:, tiles].sum(axis=1)))
     start = time.process_time()
     for _ in range(steps):
         nxt, reward, terminated, truncated, _ = env.step(action)
-        next_tiles = _plain_tiles(nxt)
+        next_tiles = plain_tiles(nxt)
         q_next = w[:, next_tiles].sum(axis=1)
         following = int(rng.integers(3)) if rng.random() < 0.1 else int(np.argmax(q_next))
         target = reward if terminated else reward + q_next[following]
         w[action, tiles] += 0.5 / 8 * (target - w[action, tiles].sum())
         if terminated or truncated:
             nxt, _ = env.reset()
-            next_tiles = _plain_tiles(nxt)
+            next_tiles = plain_tiles(nxt)
             following = int(np.argmax(w[:, next_tiles].sum(axis=1)))
         tiles, action = next_tiles, following
     seconds = time.process_time() - start
@@ -119,6 +140,7 @@ def main(argv: list[str] | None = None) -> int:
     scale = 10 if args.quick else 1
     compiled_steps, plain_steps, dyna_steps = 2_000_000 // scale, 40_000 // scale, 100_000 // scale
     print(f"pinning: {pin_to_one_core()}; CPU: {cpu_model()}")
+    print(f"plain tile coding picks the compiled kernel's tiles: {'yes' if _same_tiles(args.seed) else 'NO'}")
     before = CpuSnapshot.take()
     _compiled_cpu_seconds("linear_sarsa", PARAMS, 1000, args.seed)
     dyna = {**PARAMS, "planning_steps": 10, "features": TILES}

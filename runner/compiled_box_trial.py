@@ -20,6 +20,7 @@ import gymnasium as gym
 import numpy as np
 from numba import literally, njit, typeof, types
 
+from runner.agents.linear_kernels import copy_into
 from runner.clock import cpu_clock, wall_clock
 from runner.compiled_dynamics_trial import _time_limit
 from runner.compiled_trial import agent_act, agent_greedy, agent_observe
@@ -153,7 +154,7 @@ def run_box_trial(
             episode_return += reward
             earned += reward
             episode_length += 1
-            obs[:] = next_obs
+            copy_into(obs, next_obs)
             if done or episode_length >= step_limit:
                 episode_returns[n_episodes] = episode_return
                 episode_lengths[n_episodes] = episode_length

@@ -72,6 +72,44 @@ def test_shared_tiles_fall_with_distance():
         assert np.allclose(shared, 8 * (1 - fractions), atol=0.5)
 
 
+def _numpy_tile_coords(obs, tilings, tiles, low, high):
+    """Tile coordinates of every tiling computed directly in numpy (shape (tilings, dims)): the scaled input plus
+    the asymmetric offsets ((t * (2d + 1)) mod tilings) / tilings of a tile (section 9.5.4), floored."""
+    s = np.clip((obs - low) / (high - low), 0.0, 1.0)
+    t, d = np.arange(tilings)[:, None], np.arange(len(obs))[None, :]
+    return np.floor(s * tiles + ((t * (2 * d + 1)) % tilings) / tilings).astype(np.int64)
+
+
+def test_tile_indices_equal_a_direct_numpy_computation():
+    """Unhashed, tiling t's tile is t * (tiles + 1)**dims plus its coordinates read as digits in base tiles + 1;
+    on 2 and 3 dimensions, inside and outside the bounds and exactly on tile edges."""
+    rng = np.random.default_rng(5)
+    for tilings, tiles, low, high in ((8, 8, LOW, HIGH), (5, 4, -np.ones(3), np.array([1.0, 2.0, 3.0]))):
+        fmap = _tiles(tilings, tiles, low=low, high=high)
+        edges = low + (high - low) * rng.integers(0, tiles + 1, size=(50, len(low))) / tiles
+        for obs in np.vstack([rng.uniform(low - 0.2, high + 0.2, size=(300, len(low))), edges]):
+            coords = _numpy_tile_coords(obs, tilings, tiles, low, high)
+            digits = (tiles + 1) ** np.arange(len(low))[::-1]
+            expected = np.arange(tilings) * (tiles + 1) ** len(low) + coords @ digits
+            assert np.array_equal(_active(fmap, obs)[0], expected)
+
+
+def test_hashed_tile_indices_are_fnv_1a_of_the_tiling_and_coordinates():
+    """Hashed, tiling t's index is FNV-1a (64-bit offset basis and prime, common practice) over t and then each
+    coordinate, xor before multiply, modulo hash_size: computed here with Python integers."""
+    offset, prime, mask = 14695981039346656037, 1099511628211, (1 << 64) - 1
+    fmap = _tiles(tilings=4, tiles=10, hash_size=97, low=np.zeros(3), high=np.ones(3))
+    rng = np.random.default_rng(6)
+    for obs in rng.uniform(-0.1, 1.1, size=(200, 3)):
+        expected = []
+        for t, coords in enumerate(_numpy_tile_coords(obs, 4, 10, np.zeros(3), np.ones(3))):
+            h = ((offset ^ t) * prime) & mask
+            for c in coords:
+                h = ((h ^ int(c)) * prime) & mask
+            expected.append(h % 97)
+        assert _active(fmap, obs)[0].tolist() == expected
+
+
 def test_hashing_keeps_one_index_per_tiling_inside_the_table():
     fmap = _tiles(tilings=4, tiles=10, hash_size=64, low=np.zeros(3), high=np.ones(3))
     assert fmap[0][5] == 64

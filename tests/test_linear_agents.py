@@ -7,7 +7,7 @@ from numba import njit
 
 from runner.agents import make_agent
 from runner.agents.linear import linear_sarsa_act, linear_sarsa_observe
-from runner.agents.linear_kernels import W
+from runner.agents.linear_kernels import W, largest
 from runner.envs.dynamics.mountain_car import default_params, observation, reset, step
 from runner.streams import new_stream
 from runner.trial import run_trial
@@ -46,6 +46,30 @@ def test_q_learning_update_is_the_normalised_semi_gradient_step():
     phi_end = expected[0] @ phi2
     expected[0] += 0.3 / (phi2 @ phi2) * (5.0 - phi_end) * phi2
     assert np.allclose(agent.arrays_[W], expected, rtol=0, atol=1e-12)
+
+
+@njit
+def _numba_max(values):
+    return np.max(values)
+
+
+def test_largest_is_np_max_to_the_bit():
+    """`largest` stands in for np.max in the kernels compiled without reference counts (np.max allocates there):
+    the same result as numba's np.max, to the bit (signed zeros: the first of equal values; the first NaN wins),
+    and the same value as numpy.max."""
+    rng = np.random.default_rng(4)
+    cases = [rng.normal(size=n) for n in (1, 3, 7)] + [
+        np.array([0.0, -0.0]),
+        np.array([-0.0, 0.0]),
+        np.array([1.0, np.nan, 2.0]),
+        np.array([np.nan, -np.nan, 1.0]),
+        np.array([-np.inf, -np.inf]),
+        np.array([2.0, 5.0, 5.0]),
+    ]
+    for q in cases:
+        got = largest(q)
+        assert np.float64(got).tobytes() == np.float64(_numba_max(q)).tobytes()
+        assert np.array_equal(got, np.max(q), equal_nan=True)
 
 
 def test_sarsa_takes_the_action_it_backed_up():

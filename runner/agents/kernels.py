@@ -8,7 +8,26 @@ from numba import njit
 
 from runner.streams import below, uniform
 
-__all__ = ["argmax_random_tie", "epsilon_greedy", "greedy_action", "q_learning_update", "q_table_greedy"]
+NO_REFCOUNTS = {"_nrt": False}
+"""numba options of kernels on the per-step path: compiled without numba's reference counting (NRT).
+
+With it, a compiled function takes a reference to each array it is passed (each array of a tuple too) on entry and
+drops it on exit, each an atomic instruction that numba's pruning pass leaves in place across calls (numba issue
+#2345); with the linear agents' tuples of 11-13 arrays that was most of a step: linear Sarsa on Mountain Car went
+from about 1.4 us to about 0.12 us a step without them (measured). numba passes the option down to the functions
+such a kernel calls (those that set none of their own), so a kernel with it, and all it calls, may not allocate
+(numba refuses to compile that) and may not return an array (numba accepts returning an argument, which the
+caller would then free early): they return numbers or nothing. Values are unchanged: only memory bookkeeping goes.
+"""
+
+__all__ = [
+    "NO_REFCOUNTS",
+    "argmax_random_tie",
+    "epsilon_greedy",
+    "greedy_action",
+    "q_learning_update",
+    "q_table_greedy",
+]
 
 
 @njit(cache=True)

@@ -6,13 +6,17 @@ from numba import njit
 
 from runner.agents.base import TabularAgent
 from runner.agents.common import EPSILON, model_free_counter_problems
+from runner.agents.kernels import NO_REFCOUNTS
 from runner.agents.linear_kernels import (
     IDX,
     LINEAR_ARRAYS,
     STATE,
     VAL,
     W,
+    acting_values,
+    copy_into,
     epsilon_greedy_values,
+    largest,
     linear_arrays,
     linear_greedy,
     observation_values,
@@ -43,32 +47,32 @@ LINEAR_GAMMA = Param("gamma", "float", 0.99, "discount factor", low=0.0, high=1.
 LINEAR_SCHEMA = (LINEAR_ALPHA, LINEAR_GAMMA, EPSILON, FEATURES_PARAM)
 
 
-@njit(cache=True)
+@njit(cache=True, **NO_REFCOUNTS)
 def linear_q_act(arrays, hyper, state, rng):
     """Epsilon-greedy on the linear action values."""
-    return epsilon_greedy_values(observation_values(arrays, state, 0), hyper[_EPSILON], rng)
+    return epsilon_greedy_values(acting_values(arrays, state), hyper[_EPSILON], rng)
 
 
-@njit(cache=True)
+@njit(cache=True, **NO_REFCOUNTS)
 def linear_q_update(arrays, hyper, counters, state, action, reward, next_state, terminated):
     """One semi-gradient Q-learning update: towards r + gamma max_a w[a] . phi(s') (r alone when terminated).
     Leaves phi(s) in row `STATE` and phi(s') in row 1 (when not terminated) for model updates."""
     target = reward
     if not terminated:
-        target += hyper[_GAMMA] * np.max(observation_values(arrays, next_state, 1))
+        target += hyper[_GAMMA] * largest(observation_values(arrays, next_state, 1))
     n = state_features(arrays, state)
     semi_gradient_update(arrays[W], action, arrays[IDX][STATE], arrays[VAL][STATE], n, target, hyper[_ALPHA])
     counters[0] += 1
 
 
-@njit(cache=True)
+@njit(cache=True, **NO_REFCOUNTS)
 def linear_q_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
     """Semi-gradient Q-learning from one real transition."""
     linear_q_update(arrays, hyper, counters, state, action, reward, next_state, terminated)
     remember_next(arrays, next_state, terminated)
 
 
-@njit(cache=True)
+@njit(cache=True, **NO_REFCOUNTS)
 def linear_sarsa_act(arrays, hyper, state, rng):
     """The action chosen for this observation by the last update, else a fresh epsilon-greedy one."""
     pending = arrays[_PENDING]
@@ -78,7 +82,7 @@ def linear_sarsa_act(arrays, hyper, state, rng):
     return linear_q_act(arrays, hyper, state, rng)
 
 
-@njit(cache=True)
+@njit(cache=True, **NO_REFCOUNTS)
 def linear_sarsa_observe(arrays, hyper, counters, state, action, reward, next_state, terminated, rng):
     """Choose the next action now and update towards its value: semi-gradient Sarsa (section 10.1)."""
     target = reward
@@ -90,7 +94,7 @@ def linear_sarsa_observe(arrays, hyper, counters, state, action, reward, next_st
         target += hyper[_GAMMA] * q[following]
         pending[0] = 1
         pending[1] = following
-        arrays[_PENDING_OBS][:] = next_state
+        copy_into(arrays[_PENDING_OBS], next_state)
     n = state_features(arrays, state)
     semi_gradient_update(arrays[W], action, arrays[IDX][STATE], arrays[VAL][STATE], n, target, hyper[_ALPHA])
     counters[0] += 1

@@ -9,15 +9,18 @@ observations, and a scratch vector of action values. Kind-specific arrays follow
 import numpy as np
 from numba import njit
 
-from runner.agents.kernels import argmax_random_tie
+from runner.agents.kernels import NO_REFCOUNTS, argmax_random_tie
 from runner.features.kernels import feature_values
 from runner.streams import below, uniform
 
 __all__ = [
     "LINEAR_ARRAYS",
     "STATE",
+    "acting_values",
     "action_values",
+    "copy_into",
     "epsilon_greedy_values",
+    "largest",
     "linear_arrays",
     "linear_greedy",
     "observation_values",
@@ -78,14 +81,23 @@ def same_observation(a, b):
 
 
 @njit(cache=True, inline="always")
+def copy_into(dst, src):
+    """dst[:] = src without the view and broadcasting machinery of a slice assignment."""
+    for i in range(dst.shape[0]):
+        dst[i] = src[i]
+
+
+@njit(cache=True, inline="always")
 def remember_next(arrays, next_state, terminated):
     """Keep the next observation's features (row 1) in row `STATE` for the next update (not after an end)."""
     if terminated:
         arrays[CACHED][0] = 0
         return
-    arrays[IDX][STATE][:] = arrays[IDX][1]
-    arrays[VAL][STATE][:] = arrays[VAL][1]
-    arrays[CACHED_OBS][:] = next_state
+    idx, val = arrays[IDX], arrays[VAL]
+    for i in range(idx.shape[1]):
+        idx[STATE, i] = idx[1, i]
+        val[STATE, i] = val[1, i]
+    copy_into(arrays[CACHED_OBS], next_state)
     arrays[CACHED][0] = 1
 
 
@@ -97,6 +109,21 @@ def remember_visit(memory, memory_action, meta, state, action):
     memory_action[meta[1]] = action
     meta[1] = (meta[1] + 1) % memory.shape[0]
     meta[0] = min(meta[0] + 1, memory.shape[0])
+
+
+@njit(cache=True, inline="always")
+def largest(values):
+    """The largest value, or the first NaN met (as numba's np.max; without the iterator it allocates)."""
+    best = values[0]
+    if np.isnan(best):
+        return best
+    for i in range(1, values.shape[0]):
+        v = values[i]
+        if np.isnan(v):
+            return v
+        if v > best:
+            best = v
+    return best
 
 
 @njit(cache=True, inline="always")
@@ -117,7 +144,18 @@ def observation_values(arrays, obs, slot):
     return arrays[Q]
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
+def acting_values(arrays, obs):
+    """Action values of the observation acted on (into the scratch vector, returned): from the cached features
+    when it is the last next observation (the usual case within an episode; the same reuse as `state_features`),
+    else computed in scratch row 0."""
+    if arrays[CACHED][0] == 1 and same_observation(arrays[CACHED_OBS], obs):
+        action_values(arrays[W], arrays[IDX][STATE], arrays[VAL][STATE], arrays[INTS][6], arrays[Q])
+        return arrays[Q]
+    return observation_values(arrays, obs, 0)
+
+
+@njit(cache=True, **NO_REFCOUNTS)
 def epsilon_greedy_values(q, epsilon, rng):
     """With probability epsilon a uniform action, else a greedy one with random ties (draws as the tabular
     `epsilon_greedy` does)."""
@@ -126,13 +164,13 @@ def epsilon_greedy_values(q, epsilon, rng):
     return argmax_random_tie(q, rng)
 
 
-@njit(cache=True)
+@njit(cache=True, **NO_REFCOUNTS)
 def linear_greedy(arrays, hyper, state, rng):
     """The evaluation kernel of every linear agent: greedy on the linear action values, ties from `rng`."""
     return argmax_random_tie(observation_values(arrays, state, 0), rng)
 
 
-@njit(cache=True)
+@njit(cache=True, **NO_REFCOUNTS)
 def semi_gradient_update(w, action, idx, val, n, target, alpha):
     """w[action] += alpha / (phi . phi) * (target - w[action] . phi) * phi: the semi-gradient step with the step
     size divided by the squared feature norm (the number of tilings for tile coding, as Sutton & Barto 2018,
