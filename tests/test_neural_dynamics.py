@@ -40,10 +40,8 @@ def _visited(env_id: str, rng: np.random.Generator) -> tuple[np.ndarray, ...]:
     pumping = False
     for _ in range(STEPS):
         state = np.array(env.state, dtype=np.float64)
-        if pumping and rng.random() < 0.9:
-            action = _pump(env_id, state)
-        else:
-            action = int(rng.integers(env.action_space.n))
+        pump = pumping and rng.random() < 0.9
+        action = _pump(env_id, state) if pump else int(rng.integers(env.action_space.n))
         obs, reward, terminated, _, _ = env.step(action)
         states.append(state)
         actions.append(action)
