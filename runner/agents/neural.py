@@ -152,6 +152,10 @@ class NeuralAgent:
         """Negative counters; kinds add their own accounting."""
         return [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
 
+    def has_bin_model(self) -> bool:
+        """Neural kinds never predict on a grid of bins (they take the box itself)."""
+        return False
+
     def model_error(self, table: tuple) -> tuple[float, float]:
         """Neural models are not compared with a true table."""
         return float("nan"), float("nan")
