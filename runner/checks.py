@@ -292,9 +292,11 @@ _AGENT_CHECKS: tuple[Callable[[type[AnyAgent], dict], None], ...] = (
 
 
 def agent_checks(kind: str, params: dict | None = None) -> Iterator[tuple[str, Callable[[], None]]]:
-    """(check name, zero-argument callable) for every contract check of an agent kind."""
+    """(check name, zero-argument callable) for every contract check of an agent kind. Without `params`, a kind's
+    `check_params` (neural kinds: a smaller network that learns the checks' short tasks) or its defaults."""
     cls = agent_class(kind)
-    full = cls(**(params or {})).get_params()
+    given = params if params is not None else dict(getattr(cls, "check_params", {}))
+    full = cls(**given).get_params()
     for check in _AGENT_CHECKS:
         yield check.__name__.removeprefix("_check_"), lambda check=check: check(cls, full)
 

@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Any
 
 from runner.agents import agent_class
+from runner.agents.neural import neural_requirement
 from runner.envs.bins import BinsError, resolve_bins
 from runner.envs.grid import GridMapError, parse_grid_map
 from runner.envs.sources import GRID_SCHEMA, SOURCES, build_env, environment_tags, gym_reward_threshold, gym_spec
@@ -623,6 +624,9 @@ def _agent(src: SourceText, path: KeyPath, value: Any, room: int, env_labels: li
         cls = agent_class(kind)
     except (UnknownKindError, TypeError) as err:
         raise src.error((*path, "kind"), str(err)) from None
+    missing = neural_requirement(kind) if cls.tags.engine == "jax" else None
+    if missing is not None:
+        raise src.error((*path, "kind"), missing)
     params = data.get("params")
     params = {} if params is None else _mapping(src, (*path, "params"), params)
     schema = {p.name: p for p in cls.schema}

@@ -8,7 +8,21 @@ from importlib import metadata
 
 __all__ = ["platform_text", "versions"]
 
-_PACKAGES = ("stepmeter", "numpy", "numba", "gymnasium", "pandas", "joblib", "scipy", "matplotlib", "pyyaml")
+_PACKAGES = (
+    "stepmeter",
+    "numpy",
+    "numba",
+    "gymnasium",
+    "pandas",
+    "joblib",
+    "scipy",
+    "matplotlib",
+    "pyyaml",
+    "jax",
+    "jaxlib",
+    "optax",
+)
+"""Recorded with every run; the neural extra's packages read "not installed" without it."""
 
 
 def versions() -> dict[str, str]:

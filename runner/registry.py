@@ -51,12 +51,12 @@ def _one_line(text: str) -> str:
     return " ".join(str(text).split())
 
 
-def import_entry_point(entry_point: str, base: type | None = None, what: str = "") -> Any:
+def import_entry_point(entry_point: str, base: type | tuple[type, ...] | None = None, what: str = "") -> Any:
     """Import "package.module:Name" and return the object; raise UnknownKindError when it is not there.
 
-    With `base`, the object must be a class derived from it (checked before anything is called), so an entry
-    point can never name a function such as `os:system`. Any error raised while importing the module becomes
-    one line.
+    With `base` (a class or a tuple of classes), the object must be a class derived from it (checked before
+    anything is called), so an entry point can never name a function such as `os:system`. Any error raised while
+    importing the module becomes one line.
     """
     module_name, sep, attr = entry_point.partition(":")
     if not sep or not module_name or not attr:
@@ -76,19 +76,20 @@ def import_entry_point(entry_point: str, base: type | None = None, what: str = "
         raise UnknownKindError(f"module {module_name!r} has no {attr!r} (entry point {entry_point!r})") from None
     if base is not None and not (isinstance(found, type) and issubclass(found, base)):
         shown = "a class" if isinstance(found, type) else f"a {type(found).__name__}"
-        wanted = what or f"{base.__module__}.{base.__qualname__}"
+        bases = base if isinstance(base, tuple) else (base,)
+        wanted = what or " or ".join(f"{b.__module__}.{b.__qualname__}" for b in bases)
         raise UnknownKindError(f"entry point {entry_point!r} names {shown}, not a subclass of {wanted}")
     return found
 
 
 @dataclass
 class Registry:
-    """Named entry points of one kind of thing (agent kinds, environment sources); `base` is the class every
-    entry must derive from."""
+    """Named entry points of one kind of thing (agent kinds, environment sources); `base` is the class (or tuple of
+    classes) every entry must derive from."""
 
     what: str
     entries: dict[str, str]
-    base: type | None = None
+    base: type | tuple[type, ...] | None = None
     base_name: str = ""
 
     def names(self) -> list[str]:

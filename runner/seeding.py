@@ -11,7 +11,7 @@ import numpy as np
 
 from runner.streams import new_stream
 
-__all__ = ["TrialStreams", "held_out_sequence", "trial_streams"]
+__all__ = ["TrialStreams", "held_out_sequence", "jax_key_data", "trial_streams"]
 
 
 @dataclass(frozen=True)
@@ -47,3 +47,15 @@ def held_out_sequence(seed: int) -> np.random.SeedSequence:
     """The stream of a trial's held-out real transitions (`runner.models.held_out`): the trial seed's fourth
     child, independent of the three `trial_streams` spawns and the same for every agent of the seed."""
     return np.random.SeedSequence(seed, spawn_key=(3,))
+
+
+def jax_key_data(source: int | np.random.SeedSequence | np.ndarray) -> np.ndarray:
+    """Two uint32 words for `jax.random.wrap_key_data` (a threefry key): from a seed, a SeedSequence, or a compiled
+    stream's state (`runner.streams`), always through a SeedSequence."""
+    if isinstance(source, np.random.SeedSequence):
+        sequence = source
+    elif isinstance(source, np.ndarray):
+        sequence = np.random.SeedSequence([int(word) for word in source.ravel()])
+    else:
+        sequence = np.random.SeedSequence(int(source))
+    return sequence.generate_state(2, dtype=np.uint32)

@@ -12,11 +12,12 @@ from typing import Any
 
 import gymnasium as gym
 
-__all__ = ["SPACE_KINDS", "AgentTags", "EnvTags", "pairing_problem", "seen_env_spec", "space_kind"]
+__all__ = ["ENGINES", "SPACE_KINDS", "AgentTags", "EnvTags", "pairing_problem", "seen_env_spec", "space_kind"]
 
 SPACE_KINDS = ("discrete", "box")
 _NEEDS = ("table", "rules")
 _MODELS = ("none", "table", "function")
+ENGINES = ("numba", "jax")
 
 
 @dataclass(frozen=True)
@@ -26,7 +27,9 @@ class AgentTags:
     `observations` and `actions` are the space kinds it accepts (`discrete` and/or `box`); `needs` lists what it
     must be given beside observations (`table`: the environment's true transition table; `rules`: a game's
     rules); `learned_model` is the model it learns (`none`, `table` of counts or outcomes, or a `function`);
-    `compiled` says whether its acting and learning are compiled kernels that the compiled trial loop can call.
+    `compiled` says whether whole trials of it run in compiled code, and `engine` in whose: `numba` kernels that
+    the numba trial loops call (tabular and linear kinds), or `jax` for neural kinds, whose trials run as their own
+    compiled JAX loops on environments with JAX dynamics (`runner.neural`) and which need the `neural` extra.
     The planning budget is not a tag: it is the role of a parameter in the kind's schema (`runner.params`).
     """
 
@@ -35,6 +38,7 @@ class AgentTags:
     needs: tuple[str, ...] = ()
     learned_model: str = "none"
     compiled: bool = True
+    engine: str = "numba"
 
     def __post_init__(self) -> None:
         for name, values, allowed in (
@@ -45,16 +49,19 @@ class AgentTags:
             bad = [v for v in values if v not in allowed]
             if bad or (name != "needs" and not values):
                 raise ValueError(f"AgentTags.{name} must be a non-empty tuple of {allowed}, got {values!r}")
+        if self.engine not in ENGINES:
+            raise ValueError(f"AgentTags.engine must be one of {ENGINES}, got {self.engine!r}")
         if self.learned_model not in _MODELS:
             raise ValueError(f"AgentTags.learned_model must be one of {_MODELS}, got {self.learned_model!r}")
 
     def describe(self) -> str:
         """One line for `stepmeter list`."""
-        needs = ", ".join(self.needs) or "nothing else"
+        extra = ['the neural extra (JAX and optax: pip install "stepmeter[neural]")'] if self.engine == "jax" else []
+        needs = ", ".join([*self.needs, *extra]) or "nothing else"
+        compiled = ("yes (JAX)" if self.engine == "jax" else "yes") if self.compiled else "no"
         return (
             f"observations: {' or '.join(self.observations)}; actions: {' or '.join(self.actions)}; "
-            f"needs: {needs}; learned model: {self.learned_model}; compiled kernels: "
-            f"{'yes' if self.compiled else 'no'}"
+            f"needs: {needs}; learned model: {self.learned_model}; compiled kernels: {compiled}"
         )
 
 

@@ -22,7 +22,15 @@ from typing import Any
 import gymnasium as gym
 import numpy as np
 
-from runner.agents import COUNTER_NAMES, OwnAgent, TabularAgent, agent_class, make_agent, observation_bounds
+from runner.agents import (
+    COUNTER_NAMES,
+    NeuralAgent,
+    OwnAgent,
+    TabularAgent,
+    agent_class,
+    make_agent,
+    observation_bounds,
+)
 from runner.compiled_box_trial import BoxDynamics, box_dynamics, run_box_kind_trial
 from runner.compiled_dynamics_trial import CompiledDynamics, compiled_dynamics, run_dynamics_kind_trial
 from runner.compiled_trial import run_kind_trial
@@ -32,6 +40,7 @@ from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.metrics import METRIC_COLUMNS
 from runner.models.held_out import HeldOut, collect_held_out, model_errors
 from runner.models.held_out_bins import bin_arrays, bin_predictor, held_out_arrays
+from runner.neural import JAX_DYNAMICS_IDS
 from runner.seeding import TrialStreams, held_out_sequence, trial_streams
 from runner.streams import new_stream
 from runner.tags import EnvTags
@@ -71,7 +80,7 @@ def _reader(kind: str):
 
 
 def evaluate_greedy(
-    agent: TabularAgent | OwnAgent,
+    agent: TabularAgent | NeuralAgent | OwnAgent,
     env: gym.Env,
     episodes: int,
     step_cap: int,
@@ -151,6 +160,13 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
     compiled_agent = tags.compiled
     box = facts.box is not None and "box" in tags.observations
     compiled_env = facts.table is not None or facts.dynamics is not None or box
+    if tags.engine == "jax":
+        compiled_env = box and spec["env"].get("id") in JAX_DYNAMICS_IDS
+        if path == "compiled" and not compiled_env:
+            raise EnvironmentSourceError(
+                f"the compiled path of neural kinds needs an environment with JAX dynamics seen as a box "
+                f"({', '.join(JAX_DYNAMICS_IDS)}, without bins); {facts.not_box_reason or 'this one has none'}"
+            )
     if path == "compiled" and not compiled_env:
         raise EnvironmentSourceError(
             "the compiled path needs a table-backed environment or compiled dynamics seen through bins (or seen "
@@ -183,7 +199,7 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     facts = _env_facts(json.dumps(spec["env"], sort_keys=True))
     streams = trial_streams(spec["seed"])
     agent = make_agent(spec["agent"]["kind"], spec["agent"]["params"])
-    if isinstance(agent, OwnAgent):
+    if isinstance(agent, (OwnAgent, NeuralAgent)):
         env = build_env(spec["env"])
         agent.setup(env.observation_space, env.action_space, streams.agent)
         env.close()
@@ -198,6 +214,10 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
         )
     if chosen == "gymnasium":
         return _run_gymnasium(spec, agent, streams, time_limit, facts)
+    if isinstance(agent, NeuralAgent):
+        from runner.neural.trial import run_neural_trial
+
+        return run_neural_trial(spec, facts.box, agent, streams, time_limit)
     return _run_compiled(spec, facts, agent, streams, time_limit)
 
 
@@ -247,7 +267,9 @@ def _run_compiled(
     )
 
 
-def _predictor(agent: TabularAgent | OwnAgent, facts: _EnvFacts) -> Callable[[np.ndarray, Any], Any] | None:
+def _predictor(
+    agent: TabularAgent | NeuralAgent | OwnAgent, facts: _EnvFacts
+) -> Callable[[np.ndarray, Any], Any] | None:
     """The agent's `predict(observation, action) -> (next observation, reward)` that the trial measures on
     held-out real transitions, or None: on box observations an own agent with `predict` or a kind whose tags say
     `learned_model="function"`; on bins a kind with a learned table model (the expected bin centre,
@@ -276,7 +298,11 @@ def _held_out(spec: dict[str, Any]) -> HeldOut:
 
 
 def _run_gymnasium(
-    spec: dict[str, Any], agent: TabularAgent | OwnAgent, streams: TrialStreams, time_limit: float, facts: _EnvFacts
+    spec: dict[str, Any],
+    agent: TabularAgent | NeuralAgent | OwnAgent,
+    streams: TrialStreams,
+    time_limit: float,
+    facts: _EnvFacts,
 ) -> TrialResult:
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])

@@ -8,6 +8,7 @@ import gymnasium as gym
 import numpy as np
 
 from runner.agents.base import COUNTER_NAMES, TabularAgent
+from runner.agents.neural import NeuralAgent
 from runner.agents.own import OwnAgent, own_agent_class
 from runner.errors import EnvironmentSourceError
 from runner.registry import Registry, import_entry_point
@@ -16,6 +17,7 @@ from runner.tags import space_kind
 __all__ = [
     "AGENTS",
     "COUNTER_NAMES",
+    "NeuralAgent",
     "OwnAgent",
     "TabularAgent",
     "agent_class",
@@ -45,25 +47,28 @@ AGENTS = Registry(
         "linear_replay_q_learning": "runner.agents.linear_replay:LinearReplayQLearning",
         "linear_dyna": "runner.agents.linear_dyna:LinearDyna",
         "linear_gaussian": "runner.agents.linear_gaussian:LinearGaussian",
+        "q_network": "runner.agents.q_network:QNetwork",
     },
-    base=TabularAgent,
-    base_name="runner.agents.TabularAgent",
+    base=(TabularAgent, NeuralAgent),
+    base_name="runner.agents.TabularAgent or runner.agents.NeuralAgent",
 )
+"""Every built-in kind: `TabularAgent` subclasses (numba kernels; the tabular and linear families) and
+`NeuralAgent` subclasses (JAX; they need the `neural` extra only when a trial runs them)."""
 
 
-def agent_class(kind: str) -> type[TabularAgent] | type[OwnAgent]:
-    """The class of a registered kind, or of a 'package.module:Class' entry point: a `TabularAgent` subclass, or
-    a plain class following the own-agent protocol (`runner.agents.own`), wrapped. Anything else (a function, a
-    class of another kind) is refused before it is called."""
+def agent_class(kind: str) -> type[TabularAgent] | type[NeuralAgent] | type[OwnAgent]:
+    """The class of a registered kind, or of a 'package.module:Class' entry point: a `TabularAgent` or
+    `NeuralAgent` subclass, or a plain class following the own-agent protocol (`runner.agents.own`), wrapped.
+    Anything else (a function, a class of another kind) is refused before it is called."""
     if ":" not in kind:
         return AGENTS.load(kind)
     found = import_entry_point(kind)
-    if isinstance(found, type) and issubclass(found, TabularAgent):
+    if isinstance(found, type) and issubclass(found, (TabularAgent, NeuralAgent)):
         return found
     return own_agent_class(found, kind)
 
 
-def make_agent(kind: str, params: dict) -> TabularAgent | OwnAgent:
+def make_agent(kind: str, params: dict) -> TabularAgent | NeuralAgent | OwnAgent:
     """Build an agent from its kind and (already validated) parameters."""
     return agent_class(kind)(**params)
 
@@ -88,11 +93,15 @@ def _sizes(agent: TabularAgent, env: gym.Env) -> tuple[int, int]:
 
 
 def setup_agent(
-    agent: TabularAgent | OwnAgent, env: gym.Env, stream: Any, table: tuple | None = None, rules: tuple | None = None
+    agent: TabularAgent | NeuralAgent | OwnAgent,
+    env: gym.Env,
+    stream: Any,
+    table: tuple | None = None,
+    rules: tuple | None = None,
 ) -> None:
-    """Set an agent up on a built environment: compiled kinds get its sizes (and the table, rules or observation
-    bounds they may use), own agents its spaces."""
-    if isinstance(agent, OwnAgent):
+    """Set an agent up on a built environment: numba kinds get its sizes (and the table, rules or observation
+    bounds they may use), neural and own agents its spaces."""
+    if isinstance(agent, (OwnAgent, NeuralAgent)):
         agent.setup(env.observation_space, env.action_space, stream)
         return
     n_states, n_actions = _sizes(agent, env)

@@ -61,7 +61,7 @@ def why_not_own_agent(cls: Any) -> str | None:
         return "a class without `schema`, a tuple of runner.params.Param"
     if cls.tags.learned_model == "function" and not callable(getattr(cls, "predict", None)):
         return "a class whose tags say it learns a function model but that has no predict(observation, action)"
-    if cls.tags.compiled or cls.tags.needs:
+    if cls.tags.compiled or cls.tags.needs or cls.tags.engine != "numba":
         return "a class whose tags claim compiled kernels, a true table or game rules (own agents have none of them)"
     return None
 

@@ -1,0 +1,161 @@
+"""The contract of neural agent kinds: parameters and tags here, the learning in JAX (`runner.neural`).
+
+A neural kind is a `NeuralAgent` subclass naming its schema, tags (`engine="jax"`) and `core`, the entry point of
+its JAX side: a frozen dataclass built by `core.from_params(params, obs_size, n_actions)` with pure, jitted
+methods `init(key)`, `act(state, obs) -> (state, action)`, `observe(state, obs, action, reward, next_obs,
+terminated) -> state`, `greedy(network, obs) -> action` (on `state.online`) and `counters(state)`. This module
+imports no JAX, so `stepmeter list` and `check` work without the `neural` extra and an experiment naming a neural
+kind without it gets one line saying what to install (`neural_requirement`).
+
+On an environment with JAX dynamics (`runner.neural.JAX_DYNAMICS_IDS`) a trial runs as compiled JAX loops
+(`runner.neural.trial`); elsewhere the same core runs one call per real step through gymnasium (the methods below).
+Every random draw comes from `jax.random` keys derived from the trial's agent stream (`runner.seeding.jax_key_data`),
+and everything runs with 64-bit types enabled (the dynamics are float64; networks stay float32), so the same trial
+gives the same rows bit for bit on the same machine.
+"""
+
+from __future__ import annotations
+
+import importlib.util
+from typing import Any, ClassVar
+
+import gymnasium as gym
+import numpy as np
+
+from runner.agents.base import COUNTER_NAMES
+from runner.errors import EnvironmentSourceError
+from runner.params import Param, resolve_params
+from runner.registry import import_entry_point
+from runner.seeding import jax_key_data
+from runner.tags import AgentTags
+
+__all__ = ["NEURAL_PACKAGES", "MissingNeuralExtra", "NeuralAgent", "neural_requirement"]
+
+NEURAL_PACKAGES = ("jax", "optax")
+"""What the `neural` extra installs (`pip install "stepmeter[neural]"`)."""
+
+
+class MissingNeuralExtra(EnvironmentSourceError):
+    """A neural kind was asked for without JAX or optax installed; the message says what to install."""
+
+
+def _absent(name: str) -> bool:
+    try:
+        return importlib.util.find_spec(name) is None
+    except (ImportError, ValueError):
+        return True
+
+
+def neural_requirement(kind: str) -> str | None:
+    """None when the neural extra is installed; else one sentence saying what `kind` needs and how to install it."""
+    missing = [name for name in NEURAL_PACKAGES if _absent(name)]
+    if not missing:
+        return None
+    return (
+        f"agent kind {kind!r} needs {' and '.join(missing)}, which {'is' if len(missing) == 1 else 'are'} not "
+        'installed: pip install "stepmeter[neural]" (or pip install jax optax)'
+    )
+
+
+class NeuralAgent:
+    """Base class of neural kinds: parameters and tags in Python, acting and learning in JAX."""
+
+    kind: ClassVar[str] = ""
+    summary: ClassVar[str] = ""
+    source: ClassVar[str] = ""
+    schema: ClassVar[tuple[Param, ...]] = ()
+    tags: ClassVar[AgentTags] = AgentTags(observations=("box",), engine="jax")
+    core: ClassVar[str] = ""
+    """'package.module:Class' of the kind's JAX core (imported at setup, never before)."""
+    check_params: ClassVar[dict[str, Any]] = {}
+    """Parameters the contract checks (`runner.checks`) use when given none: their tasks last a few thousand real
+    steps, too short for defaults sized for tens of thousands."""
+
+    def __init__(self, **params: Any) -> None:
+        self._params = resolve_params(self.schema, params)
+
+    def get_params(self) -> dict[str, Any]:
+        """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
+        return dict(self._params)
+
+    @classmethod
+    def needs_rules(cls) -> bool:
+        """Neural kinds never search a game's rules."""
+        return False
+
+    def uses_table(self) -> bool:
+        """Neural kinds never plan on the true table."""
+        return False
+
+    def label_note(self) -> str:
+        """No note on the label."""
+        return ""
+
+    def setup(self, observation_space: gym.Space, action_space: gym.Space, stream: Any) -> None:
+        """Build the JAX core for these spaces and its initial state from the agent's stream (a seed, a
+        SeedSequence or a compiled stream)."""
+        problem = neural_requirement(self.kind)
+        if problem is not None:
+            raise MissingNeuralExtra(problem)
+        import jax
+
+        if not isinstance(action_space, gym.spaces.Discrete) or len(observation_space.shape or ()) != 1:
+            raise EnvironmentSourceError(
+                f"{self.kind} needs flat box observations and discrete actions, got {observation_space} and "
+                f"{action_space}"
+            )
+        self.observation_space_ = observation_space
+        self.action_space_ = action_space
+        core_class = import_entry_point(self.core)
+        self.core_ = core_class.from_params(self._params, observation_space.shape[0], int(action_space.n))
+        with jax.enable_x64(True):
+            self.state_ = self.core_.init(jax.random.wrap_key_data(jax_key_data(stream)))
+        self.counters_ = np.zeros(len(COUNTER_NAMES), dtype=np.int64)
+
+    def act(self, observation: Any) -> int:
+        """The behaviour action for a real step."""
+        import jax
+
+        with jax.enable_x64(True):
+            self.state_, action = self.core_.act(self.state_, np.asarray(observation, dtype=np.float32))
+            return int(action)
+
+    def observe(
+        self, observation: Any, action: Any, reward: float, next_observation: Any, terminated: bool, truncated: bool
+    ) -> None:
+        """Learn from one real step (a truncated one bootstraps from `next_observation`)."""
+        import jax
+
+        with jax.enable_x64(True):
+            self.state_ = self.core_.observe(
+                self.state_,
+                np.asarray(observation, dtype=np.float32),
+                np.int32(action),
+                np.float32(reward),
+                np.asarray(next_observation, dtype=np.float32),
+                np.bool_(terminated),
+            )
+            self.counters_[:] = np.asarray(self.core_.counters(self.state_))
+
+    def greedy(self, observation: Any, stream: np.ndarray) -> int:
+        """The greedy action of the current network (the evaluation stream is not needed: ties go to the first)."""
+        import jax
+
+        with jax.enable_x64(True):
+            return int(self.core_.greedy(self.state_.online, np.asarray(observation, dtype=np.float32)))
+
+    def counters(self) -> dict[str, int]:
+        """Counters by name."""
+        return {name: int(v) for name, v in zip(COUNTER_NAMES, self.counters_, strict=True)}
+
+    def counter_problems(self, real_steps: int) -> list[str]:
+        """Negative counters; kinds add their own accounting."""
+        return [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
+
+    def has_bin_model(self) -> bool:
+        """Neural kinds never predict on a grid of bins (they take the box itself)."""
+        return False
+
+    def model_error(self, table: tuple) -> tuple[float, float]:
+        """Neural models are not compared with a true table."""
+        return float("nan"), float("nan")
