@@ -37,6 +37,9 @@ def _sklearn_gp(length_scales, signal, noise):
     return GaussianProcessRegressor(kernel=kernel, optimizer=None, alpha=0.0)
 
 
+_posterior, _predict, _lml = jax.jit(posterior), jax.jit(posterior_predict), jax.jit(log_marginal_likelihood)
+
+
 def _hyper(length_scales, signal, noise):
     return GPHyper(jnp.asarray(length_scales), jnp.asarray(signal), jnp.asarray(noise))
 
@@ -51,7 +54,7 @@ def test_posterior_with_fixed_hyperparameters_equals_scikit_learn():
     ref_mean, ref_std = reference.predict(xs, return_std=True)
     with jax.enable_x64(True):
         hyper = _hyper(LENGTH_SCALES, SIGNAL, NOISE)
-        mean, latent = posterior_predict(hyper, posterior(hyper, jnp.asarray(x), jnp.asarray(y)), jnp.asarray(xs))
+        mean, latent = _predict(hyper, _posterior(hyper, jnp.asarray(x), jnp.asarray(y)), jnp.asarray(xs))
         np.testing.assert_allclose(np.asarray(mean), ref_mean, rtol=1e-9, atol=1e-10)
         np.testing.assert_allclose(np.asarray(latent) + NOISE, ref_std**2, rtol=1e-8, atol=1e-10)
 
@@ -66,7 +69,7 @@ def test_log_marginal_likelihood_equals_scikit_learn_at_the_same_hyperparameters
         for _ in range(3):
             scales, signal, noise = rng.uniform(0.3, 3.0, 3), rng.uniform(0.5, 2.0), rng.uniform(0.01, 0.3)
             theta = np.log(np.concatenate([[signal], scales, [noise]]))
-            ours = log_marginal_likelihood(_hyper(scales, signal, noise), jnp.asarray(x), jnp.asarray(y))
+            ours = _lml(_hyper(scales, signal, noise), jnp.asarray(x), jnp.asarray(y))
             assert float(ours) == pytest.approx(reference.log_marginal_likelihood(theta), rel=1e-10)
 
 
@@ -78,11 +81,11 @@ def test_masked_rows_change_nothing():
     mask = jnp.asarray(np.arange(27) < 20)
     with jax.enable_x64(True):
         hyper = _hyper(LENGTH_SCALES, SIGNAL, NOISE)
-        plain = log_marginal_likelihood(hyper, jnp.asarray(x), jnp.asarray(y))
-        padded = log_marginal_likelihood(hyper, jnp.asarray(x_pad), jnp.asarray(y_pad), mask)
+        plain = _lml(hyper, jnp.asarray(x), jnp.asarray(y))
+        padded = _lml(hyper, jnp.asarray(x_pad), jnp.asarray(y_pad), mask)
         assert float(padded) == pytest.approx(float(plain), rel=1e-12)
-        want = posterior_predict(hyper, posterior(hyper, jnp.asarray(x), jnp.asarray(y)), jnp.asarray(xs))
-        got = posterior_predict(hyper, posterior(hyper, jnp.asarray(x_pad), jnp.asarray(y_pad), mask), jnp.asarray(xs))
+        want = _predict(hyper, _posterior(hyper, jnp.asarray(x), jnp.asarray(y)), jnp.asarray(xs))
+        got = _predict(hyper, _posterior(hyper, jnp.asarray(x_pad), jnp.asarray(y_pad), mask), jnp.asarray(xs))
         for a, b in zip(want, got, strict=True):
             np.testing.assert_allclose(np.asarray(b), np.asarray(a), rtol=1e-9, atol=1e-12)
 
@@ -99,8 +102,8 @@ def test_fitting_raises_the_marginal_likelihood_and_recovers_a_known_length_scal
         y = np.linalg.cholesky(cov) @ rng.normal(size=n)
         start = _hyper(np.array([1.5, 1.5]), 0.5, 0.2)
         fitted = jax.jit(fit_hyper)(jnp.asarray(x), jnp.asarray(y), jnp.ones(n, bool), start, 300, 0.05, 1e-4)
-        before = log_marginal_likelihood(start, jnp.asarray(x), jnp.asarray(y))
-        after = log_marginal_likelihood(fitted, jnp.asarray(x), jnp.asarray(y))
+        before = _lml(start, jnp.asarray(x), jnp.asarray(y))
+        after = _lml(fitted, jnp.asarray(x), jnp.asarray(y))
     assert float(after) > float(before) + 10
     relevant, irrelevant = np.asarray(fitted.length_scales)
     assert 0.6 / 1.5 < relevant < 0.6 * 1.5
@@ -165,7 +168,7 @@ def test_predict_and_sample_run_inside_jitted_code_and_samples_follow_the_predic
     assert final.shape == (2,) and rewards.shape == (5,)
     assert np.array_equal(np.asarray(final), np.asarray(again[0]))
     states = jnp.tile(jnp.array([[0.3, -0.2]]), (20000, 1))
-    draws, rewards = model.sample(params, jax.random.key(3), states, jnp.zeros(20000, int))
+    draws, rewards = jax.jit(model.sample)(params, jax.random.key(3), states, jnp.zeros(20000, int))
     pred = model.predict(params, states[:1], jnp.zeros(1, int))
     # sampling error of a mean of 20,000 normal draws is sd / 141; of a variance about variance / 70
     np.testing.assert_allclose(np.mean(draws, axis=0), pred.next_state_mean[0], atol=5 * 0.02 / 141)

@@ -122,7 +122,9 @@ def check_transitions(data: Transitions, encoding: ActionEncoding) -> Transition
         if actions.shape != (n,) or not np.issubdtype(actions.dtype, np.integer):
             raise ValueError(f"discrete actions must be n = {n} integers, got {actions.dtype} of shape {actions.shape}")
         if actions.min() < 0 or actions.max() >= encoding.n_actions:
-            raise ValueError(f"discrete actions must lie in [0, {encoding.n_actions}), got {actions.min()}..{actions.max()}")
+            raise ValueError(
+                f"discrete actions must lie in [0, {encoding.n_actions}), got {actions.min()}..{actions.max()}"
+            )
     else:
         actions = np.asarray(data.actions, dtype=np.float64).reshape(n, -1)
         if actions.shape != (n, encoding.box_dim):
