@@ -59,4 +59,18 @@ def check_listing(experiment: Experiment) -> list[str]:
         if env.tags is not None:
             out.append(f"    gives {env.tags.describe()}; {environment_path(env.spec)}")
         out += agent_lines
+        out += _override_lines(entries, env.label)
     return out
+
+
+def _override_lines(entries: list[list[AgentVariant]], env_label: str) -> list[str]:
+    """One line per agent entry that runs with other parameters on this environment (`by_environment`)."""
+    lines = []
+    for variants in entries:
+        first = variants[0]
+        here = first.params_on(env_label)
+        changed = {k: v for k, v in here.items() if first.params.get(k) != v}
+        if changed:
+            values = ", ".join(f"{k}={v}" for k, v in changed.items())
+            lines.append(f"    {first.entry_label} runs here with {values}")
+    return lines

@@ -12,7 +12,7 @@ import json
 import math
 import re
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -83,7 +83,7 @@ _COST_UNIT = re.compile(r"^[^\x00-\x1f]{1,32}$")
 _EVAL_KEYS = ("every", "episodes", "step_cap", "training_window")
 _ENV_KEYS = ("label", *SOURCES, "options", "step_limit", "threshold", "earning_threshold", "bins")
 _GRID_KEYS = ("map", *(p.name for p in GRID_SCHEMA), "changes")
-_AGENT_KEYS = ("label", "kind", "params")
+_AGENT_KEYS = ("label", "kind", "params", "by_environment")
 _DEFAULT_STEP_CAP = 1000
 
 
@@ -143,6 +143,12 @@ class AgentVariant:
     params: dict[str, Any]
     varied: dict[str, Any]
     index: int = 0  # position of its entry under `agents`
+    by_environment: dict[str, dict[str, Any]] = field(default_factory=dict)
+
+    def params_on(self, env_label: str) -> dict[str, Any]:
+        """The resolved parameters this variant runs with on one environment (its `by_environment` entry, if any,
+        over the entry's own)."""
+        return self.by_environment.get(env_label, self.params)
 
 
 @dataclass(frozen=True)
@@ -195,7 +201,7 @@ def load_experiment(path: str | Path) -> Experiment:
     analysis = _analysis(src, data.get("analysis"))
     environments = _environments(src, _require(src, data, ("environments",)), evaluation, real_steps)
     _primary_thresholds(src, analysis, environments)
-    agents = _agents(src, _require(src, data, ("agents",)))
+    agents = _agents(src, _require(src, data, ("agents",)), [env.label for env in environments])
     _check_pairs(src, environments, agents)
     baseline = _baseline(src, data.get("baseline"), agents)
     costs = _costs(src, data.get("costs"))
@@ -584,7 +590,7 @@ def _short(err: Exception, limit: int = 300) -> str:
     return text if len(text) <= limit else text[:limit] + "..."
 
 
-def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
+def _agents(src: SourceText, value: Any, env_labels: list[str]) -> tuple[AgentVariant, ...]:
     """Every agent variant; duplicates are found through a dict of canonical parameters (linear in variants)."""
     if not isinstance(value, list) or not value:
         raise src.error(("agents",), f"expected a non-empty list of agents, got {_kind(value)}")
@@ -593,12 +599,12 @@ def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
     seen: dict[tuple, str] = {}
     for i, item in enumerate(value):
         path: KeyPath = ("agents", i)
-        variants = _agent(src, path, item, MAX_VARIANTS - len(out))
+        variants = _agent(src, path, item, MAX_VARIANTS - len(out), env_labels)
         if variants[0].entry_label in entry_labels:
             raise src.error((*path, "label"), f"expected a unique label, {variants[0].entry_label!r} is used twice")
         entry_labels.add(variants[0].entry_label)
         for variant in variants:
-            key = (variant.kind, json.dumps(variant.params, sort_keys=True))
+            key = (variant.kind, json.dumps([variant.params, variant.by_environment], sort_keys=True))
             if key in seen:
                 raise src.error(path, f"expected distinct agents, this one repeats {seen[key]!r} exactly")
             seen[key] = variant.label
@@ -606,7 +612,7 @@ def _agents(src: SourceText, value: Any) -> tuple[AgentVariant, ...]:
     return tuple(out)
 
 
-def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentVariant]:
+def _agent(src: SourceText, path: KeyPath, value: Any, room: int, env_labels: list[str]) -> list[AgentVariant]:
     """The variants of one agent entry (one per combination of listed values); at most `room` of them."""
     data = _mapping(src, path, value)
     _no_unknown_keys(src, data, path, _AGENT_KEYS)
@@ -624,11 +630,7 @@ def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentV
     grids: dict[str, list[Any]] = {}
     for name, raw in params.items():
         ppath = (*path, "params", name)
-        if name not in schema:
-            close = difflib.get_close_matches(str(name), list(schema), n=1, cutoff=0.6)
-            hint = f"did you mean {close[0]!r}? " if close else ""
-            known = ", ".join(schema) or "none"
-            raise src.error(ppath, f"unknown parameter of {kind!r}; {hint}expected one of {known}")
+        _known_param(src, ppath, kind, schema, name)
         if isinstance(raw, list):
             if not raw:
                 raise src.error(ppath, "expected a value or a non-empty list of values to try, got an empty list")
@@ -654,6 +656,9 @@ def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentV
             except ValueError as err:
                 inner = getattr(err, "subpath", ())
                 raise src.error((*ppath, *inner), getattr(err, "bare", str(err))) from None
+    overrides = _environment_overrides(
+        src, (*path, "by_environment"), data.get("by_environment"), kind, schema, grids, env_labels
+    )
     label = data.get("label", kind)
     if not isinstance(label, str) or not label.strip():
         raise src.error((*path, "label"), f"expected a non-empty text label, got {_kind(label)}")
@@ -671,8 +676,60 @@ def _agent(src: SourceText, path: KeyPath, value: Any, room: int) -> list[AgentV
         variant_label = f"{label} ({suffix})" if suffix else label
         if agent.label_note():
             variant_label = f"{variant_label} [{agent.label_note()}]"
-        variants.append(AgentVariant(variant_label, label, kind, resolved, varied, path[-1]))
+        on_envs = {
+            env: _params_on_environment(src, (*path, "by_environment", env), cls, {**fixed, **varied, **extra})
+            for env, extra in overrides.items()
+        }
+        variants.append(AgentVariant(variant_label, label, kind, resolved, varied, path[-1], on_envs))
     return variants
+
+
+def _known_param(src: SourceText, ppath: KeyPath, kind: str, schema: dict[str, Param], name: Any) -> None:
+    """One line when `name` is not a parameter of the kind, with the closest known name."""
+    if name not in schema:
+        close = difflib.get_close_matches(str(name), list(schema), n=1, cutoff=0.6)
+        hint = f"did you mean {close[0]!r}? " if close else ""
+        known = ", ".join(schema) or "none"
+        raise src.error(ppath, f"unknown parameter of {kind!r}; {hint}expected one of {known}")
+
+
+def _environment_overrides(
+    src: SourceText, path: KeyPath, value: Any, kind: str, schema: dict[str, Param], grids: dict, env_labels: list[str]
+) -> dict[str, dict[str, Any]]:
+    """An entry's `by_environment`: environment label -> parameters that differ there (single values, checked
+    like `params`; not a parameter whose values are tried, which would make variants differ by environment)."""
+    if value is None:
+        return {}
+    data = _mapping(src, path, value)
+    out: dict[str, dict[str, Any]] = {}
+    for env, raw in data.items():
+        epath = (*path, env)
+        if env not in env_labels:
+            raise src.error(epath, f"expected the label of an environment of this experiment ({', '.join(env_labels)})")
+        out[env] = {}
+        for name, item in _mapping(src, epath, raw).items():
+            ppath = (*epath, name)
+            _known_param(src, ppath, kind, schema, name)
+            if name in grids:
+                raise src.error(ppath, "expected a parameter with one value in `params`, this one lists values to try")
+            if isinstance(item, list):
+                raise src.error(ppath, "expected one value (lists of values to try belong in `params`)")
+            try:
+                out[env][name] = check_value(schema[name], item)
+            except ValueError as err:
+                inner = getattr(err, "subpath", ())
+                raise src.error((*ppath, *inner), getattr(err, "bare", str(err))) from None
+    return out
+
+
+def _params_on_environment(src: SourceText, path: KeyPath, cls: type, params: dict[str, Any]) -> dict[str, Any]:
+    """The resolved parameters of a variant on one environment with its overrides."""
+    try:
+        return cls(**params).get_params()
+    except Exception as err:  # an own agent's constructor is the user's code and may raise anything
+        raise src.error(
+            path, f"could not be built with these parameters: {type(err).__name__}: {_short(err)}"
+        ) from None
 
 
 def _baseline(src: SourceText, value: Any, agents: tuple[AgentVariant, ...]) -> str | None:
@@ -701,9 +758,10 @@ def _check_pairs(src: SourceText, environments: tuple[EnvironmentDecl, ...], age
     seen: set[tuple[str, str]] = set()
     for variant in agents:
         cls = agent_class(variant.kind)
-        uses_table = bool(getattr(cls(**variant.params), "uses_table", lambda: False)())
         for env in environments:
-            key = (variant.kind, repr(sorted(variant.params.items())), env.label)
+            params = variant.params_on(env.label)
+            uses_table = bool(getattr(cls(**params), "uses_table", lambda: False)())
+            key = (variant.kind, repr(sorted(params.items())), env.label)
             if key in seen or env.tags is None:
                 continue
             seen.add(key)

@@ -41,7 +41,7 @@ def plan_trials(experiment: Experiment) -> list[PlannedTrial]:
                 spec = TrialSpec.build(
                     env_spec,
                     agent.kind,
-                    agent.params,
+                    agent.params_on(env.label),
                     seed,
                     experiment.real_steps,
                     every=ev.every,
