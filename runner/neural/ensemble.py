@@ -23,6 +23,7 @@ trajectory sampling of PETS, with a new member every step); `sample_members` tak
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import partial
 from typing import NamedTuple
 
 import jax
@@ -143,9 +144,8 @@ class EnsembleModel:
         dtype = jnp.asarray(0.0).dtype
         x, y = np.zeros((rows, inputs.shape[1])), np.zeros((rows, targets.shape[1]))
         x[:n], y[:n] = (inputs - in_scaler.mean) / in_scaler.scale, (targets - out_scaler.mean) / out_scaler.scale
-        init_key, boot_key, train_key = jax.random.split(key, 3)
-        members = previous.members if previous is not None else self.init_members(init_key, x.shape[1], y.shape[1])
-        boot = jax.random.randint(boot_key, (self.members, rows), 0, n)
+        fresh, boot, train_key = _draws(self, key, x.shape[1], y.shape[1], rows, n)
+        members = previous.members if previous is not None else fresh
         members = _train(
             members,
             jnp.asarray(x, dtype),
@@ -204,6 +204,17 @@ class EnsembleModel:
         member_key, draw_key = jax.random.split(key)
         members = jax.random.randint(member_key, (jnp.shape(states)[0],), 0, self.members)
         return self.sample_members(params, draw_key, states, actions, members)
+
+
+@partial(jax.jit, static_argnums=(0, 2, 3, 4))
+def _draws(
+    model: EnsembleModel, key: jax.Array, inputs: int, outputs: int, rows: int, n: jax.Array
+) -> tuple[Members, jax.Array, jax.Array]:
+    """Everything a fit draws before training, in one compiled call: fresh members, every member's bootstrap
+    (rows indices into the first n rows) and the training key."""
+    init_key, boot_key, train_key = jax.random.split(key, 3)
+    boot = jax.random.randint(boot_key, (model.members, rows), 0, n)
+    return model.init_members(init_key, inputs, outputs), boot, train_key
 
 
 @jax.jit(static_argnames=("activation", "batch_size"))

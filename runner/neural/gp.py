@@ -90,9 +90,11 @@ class GPParams(NamedTuple):
 
 
 def rbf_kernel(a: jax.Array, b: jax.Array, length_scales: jax.Array, signal_var: jax.Array) -> jax.Array:
-    """The squared-exponential kernel matrix (len(a), len(b)) with per-dimension length scales (R&W eq. 5.2)."""
-    diff = a[:, None, :] / length_scales - b[None, :, :] / length_scales
-    return signal_var * jnp.exp(-0.5 * jnp.sum(diff**2, axis=-1))
+    """The squared-exponential kernel matrix (len(a), len(b)) with per-dimension length scales (R&W eq. 5.2).
+    Squared distances as |a|^2 + |b|^2 - 2 a.b (clipped at 0), so memory grows with len(a) x len(b), not times d."""
+    a, b = a / length_scales, b / length_scales
+    squared = jnp.sum(a**2, axis=1)[:, None] + jnp.sum(b**2, axis=1)[None, :] - 2.0 * a @ b.T
+    return signal_var * jnp.exp(-0.5 * jnp.maximum(squared, 0.0))
 
 
 def _training_matrix(hyper: GPHyper, x: jax.Array, mask: jax.Array) -> jax.Array:
