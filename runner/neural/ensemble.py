@@ -45,7 +45,15 @@ from runner.neural.model import (
     prediction_from_targets,
 )
 
-__all__ = ["INITIAL_LOGVAR_BOUNDS", "EnsembleModel", "EnsembleParams", "Members", "bounded_logvar", "gaussian_nll"]
+__all__ = [
+    "INITIAL_LOGVAR_BOUNDS",
+    "EnsembleModel",
+    "EnsembleParams",
+    "Members",
+    "bounded_logvar",
+    "ensemble_loss",
+    "gaussian_nll",
+]
 
 INITIAL_LOGVAR_BOUNDS = (-10.0, 0.5)
 """Where the learned lower and upper bounds of the log-variance start (standardised units; PETS's code)."""
@@ -206,6 +214,18 @@ class EnsembleModel:
         return self.sample_members(params, draw_key, states, actions, members)
 
 
+def ensemble_loss(
+    members: Members, x: jax.Array, y: jax.Array, weight: jax.Array, bound_penalty: jax.Array, activation: str
+) -> jax.Array:
+    """The training loss summed over members: each member's weighted mean Gaussian NLL on its own minibatch,
+    inputs `x` (E, B, d) and targets `y` (E, B, outputs) with row weights `weight` (B,), plus `bound_penalty` x
+    (sum max_logvar - sum min_logvar). Members share no parameters, so its gradient is every member's own."""
+    mean, logvar = jax.vmap(lambda member, rows: _member_outputs_one(member, rows, activation))(members, x)
+    per_member = jnp.sum(gaussian_nll(mean, logvar, y) * weight, axis=1) / jnp.maximum(jnp.sum(weight), 1.0)
+    bounds = jnp.sum(members.max_logvar, axis=1) - jnp.sum(members.min_logvar, axis=1)
+    return jnp.sum(per_member + bound_penalty * bounds)
+
+
 @partial(jax.jit, static_argnums=(0, 2, 3, 4))
 def _draws(
     model: EnsembleModel, key: jax.Array, inputs: int, outputs: int, rows: int, n: jax.Array
@@ -239,13 +259,6 @@ def _train(
     batches = -(-rows // batch_size)
     positions = jnp.arange(batches * batch_size)
 
-    def loss(members, picked, weight):
-        mean, logvar = jax.vmap(lambda m, idx: _member_outputs_one(m, x[idx], activation))(members, picked)
-        nll = gaussian_nll(mean, logvar, jax.vmap(lambda idx: y[idx])(picked))
-        per_member = jnp.sum(nll * weight, axis=1) / jnp.maximum(jnp.sum(weight), 1.0)
-        bounds = jnp.sum(members.max_logvar, axis=1) - jnp.sum(members.min_logvar, axis=1)
-        return jnp.sum(per_member + bound_penalty * bounds)
-
     def epoch(i, carry):
         order_keys = jax.random.split(jax.random.fold_in(key, i), boot.shape[0])
         shuffled = jax.vmap(lambda k: jax.random.uniform(k, positions.shape))(order_keys)
@@ -259,7 +272,8 @@ def _train(
             def step(carry):
                 members, state = carry
                 picked = jax.lax.dynamic_slice_in_dim(picked_all, start, batch_size, axis=1)
-                updates, state = optimiser.update(jax.grad(loss)(members, picked, weight), state, members)
+                grads = jax.grad(ensemble_loss)(members, x[picked], y[picked], weight, bound_penalty, activation)
+                updates, state = optimiser.update(grads, state, members)
                 return optax.apply_updates(members, updates), state
 
             return jax.lax.cond(start < n, step, lambda c: c, carry), None
