@@ -14,6 +14,7 @@ from pathlib import Path
 import distributed
 import pandas as pd
 import pytest
+from experiment_texts import room_experiment
 
 import runner
 from runner.analysis.frames import load_failures, missing_trials
@@ -48,28 +49,7 @@ baseline: q
 """
 
 # 4 agent variants x 8 seeds = 32 trials of about 0.05-0.3 s each on the gymnasium path: several seconds on 2 workers.
-_LONG = """\
-experiment: longer
-seeds: 8
-real_steps: 6000
-evaluation: {every: 1000, episodes: 3}
-environments:
-  - label: room
-    grid:
-      map: |
-        S...#...
-        .~..#.~.
-        ....#...
-        ........
-        ..~....G
-      slip: 0.1
-    step_limit: 100
-agents:
-  - {label: q, kind: q_learning}
-  - {label: dyna, kind: dyna_q, params: {planning_steps: [2, 10]}}
-  - {label: ce, kind: certainty_equivalence}
-baseline: q
-"""
+_LONG = room_experiment("longer", seeds=8, steps=6000, every=1000)
 _LONG_TRIALS = 32
 _UNREACHABLE = "tcp://127.0.0.1:1"
 

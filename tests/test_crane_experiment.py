@@ -2,6 +2,7 @@
 seed, fewer real steps) runs end to end through `stepmeter run` with its report; and the five classic-control ids
 run in one experiment with the tabular kinds on bins and a user's own agent on boxes."""
 
+import re
 from pathlib import Path
 
 import numpy as np
@@ -29,6 +30,8 @@ def test_crane_config_declares_bins_and_a_threshold():
         "linear_sarsa",
         "linear_dyna",
         "linear_gaussian",
+        "linear_replay_q_learning",
+        "linear_true_online_sarsa",
     }
     budgets = {a.kind: [] for a in experiment.agents}
     for a in experiment.agents:
@@ -37,13 +40,14 @@ def test_crane_config_declares_bins_and_a_threshold():
 
 
 def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
-    text = CONFIG.read_text().replace("seeds: 6", "seeds: 1").replace("real_steps: 100000", "real_steps: 2000")
+    text = re.sub(r"(?m)^real_steps: \d+$", "real_steps: 2000", CONFIG.read_text().replace("seeds: 6", "seeds: 1"))
     text = text.replace("every: 5000 ", "every: 1000 ").replace("episodes: 5 ", "episodes: 1 ")
+    assert "real_steps: 2000" in text and "every: 1000 " in text
     path = tmp_path / "crane.yaml"
     path.write_text(text)
     assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1"]) == 0
     frame = runner.load_results(tmp_path / "results" / "crane-loading-bay")
-    assert len(frame) == 11 * 3  # eleven agent variants x evaluation points at 0, 1000 and 2000 real steps
+    assert len(frame) == 14 * 3  # fourteen agent variants x evaluation points at 0, 1000 and 2000 real steps
     assert np.isfinite(frame["eval_return"]).all()
     assert (tmp_path / "results" / "crane-loading-bay" / "report" / "report.html").exists()
 
@@ -86,3 +90,20 @@ def test_check_says_what_the_crane_gives_and_how_its_trials_run(capsys):
     assert "gives discrete observations (864 states), discrete actions (3); compiled kinds run whole trials " in out
     assert "(compiled dynamics through bins)" in out
     assert "environments[0].threshold: note: not checked against the best possible value: 'overhead crane' is" in out
+
+
+CLASSIC_CONFIG = CONFIG.parent / "classic_control.yaml"
+
+
+def test_classic_control_config_gives_acrobot_its_own_features():
+    """Example 10.1's tiles on Mountain Car, hashed tiles on the six-dimensional Acrobot, for every linear kind;
+    both registered thresholds (gymnasium's registry: MountainCar-v0 -110, Acrobot-v1 -100)."""
+    experiment = load_experiment(CLASSIC_CONFIG)
+    assert [env.threshold for env in experiment.environments] == [-110, -100]
+    for variant in experiment.agents:
+        if not variant.kind.startswith("linear"):
+            continue
+        assert variant.params_on("MountainCar-v0")["features"]["tiles"] == 8
+        assert variant.params_on("Acrobot-v1")["features"]["hash_size"] == 1024
+    budgets = [a.params["planning_steps"] for a in experiment.agents if a.kind in ("linear_dyna", "linear_gaussian")]
+    assert budgets == [0, 5, 20, 0, 5, 20]

@@ -12,6 +12,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
+from experiment_texts import HALL_DYNA, HALL_Q, hall_experiment
 
 import runner
 from runner.analysis.frames import load_failures, missing_trials
@@ -23,29 +24,12 @@ from runner.store import experiment_dir
 
 _REPO = Path(__file__).resolve().parents[1]
 
-_EXPERIMENT = """\
-experiment: guarded
-seeds: {seeds}
-real_steps: {steps}
-evaluation: {{every: {every}, episodes: 2}}
-environments:
-  - label: hall
-    grid:
-      map: |
-        S.~.
-        .#.G
-      slip: 0.2
-    step_limit: 40
-agents:
-{agents}baseline: q
-"""
-_Q = "  - {label: q, kind: q_learning}\n"
-_DYNA = "  - {label: dyna, kind: dyna_q, params: {planning_steps: 5}}\n"
 
-
-def _experiment(tmp_path: Path, seeds: int = 2, steps: int = 400, every: int = 100, agents: str = _Q + _DYNA) -> Path:
+def _experiment(
+    tmp_path: Path, seeds: int = 2, steps: int = 400, every: int = 100, agents: str = HALL_Q + HALL_DYNA
+) -> Path:
     path = tmp_path / "guarded.yaml"
-    path.write_text(_EXPERIMENT.format(seeds=seeds, steps=steps, every=every, agents=agents), encoding="utf-8")
+    path.write_text(hall_experiment("guarded", seeds, steps, every, agents), encoding="utf-8")
     return path
 
 
@@ -164,7 +148,7 @@ def test_start_over_deletes_stored_trials_and_runs_everything_again(tmp_path):
     folder = experiment_dir(results, "guarded")
     cramped = "  - {label: cramped, kind: certainty_equivalence, params: {max_successors: 1}}\n"
     first = run_experiment(
-        _experiment(tmp_path, agents=_Q + _DYNA + cramped), results_root=results, options=RunOptions(jobs=1)
+        _experiment(tmp_path, agents=HALL_Q + HALL_DYNA + cramped), results_root=results, options=RunOptions(jobs=1)
     )
     assert len(first.failed) == 2
     before = runner.load_results(folder).drop(columns=list(TIMING_COLUMNS))
@@ -192,7 +176,7 @@ def test_failed_only_runs_exactly_the_trials_that_failed_before(tmp_path):
     results = tmp_path / "results"
     folder = experiment_dir(results, "guarded")
     # q trials stored first; then the dyna trials fail by time-out on the step-by-step path.
-    run_experiment(_experiment(tmp_path, steps=3000, agents=_Q), results_root=results, options=RunOptions(jobs=1))
+    run_experiment(_experiment(tmp_path, steps=3000, agents=HALL_Q), results_root=results, options=RunOptions(jobs=1))
     timed = RunOptions(jobs=1, trial_path="gymnasium", time_limit=0.001)
     failed = run_experiment(_experiment(tmp_path, steps=3000), results_root=results, options=timed)
     assert failed.ran == 0 and len(failed.failed) == 2
@@ -231,13 +215,14 @@ def test_trial_timeout_stores_failures_exits_1_and_lists_them(tmp_path, path, st
     assert result.returncode == 1, result.stderr
     folder = tmp_path / "results" / "guarded"
     failed = [line for line in result.stderr.splitlines() if line.startswith("failed: ")]
-    expected = {
-        f"failed: hall / {agent} / seed {seed}: TrialTimeout: the trial ran past its limit of {float(limit):g} "
-        "wall seconds"
-        for agent in ("q", "dyna")
-        for seed in (0, 1)
-    }
-    assert set(failed) == expected and len(failed) == 4
+    heads = sorted(line.split(": TrialTimeout: ")[0] for line in failed)
+    assert heads == sorted(f"failed: hall / {agent} / seed {seed}" for agent in ("q", "dyna") for seed in (0, 1))
+    # On a busy machine the limit may pass during an evaluation, which says so instead of the limit's value.
+    said = {line.split(": TrialTimeout: ")[1] for line in failed}
+    assert said <= {
+        f"the trial ran past its limit of {float(limit):g} wall seconds",
+        "the trial ran past its wall-clock limit during an evaluation",
+    }, said
     assert f"4 trials failed; their errors are stored in {folder}" in result.stderr
     failures = load_failures(folder)
     assert list(failures["error_type"]) == ["TrialTimeout"] * 4

@@ -10,35 +10,17 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from experiment_texts import hall_experiment
 
 from runner.cli import main
 from runner.run import RunOptions, run_experiment
 
 _REPO = Path(__file__).resolve().parents[1]
 
-_EXPERIMENT = """\
-experiment: redo
-seeds: {seeds}
-real_steps: 400
-evaluation: {{every: 100, episodes: 2}}
-environments:
-  - label: hall
-    grid:
-      map: |
-        S.~.
-        .#.G
-      slip: 0.2
-    step_limit: 40
-agents:
-  - {{label: q, kind: q_learning}}
-  - {{label: dyna, kind: dyna_q, params: {{planning_steps: 3}}}}
-baseline: q
-"""
-
 
 def _experiment(tmp_path: Path, seeds: int = 2) -> Path:
     path = tmp_path / "redo.yaml"
-    path.write_text(_EXPERIMENT.format(seeds=seeds), encoding="utf-8")
+    path.write_text(hall_experiment("redo", seeds), encoding="utf-8")
     return path
 
 

@@ -12,6 +12,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from experiment_texts import room_experiment
 
 import runner
 from runner.metrics import TIMING_COLUMNS
@@ -24,28 +25,7 @@ _POINTS = _REAL_STEPS // _EVERY + 1
 
 # 4 agent variants x 30 seeds = 120 trials of about 0.1-0.7 s each on the step-by-step gymnasium path: enough
 # work that six kills, each after a few more trials are stored, all land before the experiment is done.
-_EXPERIMENT = f"""\
-experiment: {_NAME}
-seeds: 30
-real_steps: {_REAL_STEPS}
-evaluation: {{every: {_EVERY}, episodes: 3}}
-environments:
-  - label: room
-    grid:
-      map: |
-        S...#...
-        .~..#.~.
-        ....#...
-        ........
-        ..~....G
-      slip: 0.1
-    step_limit: 100
-agents:
-  - {{label: q, kind: q_learning}}
-  - {{label: dyna, kind: dyna_q, params: {{planning_steps: [2, 10]}}}}
-  - {{label: ce, kind: certainty_equivalence}}
-baseline: q
-"""
+_EXPERIMENT = room_experiment(_NAME, seeds=30, steps=_REAL_STEPS, every=_EVERY)
 _TRIALS = 120
 
 # Kinds of kill, in order: "early" lands at a random moment of the first seconds (imports, lock, declaring,

@@ -95,7 +95,7 @@ def test_break_even_price_is_cpu_difference_over_steps_saved():
     assert row["price"] == pytest.approx(extra / saved)
     assert row["low"] <= row["price"] <= row["high"]
     text = break_even_sentences(table, Prices())[0]
-    assert "planning pays for itself" in text and format_cpu_time(row["price"]) in text
+    assert "pays for its extra CPU time" in text and format_cpu_time(row["price"]) in text
 
 
 def test_break_even_interval_matches_scipy_paired_percentile_bootstrap():

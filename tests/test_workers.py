@@ -12,6 +12,7 @@ from pathlib import Path
 import pandas as pd
 import psutil
 import pytest
+from experiment_texts import hall_experiment
 
 import runner
 import runner.run as run_module
@@ -21,30 +22,11 @@ from runner.run import RunOptions, run_experiment
 
 _REPO = Path(__file__).resolve().parents[1]
 
-_TEXT = """\
-experiment: crew
-seeds: {seeds}
-real_steps: {steps}
-evaluation: {{every: {every}, episodes: 2}}
-environments:
-  - label: hall
-    grid:
-      map: |
-        S.~.
-        .#.G
-      slip: 0.2
-    step_limit: 40
-agents:
-  - {{label: q, kind: q_learning}}
-  - {{label: dyna, kind: dyna_q, params: {{planning_steps: 5}}}}
-baseline: q
-"""
-
 
 def _write(folder: Path, seeds: int = 3, steps: int = 400, every: int = 100) -> Path:
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / "crew.yaml"
-    path.write_text(_TEXT.format(seeds=seeds, steps=steps, every=every), encoding="utf-8")
+    path.write_text(hall_experiment("crew", seeds, steps, every), encoding="utf-8")
     return path
 
 

@@ -41,6 +41,8 @@ AGENTS = Registry(
         "puct_search": "runner.agents.tree_search:PUCTSearch",
         "linear_q_learning": "runner.agents.linear:LinearQLearning",
         "linear_sarsa": "runner.agents.linear:LinearSarsa",
+        "linear_true_online_sarsa": "runner.agents.linear_true_online:LinearTrueOnlineSarsa",
+        "linear_replay_q_learning": "runner.agents.linear_replay:LinearReplayQLearning",
         "linear_dyna": "runner.agents.linear_dyna:LinearDyna",
         "linear_gaussian": "runner.agents.linear_gaussian:LinearGaussian",
     },

@@ -387,7 +387,11 @@ def break_even_sentences(table: pd.DataFrame, prices: Prices) -> list[str]:
                 "real step at which it is the cheaper way to the threshold."
             )
             continue
-        high = "no upper bound" if np.isinf(row["high"]) else format_cpu_time(float(row["high"]))
+        high = (
+            "no upper bound: the data do not rule out that it never does"
+            if np.isinf(row["high"])
+            else format_cpu_time(float(row["high"]))
+        )
         if np.isnan(row["low"]):
             interval = f" ({row['note']})"
         elif row["verdict"] == "always" and row["high"] == 0.0:
@@ -403,7 +407,7 @@ def break_even_sentences(table: pd.DataFrame, prices: Prices) -> list[str]:
             )
             continue
         sentences.append(
-            f"On {env}, planning pays for itself with {agent} against {rival} once a real step costs more than "
+            f"On {env}, {agent} pays for its extra CPU time against {rival} once a real step costs more than "
             f"{format_cpu_time(float(row['price']))} of CPU time{interval}{_your_price(prices)}."
         )
     return sentences
