@@ -2,6 +2,8 @@
 Gaussian density, the soft bounds, what it learns from data of a known function with known noise, bootstrapped
 members, sampling, and seeding."""
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
 
@@ -108,17 +110,14 @@ def test_same_seed_same_params_bit_for_bit_and_other_seeds_differ(fitted):
     assert not np.array_equal(flat, flat_other)
 
 
-def test_fits_of_fewer_rows_than_a_minibatch_and_from_previous_params():
-    """Padding rows never train: a fit on 10 transitions with zero epochs leaves fresh members unchanged, and one
-    epoch from them moves them."""
-    small = _data(4, n=10)
-    model = EnsembleModel(ActionEncoding(2), hidden=(8,), epochs=0, members=2)
-    untrained = model.fit(small, jax.random.key(5))
-    fresh = model.init_members(jax.random.split(jax.random.key(5), 3)[0], 3, 2)
+def test_padding_rows_never_train_and_a_fit_continues_from_previous_params():
+    """1,500 rows padded to 2,048 (the fixture's compiled program): zero epochs leave the fresh members as they
+    are, and one epoch from them moves them."""
+    data = _data(4, n=1500)
+    untrained = replace(MODEL, epochs=0).fit(data, jax.random.key(5))
+    fresh = MODEL.init_members(jax.random.split(jax.random.key(5), 3)[0], 3, 2)
     assert np.array_equal(ravel_pytree(untrained.members)[0], ravel_pytree(fresh)[0])
-    trained = EnsembleModel(ActionEncoding(2), hidden=(8,), epochs=1, members=2).fit(
-        small, jax.random.key(6), previous=untrained
-    )
+    trained = replace(MODEL, epochs=1).fit(data, jax.random.key(6), previous=untrained)
     assert not np.array_equal(ravel_pytree(trained.members)[0], ravel_pytree(fresh)[0])
     assert np.all(np.isfinite(ravel_pytree(trained)[0]))
 

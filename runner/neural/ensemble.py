@@ -52,6 +52,7 @@ __all__ = [
     "Members",
     "bounded_logvar",
     "ensemble_loss",
+    "fresh_members",
     "gaussian_nll",
 ]
 
@@ -132,14 +133,8 @@ class EnsembleModel:
             )
 
     def init_members(self, key: jax.Array, inputs: int, outputs: int) -> Members:
-        """Fresh members for `inputs` input and `outputs` target columns: Glorot-initialised networks (one key
-        each) and the initial log-variance bounds."""
-        dtype = jnp.asarray(0.0).dtype
-        sizes = (inputs, *self.hidden, 2 * outputs)
-        nets = jax.vmap(lambda k: init_mlp(k, sizes, dtype))(jax.random.split(key, self.members))
-        low, high = INITIAL_LOGVAR_BOUNDS
-        shape = (self.members, outputs)
-        return Members(nets, jnp.full(shape, low, dtype), jnp.full(shape, high, dtype))
+        """Fresh members for `inputs` input and `outputs` target columns (see `fresh_members`)."""
+        return fresh_members(key, self.members, (inputs, *self.hidden, 2 * outputs))
 
     def fit(self, data: Transitions, key: jax.Array, previous: EnsembleParams | None = None) -> EnsembleParams:
         """Train every member on its own bootstrap of `data` for `epochs` epochs, from `previous`'s members when
@@ -152,7 +147,8 @@ class EnsembleModel:
         dtype = jnp.asarray(0.0).dtype
         x, y = np.zeros((rows, inputs.shape[1])), np.zeros((rows, targets.shape[1]))
         x[:n], y[:n] = (inputs - in_scaler.mean) / in_scaler.scale, (targets - out_scaler.mean) / out_scaler.scale
-        fresh, boot, train_key = _draws(self, key, x.shape[1], y.shape[1], rows, n)
+        sizes = (x.shape[1], *self.hidden, 2 * y.shape[1])
+        fresh, boot, train_key = _draws(key, self.members, sizes, rows, n)
         members = previous.members if previous is not None else fresh
         members = _train(
             members,
@@ -226,15 +222,25 @@ def ensemble_loss(
     return jnp.sum(per_member + bound_penalty * bounds)
 
 
-@partial(jax.jit, static_argnums=(0, 2, 3, 4))
+def fresh_members(key: jax.Array, members: int, sizes: tuple[int, ...]) -> Members:
+    """`members` networks of layer sizes `sizes` (outputs: a mean and a raw log-variance per target), Glorot-
+    initialised from one key each, with the initial log-variance bounds, in JAX's default float type."""
+    dtype = jnp.asarray(0.0).dtype
+    nets = jax.vmap(lambda k: init_mlp(k, sizes, dtype))(jax.random.split(key, members))
+    low, high = INITIAL_LOGVAR_BOUNDS
+    shape = (members, sizes[-1] // 2)
+    return Members(nets, jnp.full(shape, low, dtype), jnp.full(shape, high, dtype))
+
+
+@partial(jax.jit, static_argnums=(1, 2, 3))
 def _draws(
-    model: EnsembleModel, key: jax.Array, inputs: int, outputs: int, rows: int, n: jax.Array
+    key: jax.Array, members: int, sizes: tuple[int, ...], rows: int, n: jax.Array
 ) -> tuple[Members, jax.Array, jax.Array]:
     """Everything a fit draws before training, in one compiled call: fresh members, every member's bootstrap
     (rows indices into the first n rows) and the training key."""
     init_key, boot_key, train_key = jax.random.split(key, 3)
-    boot = jax.random.randint(boot_key, (model.members, rows), 0, n)
-    return model.init_members(init_key, inputs, outputs), boot, train_key
+    boot = jax.random.randint(boot_key, (members, rows), 0, n)
+    return fresh_members(init_key, members, sizes), boot, train_key
 
 
 @jax.jit(static_argnames=("activation", "batch_size"))
