@@ -1,7 +1,8 @@
 """Real steps per second of linear Sarsa (8 tilings of 8x8 tiles) on MountainCar-v0 on one core: the compiled
 loop of box-taking kinds on compiled dynamics (`runner.compiled_box_trial`) beside a plain per-step Python
-implementation (gymnasium's `env.step`, numpy tile coding, numpy updates) in the same run; and linear Dyna's
-planning updates per second in the same compiled loop.
+implementation (gymnasium's `env.step`, numpy tile coding, numpy updates) in the same run; linear Dyna's
+planning updates per second in the same compiled loop (uniform planning and prioritized sweeping); and what
+measuring linear Dyna's held-out model errors costs at one evaluation point (it happens only there, never per step).
 
 Targets (issue 12): at least 1 M real steps per second per core on the compiled path, and at least 30x the plain
 Python loop. Each figure is the best of 3 repetitions after a warm-up (compile time never counted), timed by this
@@ -17,6 +18,7 @@ import time
 
 import gymnasium
 import numpy as np
+from numba import typeof, types
 
 try:  # run as a script: benchmarks/ is on sys.path
     from planning_speed import REPEATS, command_line, cpu_model, pin_to_one_core
@@ -29,6 +31,10 @@ from runner.agents import make_agent
 from runner.compiled_box_trial import BoxDynamics, run_box_kind_trial
 from runner.envs.dynamics import dynamics_spec
 from runner.metrics import METRIC_COLUMNS
+from runner.models.held_out import collect_held_out
+from runner.models.held_out_bins import held_out_arrays
+from runner.models.held_out_function import function_model_errors
+from runner.seeding import held_out_sequence
 from runner.streams import new_stream
 
 TARGET_STEPS = 1e6
@@ -53,6 +59,21 @@ def _compiled_cpu_seconds(kind: str, params: dict, steps: int, seed: int) -> tup
         kind, dynamics, agent.arrays_, agent.hyper_, agent.counters_, agent.stream_, *args, rows, returns, lengths
     )
     return time.process_time() - start, agent.counters_.copy()
+
+
+def _model_error_cpu_seconds(params: dict, seed: int) -> float:
+    """CPU seconds of one held-out model-error measurement (50 runs of up to 20 steps) of a linear Dyna agent."""
+    env = gymnasium.make(ENV_ID)
+    held = held_out_arrays(collect_held_out(env, held_out_sequence(seed)), 2)
+    env.close()
+    agent = make_agent("linear_dyna", params)
+    agent.setup(2, 3, seed, bounds=(LOW, HIGH))
+    # called through its entry point for the literal kind, as the compiled loop calls it (no dispatch by value)
+    entry = function_model_errors.compile((types.literal("linear_dyna"), typeof(agent.arrays_), typeof(held)))
+    start = time.process_time()
+    for _ in range(10):
+        entry("linear_dyna", agent.arrays_, held)
+    return (time.process_time() - start) / 10
 
 
 def _plain_tiles(obs: np.ndarray) -> np.ndarray:
@@ -109,6 +130,13 @@ def main(argv: list[str] | None = None) -> int:
         seconds, counters = _compiled_cpu_seconds("linear_dyna", dyna, dyna_steps, args.seed)
         planning.append((seconds, counters))
     seconds, counters = min(planning, key=lambda item: item[0])
+    swept = {**dyna, "sweeping": "prioritized"}
+    _compiled_cpu_seconds("linear_dyna", swept, 1000, args.seed)
+    sweeping = min(
+        (_compiled_cpu_seconds("linear_dyna", swept, dyna_steps, args.seed) for _ in range(REPEATS)),
+        key=lambda item: item[0],
+    )
+    measuring = min(_model_error_cpu_seconds(dyna, args.seed) for _ in range(REPEATS))
     compiled_rate, plain_rate = compiled_steps / compiled, plain_steps / plain
     ratio = compiled_rate / plain_rate
     print(f"linear Sarsa, 8 tilings of 8x8, {ENV_ID}, one core (CPU time, best of {REPEATS}):")
@@ -125,6 +153,11 @@ def main(argv: list[str] | None = None) -> int:
         f"linear Dyna, planning_steps 10, same features: {counters[1] / seconds:,.0f} planning updates/s "
         f"({dyna_steps / seconds:,.0f} real steps/s with their planning)"
     )
+    print(
+        f"  with prioritized sweeping: {sweeping[1][1] / sweeping[0]:,.0f} planning updates/s "
+        f"({dyna_steps / sweeping[0]:,.0f} real steps/s with their planning)"
+    )
+    print(f"  its held-out model errors at one evaluation point: {measuring * 1e3:,.2f} ms")
     print(other_cpu_use(before))
     print(f"reproduce: {command_line(args.quick, 'linear_speed.py')}")
     return 0

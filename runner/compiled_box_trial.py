@@ -4,10 +4,10 @@ compiled environment dynamics: agent kernels x environment kernels, resolved by 
 The loop mirrors `runner.compiled_dynamics_trial` (which serves the tabular kinds through bins) but hands the
 agent the observation itself (float32-rounded values as float64, as the step-by-step path does). Truncation at the
 step limit is the loop's, as gymnasium's `TimeLimit` does; an agent bootstraps on a truncated step. Start states
-come from a compiled stream, so this path and the step-by-step one are the same experiment in distribution. The
-function-model error columns are NaN here: the step-by-step path (`--path gymnasium`) measures them between steps
-(`runner.models.held_out`). `auto` still takes this loop for such kinds, so every kind of an experiment sees the
-same environment randomness per seed (linear-Gaussian at planning 0 equals linear Q-learning bit for bit).
+come from a compiled stream, so this path and the step-by-step one are the same experiment in distribution. At
+every evaluation point a kind with a compiled function model has its held-out errors measured in compiled code
+(`runner.models.held_out_function`), on the same held-out transitions and by the same definition as the
+step-by-step path (`runner.models.held_out`); other kinds get NaN there.
 """
 
 from __future__ import annotations
@@ -43,6 +43,9 @@ from runner.metrics import (
     TRAIN_RETURN,
     WALL_SECONDS,
 )
+from runner.models.held_out import HeldOut
+from runner.models.held_out_bins import held_out_arrays
+from runner.models.held_out_function import function_model_errors
 
 __all__ = ["BoxDynamics", "box_dynamics", "run_box_kind_trial", "run_box_trial"]
 
@@ -103,6 +106,7 @@ def run_box_trial(
     agent_stream,
     params,
     sizes,
+    held,
     env_stream,
     eval_env_stream,
     eval_stream,
@@ -118,7 +122,9 @@ def run_box_trial(
 ):
     """Run the trial of agent kind `kind` on the compiled environment `env_id`; fill `rows` (n_points x the
     columns of `runner.metrics.METRIC_COLUMNS`) and the episode arrays. `sizes` is (state size, observation size,
-    step limit). Returns the number of finished training episodes, or -1 past `time_limit` seconds (0: none)."""
+    step limit), `held` the held-out real transitions of `runner.models.held_out_bins.held_out_arrays` (no runs:
+    no model error measured). Returns the number of finished training episodes, or -1 past `time_limit` seconds
+    (0: none)."""
     state_size, obs_size, step_limit = sizes
     state = np.zeros(state_size)
     obs = np.zeros(obs_size)
@@ -183,10 +189,11 @@ def run_box_trial(
             rows[point, PLANNING_UPDATES] = counters[1]
             rows[point, MODEL_UPDATES] = counters[2]
             rows[point, MODEL_TV_ERROR] = np.nan
-            rows[point, MODEL_REWARD_ERROR] = np.nan
-            rows[point, MODEL_ERROR_1] = np.nan
-            rows[point, MODEL_ERROR_5] = np.nan
-            rows[point, MODEL_ERROR_20] = np.nan
+            one_step, reward_error, short, long = function_model_errors(kind, arrays, held)
+            rows[point, MODEL_REWARD_ERROR] = reward_error
+            rows[point, MODEL_ERROR_1] = one_step
+            rows[point, MODEL_ERROR_5] = short
+            rows[point, MODEL_ERROR_20] = long
             rows[point, ENV_PHASE] = 0
             rows[point, WALL_SECONDS] = wall_clock() - started
             rows[point, CPU_SECONDS] = measuring - cpu_started - measured
@@ -200,12 +207,13 @@ _run_box_trial_uncached = njit(cache=False)(run_box_trial.py_func)
 """The same loop for agent kinds from the user's own modules (see `runner.compiled_trial`)."""
 
 
-def run_box_kind_trial(kind: str, dynamics: BoxDynamics, *args: Any) -> int:
+def run_box_kind_trial(kind: str, dynamics: BoxDynamics, *args: Any, held: HeldOut | None = None) -> int:
     """Call `run_box_trial` for agent kind `kind` on `dynamics`, compiled once per kind, environment id and
     argument types (as `runner.compiled_dynamics_trial.run_dynamics_kind_trial`). `args` are the agent's
-    (arrays, hyper, counters, stream) and then the loop's arguments from the environment stream on."""
+    (arrays, hyper, counters, stream) and then the loop's arguments from the environment stream on; `held` the
+    held-out transitions its function model is measured on (None: none measured)."""
     sizes = (dynamics.state_size, dynamics.obs_size, dynamics.step_limit)
-    call = (dynamics.params, sizes, *args[4:])
+    call = (dynamics.params, sizes, held_out_arrays(held, dynamics.obs_size), *args[4:])
     head = args[:4]
     arg_types = tuple(typeof(arg) for arg in (*head, *call))
     key = (kind, dynamics.env_id, arg_types)

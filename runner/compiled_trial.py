@@ -104,6 +104,23 @@ def _agent_predict(kind, arrays, state, action, grid, out):
     return impl
 
 
+def agent_function_predict(kind, arrays, observation, action, out):
+    """The function-model prediction kernel of agent kind `kind` (a compile-time literal); compiled code only."""
+    raise NotImplementedError("agent_function_predict is resolved inside compiled code")
+
+
+@overload(agent_function_predict)
+def _agent_function_predict(kind, arrays, observation, action, out):
+    if not isinstance(kind, types.StringLiteral):
+        return None
+    kernel = agent_class(kind.literal_value).function_predict_kernel
+
+    def impl(kind, arrays, observation, action, out):
+        return kernel(arrays, observation, action, out)
+
+    return impl
+
+
 @overload(agent_act)
 def _agent_act(kind, arrays, hyper, state, stream):
     if not isinstance(kind, types.StringLiteral):

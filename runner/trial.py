@@ -234,7 +234,8 @@ def _run_compiled(
         held_arrays = held_out_arrays(held, facts.dynamics.obs_size)
         n_episodes = run_dynamics_kind_trial(kind, facts.dynamics, held_arrays, *agent_args, *loop_args)
     else:
-        n_episodes = run_box_kind_trial(kind, facts.box, *agent_args, *loop_args)
+        held = _held_out(spec) if agent.has_function_model() else None
+        n_episodes = run_box_kind_trial(kind, facts.box, *agent_args, *loop_args, held=held)
     if n_episodes < 0:
         raise TrialTimeout(f"the trial ran past its limit of {time_limit:g} wall seconds")
     return TrialResult(

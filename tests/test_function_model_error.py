@@ -4,13 +4,17 @@ the spread of each observation dimension; stored in their own metric columns (ol
 from pathlib import Path
 from typing import ClassVar
 
+import gymnasium as gym
 import numpy as np
 import pytest
 
+from runner.agents import make_agent
 from runner.checks import ContractError, agent_checks
 from runner.envs.line import LineWalk
 from runner.metrics import METRIC_COLUMNS
 from runner.models.held_out import collect_held_out, model_errors
+from runner.models.held_out_bins import held_out_arrays
+from runner.models.held_out_function import function_model_errors
 from runner.params import Param
 from runner.plan import PlannedTrial
 from runner.seeding import held_out_sequence
@@ -142,3 +146,53 @@ def test_the_contract_checks_what_function_models_predict():
     dict(agent_checks("test_function_model_error:LineModel", {"offset": 0.0}))["model_predicts"]()
     with pytest.raises(ContractError, match="predict gave"):
         dict(agent_checks("test_function_model_error:WrongShape", {"offset": 0.0}))["model_predicts"]()
+
+
+_LINEAR_MODELS = {
+    "linear_dyna": {"features": {"kind": "tiles", "tilings": 4, "tiles": 4, "hash_size": 0}},
+    "linear_gaussian": {"features": {"kind": "fourier", "order": 2}},
+}
+
+
+def _mountain_car_spec(kind, params, steps=600):
+    env = {"source": "gym", "id": "MountainCar-v0", "options": {}, "step_limit": None}
+    return TrialSpec.build(env, kind, params, 2, steps, every=300, episodes=1, step_cap=50, training_window=2)
+
+
+@pytest.mark.parametrize("kind", sorted(_LINEAR_MODELS))
+def test_compiled_and_step_by_step_errors_agree_on_a_trained_linear_model(kind):
+    """The same agent state and held-out set: `function_model_errors` in compiled code gives the numbers of
+    `model_errors` over the agent's Python `predict` (same definition; only the order of summation differs)."""
+    env = gym.make("MountainCar-v0")
+    held = collect_held_out(env, held_out_sequence(7))
+    agent = make_agent(kind, {**_LINEAR_MODELS[kind], "planning_steps": 0})
+    agent.setup(2, 3, 0, bounds=(env.observation_space.low, env.observation_space.high))
+    rng = np.random.default_rng(1)
+    obs, _ = env.reset(seed=1)
+    for _ in range(1500):
+        action = int(rng.integers(3))
+        nxt, reward, terminated, truncated, _ = env.step(action)
+        agent.observe(obs.astype(np.float64), action, float(reward), nxt.astype(np.float64), terminated, truncated)
+        obs = env.reset()[0] if terminated or truncated else nxt
+    python = model_errors(agent.predict, held)
+    compiled = function_model_errors(kind, agent.arrays_, held_out_arrays(held, 2))
+    assert np.all(np.isfinite(python)) and python[0] > 0.0
+    np.testing.assert_allclose(compiled, python, rtol=1e-9, atol=0)
+
+
+@pytest.mark.parametrize("kind", sorted(_LINEAR_MODELS))
+def test_both_trial_paths_measure_the_linear_models_on_the_same_held_out_set(kind):
+    """Each path fills the columns at every point; before any learning both models are the same (zero), so the
+    two paths' first errors are equal, which they are only if both judge on the same held-out transitions."""
+    spec = _mountain_car_spec(kind, {**_LINEAR_MODELS[kind], "planning_steps": 1}).as_dict()
+    compiled, stepped = run_trial(spec, "compiled"), run_trial(spec, "gymnasium")
+    assert compiled.trial_path == "compiled" and stepped.trial_path == "gymnasium"
+    for column in ("model_error_1", "model_error_5", "model_error_20", "model_reward_error"):
+        assert np.all(np.isfinite(compiled.rows[column])) and np.all(np.isfinite(stepped.rows[column])), column
+        assert compiled.rows[column][0] == pytest.approx(stepped.rows[column][0], rel=1e-12), column
+
+
+def test_kinds_without_a_function_model_leave_the_columns_empty_on_the_compiled_path():
+    rows = run_trial(_mountain_car_spec("linear_q_learning", _LINEAR_MODELS["linear_dyna"]).as_dict(), "compiled").rows
+    for column in ("model_error_1", "model_error_5", "model_error_20", "model_reward_error"):
+        assert np.isnan(rows[column]).all(), column

@@ -16,11 +16,13 @@ from runner.trial import run_trial
 from runner.trial_spec import TrialSpec
 
 FEATURES = {"kind": "tiles", "tilings": 4, "tiles": 4, "hash_size": 256}
+MODEL_ERRORS = ("model_reward_error", "model_error_1", "model_error_5", "model_error_20")
+"""Measured for linear Dyna's model, empty for the model-free kind."""
 MOUNTAIN_CAR = (np.array([-1.2, -0.07]), np.array([0.6, 0.07]))
 
 
 def test_planning_zero_is_linear_q_learning_bit_for_bit():
-    """As Dyna-Q at n = 0 is Q-learning: same seed, same rows, same weights (model columns aside)."""
+    """As Dyna-Q at n = 0 is Q-learning: same seed, same rows, same weights (the model's columns aside)."""
     env = {"source": "gym", "id": "MountainCar-v0", "options": {}, "step_limit": None}
     common = {"alpha": 0.5, "gamma": 1.0, "epsilon": 0.1, "features": FEATURES}
 
@@ -33,9 +35,10 @@ def test_planning_zero_is_linear_q_learning_bit_for_bit():
     dyna, plain = run("linear_dyna", planning_steps=0), run("linear_q_learning")
     assert np.array_equal(dyna.final_values, plain.final_values)
     for column, values in plain.rows.items():
-        if column not in (*TIMING_COLUMNS, "model_updates"):
+        if column not in (*TIMING_COLUMNS, "model_updates", *MODEL_ERRORS):
             assert np.array_equal(dyna.rows[column], values, equal_nan=True), column
     assert dyna.rows["model_updates"].tolist() == [0, 400, 800, 1200]
+    assert np.isfinite(dyna.rows["model_error_1"]).all() and np.isnan(plain.rows["model_error_1"]).all()
     assert not np.array_equal(run("linear_dyna", planning_steps=3).final_values, plain.final_values)
 
 

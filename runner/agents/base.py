@@ -15,6 +15,7 @@ import numpy as np
 from runner.agents.kernels import q_table_greedy
 from runner.errors import EnvironmentSourceError
 from runner.models.bin_prediction import no_prediction
+from runner.models.function_prediction import no_function_prediction
 from runner.models.table_error import no_model_error
 from runner.params import Param, resolve_params
 from runner.streams import as_stream
@@ -156,6 +157,15 @@ class TabularAgent:
     def has_bin_model(self) -> bool:
         """Whether the kind predicts next observations on bins (its model error is measured on held-out data)."""
         return self.predict_kernel is not TabularAgent.predict_kernel
+
+    function_predict_kernel = staticmethod(no_function_prediction)
+    """Compiled (arrays, observation, action, out) -> predicted reward, writing the predicted next observation
+    into `out`, for compiled kinds with a learned function model on box observations
+    (`runner.models.function_prediction`); kinds without one keep this default, which predicts NaN."""
+
+    def has_function_model(self) -> bool:
+        """Whether the kind's compiled kernels predict next observations (the compiled box loop measures them)."""
+        return self.function_predict_kernel is not TabularAgent.function_predict_kernel
 
     def model_error(self, table: tuple) -> tuple[float, float]:
         """The learned model's error against a true table (see `model_error_kernel`)."""

@@ -151,12 +151,19 @@ class LinearSarsa(LinearAgent):
 class PlanningLinearAgent(LinearAgent):
     """A linear kind that learns a model every real step and makes `planning_steps` simulated updates per step."""
 
+    def spends_whole_budget(self) -> bool:
+        """Whether every real step makes exactly `planning_steps` simulated updates (else at most that many)."""
+        return True
+
     def counter_problems(self, real_steps):
         c = self.counters()
         n = self._params["planning_steps"]
         problems = super().counter_problems(real_steps)
         if c["real_updates"] != real_steps or c["model_updates"] != real_steps:
             problems.append(f"real and model updates should both equal real steps {real_steps}: {c}")
-        if c["planning_updates"] != n * c["real_updates"]:
-            problems.append(f"planning_updates {c['planning_updates']} != n x real_updates = {n * c['real_updates']}")
+        budget = n * c["real_updates"]
+        if self.spends_whole_budget() and c["planning_updates"] != budget:
+            problems.append(f"planning_updates {c['planning_updates']} != n x real_updates = {budget}")
+        if c["planning_updates"] > budget:
+            problems.append(f"planning_updates {c['planning_updates']} exceed n x real_updates = {budget}")
         return problems

@@ -99,6 +99,19 @@ def posterior_update(cov, mean, action, idx, val, n, y, noise_var, gain, pred):
 
 
 @njit(cache=True)
+def linear_gaussian_predict(arrays, obs, action, out):
+    """The predictive mean's next observation (obs plus the mean change) into `out`; returns its mean reward.
+    The whole mean output (change, reward, end) stays in the scratch vector `_PRED`."""
+    pred = arrays[_PRED]
+    n = features_into(arrays, obs, 0)
+    predictive_mean(arrays[_MEAN], action, arrays[IDX][0], arrays[VAL][0], n, pred)
+    dims = obs.shape[0]
+    for d in range(dims):
+        out[d] = obs[d] + pred[d]
+    return pred[dims]
+
+
+@njit(cache=True)
 def _simulate(arrays, hyper, obs, action, rng):
     """One simulated step from `obs` under `action`: a value update, the next observation into _SIM_NEXT;
     returns whether the simulated episode ended."""
@@ -255,11 +268,11 @@ class LinearGaussian(PlanningLinearAgent):
 
     def _predict(self, observation: np.ndarray, action: int) -> tuple[np.ndarray, float, float]:
         obs = np.asarray(observation, dtype=np.float64)
-        out = np.zeros(obs.size + 2)
-        arrays = self.arrays_
-        n = features_into(arrays, obs, 0)
-        predictive_mean(arrays[_MEAN], int(action), arrays[IDX][0], arrays[VAL][0], n, out)
-        return obs + out[: obs.size], float(out[obs.size]), float(np.clip(out[obs.size + 1], 0.0, 1.0))
+        out = np.zeros(obs.size)
+        reward = linear_gaussian_predict(self.arrays_, obs, int(action), out)
+        ended = self.arrays_[_PRED][obs.size + 1]  # the mean's last output, left there by the kernel
+        return out, float(reward), float(np.clip(ended, 0.0, 1.0))
 
     act_kernel = staticmethod(linear_q_act)
     observe_kernel = staticmethod(linear_gaussian_observe)
+    function_predict_kernel = staticmethod(linear_gaussian_predict)

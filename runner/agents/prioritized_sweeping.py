@@ -16,6 +16,7 @@ from runner.agents.dyna_q import (
     record_last_outcome,
 )
 from runner.agents.kernels import epsilon_greedy, q_learning_update
+from runner.agents.priority_queue import queue_pop, queue_raise
 from runner.params import PLANNING_BUDGET, Param
 from runner.tags import AgentTags
 
@@ -23,65 +24,6 @@ __all__ = ["PrioritizedSweeping"]
 
 _ALPHA, _GAMMA, _EPSILON, _BUDGET, _THETA = range(5)
 _Q, _NEXT, _REWARD, _TERMINAL, _SEEN, _SEEN_LIST, _N_SEEN, _PRED, _N_PRED, _HEAP, _POS, _PRI, _SIZE = range(13)
-
-
-@njit(cache=True)
-def _swap(heap, pos, i, j):
-    a, b = heap[i], heap[j]
-    heap[i], heap[j] = b, a
-    pos[b], pos[a] = i, j
-
-
-@njit(cache=True)
-def _sift_up(heap, pos, pri, i):
-    while i > 0:
-        parent = (i - 1) // 2
-        if pri[heap[parent]] >= pri[heap[i]]:
-            break
-        _swap(heap, pos, i, parent)
-        i = parent
-
-
-@njit(cache=True)
-def _sift_down(heap, pos, pri, i, size):
-    while True:
-        largest = i
-        for child in (2 * i + 1, 2 * i + 2):
-            if child < size and pri[heap[child]] > pri[heap[largest]]:
-                largest = child
-        if largest == i:
-            return
-        _swap(heap, pos, i, largest)
-        i = largest
-
-
-@njit(cache=True)
-def queue_raise(arrays, pair, priority):
-    """Put a pair in the queue with this priority, or raise its priority if it waits with a lower one."""
-    heap, pos, pri, size = arrays[_HEAP], arrays[_POS], arrays[_PRI], arrays[_SIZE]
-    if pos[pair] >= 0:
-        if priority > pri[pair]:
-            pri[pair] = priority
-            _sift_up(heap, pos, pri, pos[pair])
-        return
-    pri[pair] = priority
-    heap[size[0]] = pair
-    pos[pair] = size[0]
-    size[0] += 1
-    _sift_up(heap, pos, pri, size[0] - 1)
-
-
-@njit(cache=True)
-def queue_pop(arrays):
-    """The waiting pair with the largest priority (removed from the queue)."""
-    heap, pos, pri, size = arrays[_HEAP], arrays[_POS], arrays[_PRI], arrays[_SIZE]
-    top = heap[0]
-    size[0] -= 1
-    if size[0] > 0:
-        _swap(heap, pos, 0, size[0])
-        _sift_down(heap, pos, pri, 0, size[0])
-    pos[top] = -1
-    return top
 
 
 @njit(cache=True)
@@ -120,13 +62,14 @@ def prioritized_sweeping_observe(arrays, hyper, counters, state, action, reward,
             preds[next_state, n_pred[next_state]] = pair
             n_pred[next_state] += 1
     counters[2] += 1
+    queue = (arrays[_HEAP], arrays[_POS], arrays[_PRI], arrays[_SIZE])
     priority = _priority(arrays, gamma, state, action)
     if priority > theta:
-        queue_raise(arrays, pair, priority)
+        queue_raise(*queue, pair, priority)
     budget = np.int64(hyper[_BUDGET])
     done = 0
-    while done < budget and arrays[_SIZE][0] > 0:
-        top = queue_pop(arrays)
+    while done < budget and queue[3][0] > 0:
+        top = queue_pop(*queue)
         s = top // n_actions
         a = top % n_actions
         q_learning_update(
@@ -141,7 +84,7 @@ def prioritized_sweeping_observe(arrays, hyper, counters, state, action, reward,
                 continue  # the model's last outcome of that pair no longer leads here
             p = _priority(arrays, gamma, bs, ba)
             if p > theta:
-                queue_raise(arrays, before, p)
+                queue_raise(*queue, before, p)
     counters[1] += done
 
 

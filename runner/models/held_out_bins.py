@@ -22,7 +22,7 @@ from runner.envs.bins import bin_centres, bin_index
 from runner.models.bin_prediction import grid_arrays
 from runner.models.held_out import ROLLOUT_STEPS, HeldOut
 
-__all__ = ["bin_arrays", "bin_model_errors", "bin_predictor", "held_out_arrays"]
+__all__ = ["bin_arrays", "bin_model_errors", "bin_predictor", "held_out_arrays", "root_mean", "scaled_squares"]
 
 _SHORT, _LONG = ROLLOUT_STEPS
 
@@ -71,7 +71,8 @@ def bin_predictor(agent: Any, bins: tuple, grid: tuple) -> Callable[[np.ndarray,
 
 
 @njit(cache=True)
-def _squares(predicted, real, spread):
+def scaled_squares(predicted, real, spread):
+    """Sum of squared errors over the dimensions that vary, each divided by its spread."""
     total = 0.0
     for d in range(real.shape[0]):
         if spread[d] > 0:
@@ -80,7 +81,8 @@ def _squares(predicted, real, spread):
 
 
 @njit(cache=True)
-def _rms(total, count, varying):
+def root_mean(total, count, varying):
+    """Root mean of a sum of squares over `count` transitions and `varying` dimensions; NaN when empty."""
     if count == 0 or varying == 0:
         return np.nan
     return np.sqrt(total / (count * varying))
@@ -112,21 +114,21 @@ def bin_model_errors(kind, arrays, bins, grid, held):
             before = starts[i] if t == 0 else observations[i, t - 1]
             s = bin_index(before, edges, edge_offsets, strides)
             reward = agent_predict(literally(kind), arrays, s, actions[i, t], grid, predicted)
-            one_step += _squares(predicted, observations[i, t], spread)
+            one_step += scaled_squares(predicted, observations[i, t], spread)
             reward_error += abs(reward - rewards[i, t])
             transitions += 1
             s = bin_index(imagined, edges, edge_offsets, strides)
             agent_predict(literally(kind), arrays, s, actions[i, t], grid, imagined)
             if t + 1 == _SHORT:
-                short += _squares(imagined, observations[i, t], spread)
+                short += scaled_squares(imagined, observations[i, t], spread)
                 n_short += 1
             if t + 1 == _LONG:
-                long += _squares(imagined, observations[i, t], spread)
+                long += scaled_squares(imagined, observations[i, t], spread)
                 n_long += 1
     mean_reward_error = reward_error / transitions if transitions > 0 else np.nan
     return (
-        _rms(one_step, transitions, varying),
+        root_mean(one_step, transitions, varying),
         mean_reward_error,
-        _rms(short, n_short, varying),
-        _rms(long, n_long, varying),
+        root_mean(short, n_short, varying),
+        root_mean(long, n_long, varying),
     )

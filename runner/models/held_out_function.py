@@ -1,0 +1,67 @@
+"""Held-out model errors of a compiled function model on box observations, in compiled code.
+
+The compiled loop on compiled dynamics with box observations (`runner.compiled_box_trial`) calls
+`function_model_errors` at each evaluation point on the trial's held-out transitions, passed in as arrays
+(`runner.models.held_out_bins.held_out_arrays`: the same runs `runner.models.held_out.collect_held_out` records for
+the step-by-step path). It computes what `runner.models.held_out.model_errors` computes from the agent's `predict`
+(root mean square over transitions and varying dimensions, each divided by its spread; mean absolute reward
+error; open-loop errors after `ROLLOUT_STEPS` of the model's own predictions), through the kind's
+`function_predict_kernel` (`runner.models.function_prediction`); `tests/test_function_model_error.py` checks
+both give the same numbers.
+"""
+
+import numpy as np
+from numba import literally, njit
+
+from runner.compiled_trial import agent_function_predict
+from runner.models.held_out import ROLLOUT_STEPS
+from runner.models.held_out_bins import root_mean, scaled_squares
+
+__all__ = ["function_model_errors"]
+
+_SHORT, _LONG = ROLLOUT_STEPS
+
+
+@njit(cache=True)
+def function_model_errors(kind, arrays, held):
+    """(one-step error, mean absolute reward error, open-loop errors after 5 and 20 steps) of agent kind `kind`'s
+    function model over the held-out arrays (see `runner.models.held_out`); NaN when there are no runs."""
+    starts, actions, observations, rewards, lengths, spread = held
+    dim = starts.shape[1]
+    varying = 0
+    for d in range(dim):
+        if spread[d] > 0:
+            varying += 1
+    predicted = np.zeros(dim)
+    imagined = np.zeros(dim)
+    following = np.zeros(dim)
+    one_step = 0.0
+    reward_error = 0.0
+    transitions = 0
+    short = 0.0
+    n_short = 0
+    long = 0.0
+    n_long = 0
+    for i in range(starts.shape[0]):
+        imagined[:] = starts[i]
+        for t in range(lengths[i]):
+            before = starts[i] if t == 0 else observations[i, t - 1]
+            reward = agent_function_predict(literally(kind), arrays, before, actions[i, t], predicted)
+            one_step += scaled_squares(predicted, observations[i, t], spread)
+            reward_error += abs(reward - rewards[i, t])
+            transitions += 1
+            agent_function_predict(literally(kind), arrays, imagined, actions[i, t], following)
+            imagined[:] = following
+            if t + 1 == _SHORT:
+                short += scaled_squares(imagined, observations[i, t], spread)
+                n_short += 1
+            if t + 1 == _LONG:
+                long += scaled_squares(imagined, observations[i, t], spread)
+                n_long += 1
+    mean_reward_error = reward_error / transitions if transitions > 0 else np.nan
+    return (
+        root_mean(one_step, transitions, varying),
+        mean_reward_error,
+        root_mean(short, n_short, varying),
+        root_mean(long, n_long, varying),
+    )
