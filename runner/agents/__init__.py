@@ -48,6 +48,7 @@ AGENTS = Registry(
         "linear_dyna": "runner.agents.linear_dyna:LinearDyna",
         "linear_gaussian": "runner.agents.linear_gaussian:LinearGaussian",
         "q_network": "runner.agents.q_network:QNetwork",
+        "soft_actor_critic": "runner.agents.soft_actor_critic:SoftActorCritic",
     },
     base=(TabularAgent, NeuralAgent),
     base_name="runner.agents.TabularAgent or runner.agents.NeuralAgent",

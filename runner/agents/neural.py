@@ -183,6 +183,18 @@ class NeuralAgent:
         """Negative counters; kinds add their own accounting."""
         return [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
 
+    def replay_problems(self, real_steps: int) -> list[str]:
+        """The accounting of model-free replay kinds: real updates as the core's `updates_after(real_steps)`
+        says, and no planning or model updates."""
+        problems = []
+        counts = self.counters()
+        expected = self.core_.updates_after(real_steps)
+        if counts["real_updates"] != expected:
+            problems.append(f"real_updates {counts['real_updates']} != {expected} expected after {real_steps} steps")
+        if counts["planning_updates"] or counts["model_updates"]:
+            problems.append(f"a model-free agent counted planning or model updates: {counts}")
+        return problems
+
     def has_bin_model(self) -> bool:
         """Neural kinds never predict on a grid of bins (they take the box itself)."""
         return False
