@@ -240,3 +240,38 @@ def test_setup_refuses_spaces_the_kind_does_not_take():
         make_agent("soft_actor_critic", TINY).setup(box, gym.spaces.Box(-np.inf, np.inf, shape=(1,)), 0)
     with pytest.raises(EnvironmentSourceError, match="discrete \\(from 0\\) actions"):
         make_agent("q_network", {}).setup(box, gym.spaces.Box(-1.0, 1.0, shape=(1,)), 0)
+
+
+_STORED = """\
+experiment: swing
+seeds: 1
+real_steps: 400
+evaluation: {every: 200, episodes: 2, step_cap: 200}
+environments:
+  - gym: Pendulum-v1
+agents:
+  - label: sac
+    kind: soft_actor_critic
+    params: {hidden_layers: 1, hidden_units: 16, batch_size: 16, buffer_size: 1000, learning_starts: 50}
+"""
+
+
+def test_stored_trials_rerun_bit_for_bit_on_both_paths(tmp_path, capsys):
+    """`stepmeter rerun --all` on a store holding a compiled and a step-by-step trial."""
+    from runner.cli import main
+    from runner.run import RunOptions, run_experiment
+
+    path = tmp_path / "swing.yaml"
+    path.write_text(_STORED)
+    results = tmp_path / "results"
+    run_experiment(path, results_root=results, options=RunOptions(jobs=1))
+    path.write_text(_STORED.replace("seeds: 1", "seeds: 2"))
+    run_experiment(path, results_root=results, options=RunOptions(jobs=1, trial_path="gymnasium"))
+    capsys.readouterr()
+    assert main(["rerun", str(results / "swing"), "--all"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[-1] == "2 of 2 re-run trials reproduced their stored rows"
+    assert sorted(line.rsplit("(", 1)[1] for line in out[:-1]) == [
+        "compiled path): same rows bit for bit",
+        "gymnasium path): same rows bit for bit",
+    ]
