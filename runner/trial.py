@@ -186,7 +186,9 @@ def environment_path(env_spec: dict[str, Any]) -> str:
     if facts.dynamics is not None:
         return "compiled kinds run whole trials compiled (compiled dynamics through bins)"
     if facts.box is not None and facts.box.action_kind == "box":
-        return "neural kinds that take box actions run whole trials compiled (JAX dynamics)"
+        if env_spec.get("id") in JAX_DYNAMICS_IDS:
+            return "neural kinds that take box actions run whole trials compiled (JAX dynamics)"
+        return "trials run step by step"
     if facts.box is not None:
         return "compiled kinds that take boxes run whole trials compiled (compiled dynamics)"
     return "trials run step by step"
