@@ -44,6 +44,7 @@ import jax.numpy as jnp
 import optax
 
 from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
+from runner.neural.q_network import ReplayBuffer
 
 __all__ = ["LOG_STD_RANGE", "SACState", "SoftActorCriticCore", "squashed_log_prob"]
 
@@ -51,21 +52,10 @@ LOG_STD_RANGE = (-20.0, 2.0)
 """Where the policy's log standard deviations are clipped (common practice)."""
 
 
-class SACBuffer(NamedTuple):
-    """A ring buffer of real transitions (actions squashed into [-1, 1]); `size` stored, `slot` written next."""
-
-    obs: jax.Array
-    actions: jax.Array
-    rewards: jax.Array
-    next_obs: jax.Array
-    terminated: jax.Array
-    size: jax.Array
-    slot: jax.Array
-
-
 class SACState(NamedTuple):
     """Everything soft actor-critic learns and draws. `online` is the policy network (what evaluation acts with);
-    `critics` and `targets` stack the two Q networks on a leading axis of 2."""
+    `critics` and `targets` stack the two Q networks on a leading axis of 2; the buffer keeps actions squashed into
+    [-1, 1], shape (buffer_size, action_size)."""
 
     online: MLPParams
     critics: MLPParams
@@ -74,7 +64,7 @@ class SACState(NamedTuple):
     policy_opt: Any
     critic_opt: Any
     alpha_opt: Any
-    buffer: SACBuffer
+    buffer: ReplayBuffer
     steps: jax.Array
     updates: jax.Array
     key: jax.Array
@@ -139,7 +129,7 @@ class SoftActorCriticCore:
         critics = jax.vmap(lambda k: init_mlp(k, critic_sizes, jnp.float32))(jax.random.split(critic_key, 2))
         log_alpha = jnp.asarray(math.log(self.temperature), jnp.float32)
         n, d, k = self.buffer_size, self.obs_size, self.action_size
-        buffer = SACBuffer(
+        buffer = ReplayBuffer(
             obs=jnp.zeros((n, d), jnp.float32),
             actions=jnp.zeros((n, k), jnp.float32),
             rewards=jnp.zeros((n,), jnp.float32),
@@ -179,7 +169,7 @@ class SoftActorCriticCore:
     def from_box(self, action: jax.Array) -> jax.Array:
         """An environment action moved back into [-1, 1]^k (what the critics take)."""
         centre, half = self._box()
-        return jnp.clip((action.astype(jnp.float32) - centre) / half, -1.0, 1.0)
+        return jnp.clip((action.astype(jnp.float32) - centre) / jnp.where(half > 0, half, 1.0), -1.0, 1.0)
 
     def policy_outputs(self, policy: MLPParams, obs: jax.Array) -> tuple[jax.Array, jax.Array]:
         """(mean, clipped log standard deviation) of u for observations (..., obs_size)."""
@@ -227,7 +217,7 @@ class SoftActorCriticCore:
         """Store one real transition, then learn when an update is due."""
         buf = state.buffer
         i = buf.slot
-        buf = SACBuffer(
+        buf = ReplayBuffer(
             obs=buf.obs.at[i].set(obs.astype(jnp.float32)),
             actions=buf.actions.at[i].set(self.from_box(action)),
             rewards=buf.rewards.at[i].set(reward.astype(jnp.float32)),
