@@ -10,9 +10,10 @@ the core gets the number of actions; a kind declaring `"box"` in its tags' actio
 bounds, and its core is built by `core.from_params(params, obs_size, action_size, bounds=(low, high))` (tuples of
 floats), acts with float32 arrays of shape (action_size,) and learns from them. An environment whose actions the
 kind does not take is refused at `check` from the tags (`runner.tags.pairing_problem`), and at setup with one
-line. This module
-imports no JAX, so `stepmeter list` and `check` work without the `neural` extra and an experiment naming a neural
-kind without it gets one line saying what to install (`neural_requirement`).
+line.
+
+This module imports no JAX, so `stepmeter list` and `check` work without the `neural` extra and an experiment
+naming a neural kind without it gets one line saying what to install (`neural_requirement`).
 
 On an environment with JAX dynamics (`runner.neural.JAX_DYNAMICS_IDS`) a trial runs as compiled JAX loops
 (`runner.neural.trial`); elsewhere the same core runs one call per real step through gymnasium (the methods below).
