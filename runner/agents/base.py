@@ -21,10 +21,40 @@ from runner.params import Param, resolve_params
 from runner.streams import as_stream
 from runner.tags import AgentTags
 
-__all__ = ["COUNTER_NAMES", "TabularAgent"]
+__all__ = ["COUNTER_NAMES", "SteppedAgent", "TabularAgent"]
 
 COUNTER_NAMES = ("real_updates", "planning_updates", "model_updates")
 """Order of `counters_`: value updates from real transitions, from the model, and model updates."""
+
+
+class SteppedAgent:
+    """What the kinds driven step by step from Python (neural kinds, own agents) share: the registry's class
+    attributes and checked parameters; they never search a game's rules, plan on a true table or note a label."""
+
+    kind: ClassVar[str] = ""
+    summary: ClassVar[str] = ""
+    source: ClassVar[str] = ""
+    schema: ClassVar[tuple[Param, ...]] = ()
+
+    def __init__(self, **params: Any) -> None:
+        self._params = resolve_params(self.schema, params)
+
+    def get_params(self) -> dict[str, Any]:
+        """Exactly the checked parameters the agent was built with (defaults filled), so it can be rebuilt."""
+        return dict(self._params)
+
+    @classmethod
+    def needs_rules(cls) -> bool:
+        """Never: these kinds do not search a game's rules."""
+        return False
+
+    def uses_table(self) -> bool:
+        """Never: these kinds do not plan on the true table."""
+        return False
+
+    def label_note(self) -> str:
+        """No note on the label."""
+        return ""
 
 
 class TabularAgent:

@@ -22,9 +22,9 @@ from typing import Any, ClassVar
 import gymnasium as gym
 import numpy as np
 
-from runner.agents.base import COUNTER_NAMES
+from runner.agents.base import COUNTER_NAMES, SteppedAgent
 from runner.errors import EnvironmentSourceError
-from runner.params import Param, resolve_params
+from runner.params import Param
 from runner.registry import import_entry_point
 from runner.seeding import jax_key_data
 from runner.tags import AgentTags
@@ -57,7 +57,7 @@ def neural_requirement(kind: str) -> str | None:
     )
 
 
-class NeuralAgent:
+class NeuralAgent(SteppedAgent):
     """Base class of neural kinds: parameters and tags in Python, acting and learning in JAX."""
 
     kind: ClassVar[str] = ""
@@ -70,26 +70,6 @@ class NeuralAgent:
     check_params: ClassVar[dict[str, Any]] = {}
     """Parameters the contract checks (`runner.checks`) use when given none: their tasks last a few thousand real
     steps, too short for defaults sized for tens of thousands."""
-
-    def __init__(self, **params: Any) -> None:
-        self._params = resolve_params(self.schema, params)
-
-    def get_params(self) -> dict[str, Any]:
-        """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
-        return dict(self._params)
-
-    @classmethod
-    def needs_rules(cls) -> bool:
-        """Neural kinds never search a game's rules."""
-        return False
-
-    def uses_table(self) -> bool:
-        """Neural kinds never plan on the true table."""
-        return False
-
-    def label_note(self) -> str:
-        """No note on the label."""
-        return ""
 
     def setup(self, observation_space: gym.Space, action_space: gym.Space, stream: Any) -> None:
         """Build the JAX core for these spaces and its initial state from the agent's stream (a seed, a
