@@ -1,4 +1,9 @@
-"""Session set-up: JAX's persistent compilation cache for every test, in the folder `stepmeter run` uses.
+"""Session set-up: one BLAS thread, as `stepmeter run`'s workers have, and JAX's persistent compilation cache for
+every test, in the folder `stepmeter run` uses.
+
+OpenBLAS, MKL, BLIS and OpenMP get one thread each unless the variable is set (`runner.workers.THREAD_VARIABLES`):
+on a busy machine OpenBLAS's spinning threads made the GP tests' float64 factorisations tens of times slower, and
+a test process that compares its rows with a worker's then runs the same thread count.
 
 The neural kinds' trials turn the cache on themselves (`runner.neural.trial`), but the model tests call JAX
 directly: with the cache on, a program compiled by an earlier session, or by an earlier test under another jitted
@@ -11,6 +16,8 @@ before JAX is imported, so nothing here imports it; a folder the user chose (`JA
 import os
 from pathlib import Path
 
+from runner.workers import THREAD_VARIABLES
+
 
 def _jax_cache_folder() -> str | None:
     """The folder of `runner.neural.trial._use_compilation_cache`, or None when the user turned it off."""
@@ -22,6 +29,8 @@ def _jax_cache_folder() -> str | None:
 
 
 def pytest_configure(config) -> None:
+    for name in THREAD_VARIABLES:
+        os.environ.setdefault(name, "1")
     folder = _jax_cache_folder()
     if folder is not None and "JAX_COMPILATION_CACHE_DIR" not in os.environ:
         os.environ["JAX_COMPILATION_CACHE_DIR"] = folder
