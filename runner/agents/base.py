@@ -21,15 +21,15 @@ from runner.params import Param, resolve_params
 from runner.streams import as_stream
 from runner.tags import AgentTags
 
-__all__ = ["COUNTER_NAMES", "SteppedAgent", "TabularAgent"]
+__all__ = ["COUNTER_NAMES", "KindParams", "SteppedAgent", "TabularAgent"]
 
 COUNTER_NAMES = ("real_updates", "planning_updates", "model_updates")
 """Order of `counters_`: value updates from real transitions, from the model, and model updates."""
 
 
-class SteppedAgent:
-    """What the kinds driven step by step from Python (neural kinds, own agents) share: the registry's class
-    attributes and checked parameters; they never search a game's rules, plan on a true table or note a label."""
+class KindParams:
+    """What every agent kind has: the registry's class attributes, and the parameters it was built with, checked
+    against its schema with defaults filled."""
 
     kind: ClassVar[str] = ""
     summary: ClassVar[str] = ""
@@ -40,8 +40,13 @@ class SteppedAgent:
         self._params = resolve_params(self.schema, params)
 
     def get_params(self) -> dict[str, Any]:
-        """Exactly the checked parameters the agent was built with (defaults filled), so it can be rebuilt."""
+        """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
         return dict(self._params)
+
+
+class SteppedAgent(KindParams):
+    """What the kinds driven step by step from Python (neural kinds, own agents) share: they never search a
+    game's rules, plan on a true table or note a label."""
 
     @classmethod
     def needs_rules(cls) -> bool:
@@ -57,20 +62,8 @@ class SteppedAgent:
         return ""
 
 
-class TabularAgent:
+class TabularAgent(KindParams):
     """Base class: parameters in, arrays and compiled kernels out."""
-
-    kind: ClassVar[str] = ""
-    summary: ClassVar[str] = ""
-    source: ClassVar[str] = ""
-    schema: ClassVar[tuple[Param, ...]] = ()
-
-    def __init__(self, **params: Any) -> None:
-        self._params = resolve_params(self.schema, params)
-
-    def get_params(self) -> dict[str, Any]:
-        """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
-        return dict(self._params)
 
     tags: ClassVar[AgentTags] = AgentTags()
     """What the kind takes and needs (see `runner.tags.AgentTags`): discrete observations and actions, compiled
