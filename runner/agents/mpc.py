@@ -86,20 +86,20 @@ class ModelPredictiveControl(NeuralAgent):
     )
 
     check_params: ClassVar[dict[str, Any]] = {
-        "horizon": 5,
-        "candidates": 16,
+        "horizon": 6,
+        "candidates": 32,
         "iterations": 2,
         "elites": 4,
-        "particles": 2,
+        "particles": 0,
         "gamma": 0.9,
         "members": 2,
         "hidden_layers": 1,
         "hidden_units": 16,
         "model_epochs": 20,
         "model_learning_rate": 3e-3,
-        "buffer_size": 4000,
+        "buffer_size": 512,
         "learning_starts": 100,
-        "model_every": 200,
+        "model_every": 500,
     }
 
     def observe(
