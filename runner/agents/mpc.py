@@ -32,7 +32,7 @@ class ModelPredictiveControl(NeuralAgent):
         "Gaussian process: Rasmussen & Williams (2006), Deisenroth & Rasmussen (2011)"
     )
     core = "runner.neural.mpc:MPCCore"
-    tags = AgentTags(observations=("box",), learned_model="function", engine="jax")
+    tags = AgentTags(observations=("box",), actions=("discrete", "box"), learned_model="function", engine="jax")
     schema = (
         Param(
             "planner", "choice", "cem", "cem (cross-entropy method) or shooting (random)", choices=("cem", "shooting")

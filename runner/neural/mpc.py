@@ -153,11 +153,14 @@ class MPCCore:
         params: dict[str, Any],
         obs_size: int,
         n_actions: int,
-        action_bounds: tuple[np.ndarray, np.ndarray] | None = None,
+        bounds: tuple[tuple[float, ...], tuple[float, ...]] | None = None,
     ) -> MPCCore:
-        """The core of an `mpc` agent's checked parameters (`runner.agents.mpc`); Box actions give their bounds."""
-        low, high = ((), ()) if action_bounds is None else (tuple(map(float, b)) for b in action_bounds)
-        return cls(int(obs_size), int(n_actions), low, high, **params)
+        """The core of an `mpc` agent's checked parameters (`runner.agents.mpc`): `n_actions` discrete actions,
+        or with `bounds` (low, high) a Box of `n_actions` dimensions."""
+        if bounds is None:
+            return cls(int(obs_size), int(n_actions), **params)
+        low, high = (tuple(float(v) for v in side) for side in bounds)
+        return cls(int(obs_size), 0, low, high, **params)
 
     @property
     def discrete(self) -> bool:
