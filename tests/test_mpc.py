@@ -96,7 +96,9 @@ def test_categorical_cem_finds_the_target_sequence():
 class _TrueCartPole:
     """The DynamicsModel interface (`runner.neural.model`) over CartPole's true JAX dynamics: a perfect model."""
 
-    encoding: ActionEncoding = ActionEncoding(2)
+    @property
+    def encoding(self) -> ActionEncoding:
+        return ActionEncoding(2)
 
     def predict(self, params, states, actions):
         step = jax.vmap(jax_dynamics("CartPole-v1").step, in_axes=(0, 0, None))
@@ -141,9 +143,16 @@ def test_with_the_true_model_mpc_balances_cartpole(planner, horizon, candidates)
         inputs = PlanInputs(jnp.asarray(PARAMS), None, None, jax.random.key(5))
         for _ in range(200):
             action = int(core.greedy(inputs, jnp.asarray(obs, jnp.float64)))
-            obs, _, terminated, truncated, _ = env.step(action)
+            obs, _, terminated, _, _ = env.step(action)
             assert not terminated
     env.close()
+
+
+def test_chunks_end_at_refits_and_evaluation_points():
+    core = MPCCore(4, 2, learning_starts=100, model_every=250)
+    assert core.refit_steps(1000) == [100, 350, 600, 850]
+    assert _chunk_plan(1000, 500, core.refit_steps(1000)) == [[100, 250, 150], [100, 250, 150]]
+    assert _chunk_plan(400, 200, [100, 200, 300, 400]) == [[100, 100], [100, 100]]
 
 
 @pytest.fixture(scope="module")

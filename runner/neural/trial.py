@@ -19,6 +19,7 @@ bit on the same machine. Episodes are truncated at the environment's step limit 
 from __future__ import annotations
 
 import functools
+import itertools
 import math
 import os
 import time
@@ -156,7 +157,7 @@ def _chunk_plan(budget: int, every: int, breaks: list[int] | tuple[int, ...] = (
         end = min(start + every, budget)
         cuts = sorted({start, end, *(b for b in breaks if start < b < end)})
         sizes = []
-        for left, right in zip(cuts[:-1], cuts[1:], strict=False):
+        for left, right in itertools.pairwise(cuts):
             span = right - left
             sizes += [CHUNK_STEPS] * (span // CHUNK_STEPS) + ([span % CHUNK_STEPS] if span % CHUNK_STEPS else [])
         plan.append(sizes)
