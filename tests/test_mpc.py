@@ -35,6 +35,7 @@ TINY = {
     "learning_starts": 100,
     "model_every": 100,
     "buffer_size": 256,
+    "value_bootstrap": True,
 }
 CARTPOLE = {"source": "gym", "id": "CartPole-v1", "options": {}, "step_limit": None}
 COMPARED = [c for c in METRIC_COLUMNS if c not in TIMING_COLUMNS]
@@ -172,7 +173,7 @@ def test_compiled_trial_rows_repeat_bit_for_bit_and_count_what_they_say(compiled
     per_plan = 16 * 2 * 5 * 2  # candidates x particles x horizon x iterations
     assert list(rows["planning_updates"]) == [0, 100 * per_plan, 300 * per_plan]
     assert list(rows["model_updates"]) == [0, 2, 4]  # refits after steps 100, 200, 300, 400
-    assert np.all(rows["real_updates"] == 0)
+    assert list(rows["real_updates"]) == [0, 101, 301]  # the value network: one update a step from step 100 on
     assert np.array_equal(rows["reward_earned"], rows["real_steps"])  # CartPole pays 1 every step
     assert np.all((rows["eval_return"] >= 1) & (rows["eval_return"] <= 50))
     errors = rows["model_error_1"]
@@ -195,13 +196,20 @@ def test_counters_add_up_step_by_step_and_rows_repeat():
         agent.observe(obs, action, reward, nxt, terminated, truncated)
         obs = env.reset()[0] if terminated or truncated else nxt
     assert agent.counter_problems(230) == []
-    assert agent.counters() == {"real_updates": 0, "planning_updates": 130 * 320, "model_updates": 2}
+    assert agent.counters() == {"real_updates": 131, "planning_updates": 130 * 320, "model_updates": 2}
     agent.counters_[1] += 1
     assert agent.counter_problems(230) == [f"planning_updates {130 * 320 + 1} != {130 * 320} expected after 230 steps"]
 
 
 PENDULUM = {"source": "gym", "id": "Pendulum-v1", "options": {}, "step_limit": None}
-GP_BOX = {"model": "gp", "gp_points": 32, "gp_iterations": 10, "gp_selection": "spread", "termination": "none"}
+GP_BOX = {
+    "value_bootstrap": False,
+    "model": "gp",
+    "gp_points": 32,
+    "gp_iterations": 10,
+    "gp_selection": "spread",
+    "termination": "none",
+}
 
 
 def test_box_actions_with_the_gaussian_process_on_pendulum():
