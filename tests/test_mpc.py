@@ -178,6 +178,8 @@ def test_compiled_trial_rows_repeat_bit_for_bit_and_count_what_they_say(compiled
     assert np.all((rows["eval_return"] >= 1) & (rows["eval_return"] <= 50))
     errors = rows["model_error_1"]
     assert np.all(np.isfinite(errors)) and errors[2] < errors[0]  # held-out error falls once the model is fitted
+    assert np.isnan(rows["model_spread_1"][0]) and np.all(rows["model_spread_1"][1:] > 0)  # the fitted ensemble's
+    assert np.all((rows["model_coverage_1"][1:] >= 0) & (rows["model_coverage_1"][1:] <= 1))
 
 
 def test_counters_add_up_step_by_step_and_rows_repeat():

@@ -122,6 +122,19 @@ class ModelPredictiveControl(NeuralAgent):
             nxt, reward = self.core_.predict_mean(self.state_.model, np.asarray(observation, np.float64), action)
             return np.asarray(nxt, dtype=np.float64), float(reward)
 
+    def model_honesty(self, held: Any) -> Any:
+        """The fitted model's held-out errors beside its predicted spread and coverage
+        (`runner.neural.model_error.held_out_honesty`, 20 sampled rollouts from the greedy plans' key); None before
+        the first fit."""
+        import jax
+
+        from runner.neural.model_error import held_out_honesty
+
+        if int(self.state_.refits) == 0:
+            return None
+        with jax.enable_x64(True):
+            return held_out_honesty(self.core_.dynamics, self.state_.model, held, self.state_.greedy_key)
+
     def counter_problems(self, real_steps: int) -> list[str]:
         """Planning updates are the simulated steps of one plan per real step from `learning_starts` on, model
         updates one refit at `learning_starts` and every `model_every` steps after, real updates the value

@@ -6,8 +6,9 @@ an evaluation is one compiled call playing all its greedy episodes as a batch (`
 environment. So Python dispatch is paid once per chunk, not once per step. The wall-clock limit is checked between
 chunks. A core with `refit_steps(budget)` and `refit(state)` (model-predictive control) has its host work (a model
 refit) run between chunks, which end at those steps. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths
-do: the model columns from `runner.models.held_out.model_errors` for kinds whose tags say they learn a function
-model (through the agent's `predict`), NaN otherwise; `cpu_seconds` excludes evaluation and the model errors but
+do: the model columns from the agent's `model_honesty` (errors, predicted spread and coverage) once it gives them,
+else from `runner.models.held_out.model_errors` for kinds whose tags say they learn a function model (through the
+agent's `predict`), NaN otherwise; `cpu_seconds` excludes evaluation and the model errors but
 includes refits, and compiling happens before the clocks start.
 
 Randomness: the agent's key comes from the trial's agent stream, the training environment's from its env stream and
@@ -203,7 +204,8 @@ def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: Tr
     plan = _chunk_plan(budget, every, refit_steps)
     refit_at = set(refit_steps)
     predict = agent.predict if agent.tags.learned_model == "function" else None
-    held = _held_out(spec) if predict is not None else None
+    honesty = getattr(agent, "model_honesty", None)
+    held = _held_out(spec) if predict is not None or honesty is not None else None
     chunks = {n: _compiled(("chunk", *setting, n), carry, eval_key) for sizes in plan for n in sizes}
 
     n_points = budget // every + 1
@@ -228,6 +230,11 @@ def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: Tr
         rows["real_updates"][point], rows["planning_updates"][point], rows["model_updates"][point] = counts
         if held is not None:
             agent.state_ = carry.agent
+        measured_honesty = honesty(held) if honesty is not None and held is not None else None
+        if measured_honesty is not None:
+            for name, value in measured_honesty.columns().items():
+                rows[name][point] = value
+        elif predict is not None and held is not None:
             one_step, reward_error, *rollouts = model_errors(predict, held)
             rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
             rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
