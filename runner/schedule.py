@@ -22,6 +22,7 @@ from joblib import delayed
 
 from runner.cluster import DEFAULT_TIMEOUT
 from runner.errors import TrialTimeout
+from runner.metrics import HONESTY_COLUMNS
 from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
 from runner.workers import pool, stop_workers
@@ -33,6 +34,7 @@ NAN_ALLOWED = (
     "model_error_1",
     "model_error_5",
     "model_error_20",
+    *HONESTY_COLUMNS,
 )
 """Metric columns where NaN means "not applicable yet" rather than a broken trial."""
 
