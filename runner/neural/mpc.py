@@ -25,7 +25,8 @@ gamma^t alive_t r_t, where alive_t is the probability that no episode end came b
 flags, gives each step's end probability; with `termination: none` episodes never end in the model (right for
 tasks without terminal states, such as Pendulum; on CartPole the constant reward then makes every plan equal).
 With `value_bootstrap`, gamma^H alive_H V(s_H) is added, V a state-value network trained alongside by TD(0) on the
-real transitions (a `runner.neural.q_network` core with one action: target network, Huber loss, Adam).
+real transitions (a `runner.neural.q_network` core with one action: target network, Huber loss, Adam; the sizes,
+activation, minibatch and step size of the other networks).
 
 Learning: every real transition goes into a ring buffer of `buffer_size`; the first `learning_starts` real steps
 act uniformly at random; at step `learning_starts` and every `model_every` real steps after it the model is
@@ -176,9 +177,7 @@ class MPCCore:
     def dynamics(self) -> EnsembleModel | GaussianProcessModel:
         """The learned dynamics model the settings name."""
         if self.model == "gp":
-            return GaussianProcessModel(
-                self.encoding, self.gp_points, self.gp_selection, self.gp_iterations, learning_rate=0.05
-            )
+            return GaussianProcessModel(self.encoding, self.gp_points, self.gp_selection, self.gp_iterations)
         hidden = (self.hidden_units,) * self.hidden_layers
         return EnsembleModel(
             self.encoding,
@@ -198,7 +197,7 @@ class MPCCore:
             1,
             self.hidden_layers,
             self.hidden_units,
-            "relu",
+            self.activation,
             self.gamma,
             self.model_learning_rate,
             self.model_batch_size,
