@@ -48,6 +48,7 @@ AGENTS = Registry(
         "linear_dyna": "runner.agents.linear_dyna:LinearDyna",
         "linear_gaussian": "runner.agents.linear_gaussian:LinearGaussian",
         "q_network": "runner.agents.q_network:QNetwork",
+        "mpc": "runner.agents.mpc:ModelPredictiveControl",
         "soft_actor_critic": "runner.agents.soft_actor_critic:SoftActorCritic",
     },
     base=(TabularAgent, NeuralAgent),

@@ -4,8 +4,12 @@ Between two evaluation points the trial runs as `lax.scan` chunks of at most `CH
 compiled call doing, per step, the agent's action, the environment step, the buffer write and the due updates;
 an evaluation is one compiled call playing all its greedy episodes as a batch (`vmap`) on a separate copy of the
 environment. So Python dispatch is paid once per chunk, not once per step. The wall-clock limit is checked between
-chunks. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths do (the model columns NaN: this kind learns
-no model); `cpu_seconds` excludes evaluation, and compiling happens before the clocks start.
+chunks. A core with `refit_steps(budget)` and `refit(state)` (model-predictive control) has its host work (a model
+refit) run between chunks, which end at those steps. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths
+do: the model columns from the agent's `model_honesty` (errors, predicted spread and coverage) once it gives them,
+else from `runner.models.held_out.model_errors` for kinds whose tags say they learn a function model (through the
+agent's `predict`), NaN otherwise; `cpu_seconds` excludes evaluation and the model errors but
+includes refits, and compiling happens before the clocks start.
 
 Randomness: the agent's key comes from the trial's agent stream, the training environment's from its env stream and
 the evaluation environment's from its own (`runner.seeding`), so two runs of one spec give the same rows bit for
@@ -16,6 +20,7 @@ bit on the same machine. Episodes are truncated at the environment's step limit 
 from __future__ import annotations
 
 import functools
+import itertools
 import math
 import os
 import time
@@ -144,13 +149,19 @@ def _compiled(key: tuple, carry: _Carry, eval_key: jax.Array) -> Any:
     return _COMPILED[key]
 
 
-def _chunk_plan(budget: int, every: int) -> list[list[int]]:
+def _chunk_plan(budget: int, every: int, breaks: list[int] | tuple[int, ...] = ()) -> list[list[int]]:
     """The chunk lengths between consecutive evaluation points (the last entry: the steps after the last point,
-    when `every` does not divide the budget)."""
+    when `every` does not divide the budget); a chunk also ends at every step in `breaks` (the agent's host work,
+    such as a model refit, runs there)."""
     plan = []
     for start in range(0, budget, every):
-        span = min(every, budget - start)
-        plan.append([CHUNK_STEPS] * (span // CHUNK_STEPS) + ([span % CHUNK_STEPS] if span % CHUNK_STEPS else []))
+        end = min(start + every, budget)
+        cuts = sorted({start, end, *(b for b in breaks if start < b < end)})
+        sizes = []
+        for left, right in itertools.pairwise(cuts):
+            span = right - left
+            sizes += [CHUNK_STEPS] * (span // CHUNK_STEPS) + ([span % CHUNK_STEPS] if span % CHUNK_STEPS else [])
+        plan.append(sizes)
     return plan
 
 
@@ -169,7 +180,8 @@ def run_neural_trial(
 
 
 def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: TrialStreams, time_limit: float) -> Any:
-    from runner.trial import TrialResult
+    from runner.models.held_out import model_errors
+    from runner.trial import TrialResult, _held_out
 
     ev = spec["evaluation"]
     budget, every = int(spec["real_steps"]), int(ev["every"])
@@ -188,7 +200,12 @@ def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: Tr
     cap = min(int(ev["step_cap"]), box.step_limit)
     setting = (core, box.env_id, tuple(box.params.tolist()), box.step_limit)
     evaluate = _compiled(("evaluation", *setting, int(ev["episodes"]), cap), carry, eval_key)
-    plan = _chunk_plan(budget, every)
+    refit_steps = core.refit_steps(budget) if hasattr(core, "refit_steps") else []
+    plan = _chunk_plan(budget, every, refit_steps)
+    refit_at = set(refit_steps)
+    predict = agent.predict if agent.tags.learned_model == "function" else None
+    honesty = getattr(agent, "model_honesty", None)
+    held = _held_out(spec) if predict is not None or honesty is not None else None
     chunks = {n: _compiled(("chunk", *setting, n), carry, eval_key) for sizes in plan for n in sizes}
 
     n_points = budget // every + 1
@@ -211,6 +228,16 @@ def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: Tr
         rows["reward_earned"][point] = earned
         counts = np.asarray(core.counters(carry.agent))
         rows["real_updates"][point], rows["planning_updates"][point], rows["model_updates"][point] = counts
+        if held is not None:
+            agent.state_ = carry.agent
+        measured_honesty = honesty(held) if honesty is not None and held is not None else None
+        if measured_honesty is not None:
+            for name, value in measured_honesty.columns().items():
+                rows[name][point] = value
+        elif predict is not None and held is not None:
+            one_step, reward_error, *rollouts = model_errors(predict, held)
+            rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
+            rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
         rows["env_phase"][point] = 0
         rows["wall_seconds"][point] = time.perf_counter() - started
         measured += time.process_time() - measuring
@@ -227,6 +254,8 @@ def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: Tr
             episode_lengths.extend(np.asarray(episode_steps)[ended].tolist())
             earned += float(np.asarray(rewards).sum())
             steps += n
+            if steps in refit_at:
+                carry = carry._replace(agent=core.refit(carry.agent))
         if point < n_points:
             record(point, steps)
     agent.state_ = carry.agent
