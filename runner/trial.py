@@ -217,7 +217,8 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     if isinstance(agent, NeuralAgent):
         from runner.neural.trial import run_neural_trial
 
-        return run_neural_trial(spec, facts.box, agent, streams, time_limit)
+        held = _held_out(spec) if agent.has_function_model() else None
+        return run_neural_trial(spec, facts.box, agent, streams, time_limit, held=held)
     return _run_compiled(spec, facts, agent, streams, time_limit)
 
 
@@ -284,6 +285,8 @@ def _predictor(
         return None
     if isinstance(agent, OwnAgent):
         return agent.predict if agent.has_model() else None
+    if isinstance(agent, NeuralAgent):
+        return agent.predict if agent.has_function_model() else None
     function_model = agent.tags.learned_model == "function" and callable(getattr(agent, "predict", None))
     return agent.predict if function_model else None
 

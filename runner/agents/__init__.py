@@ -48,6 +48,7 @@ AGENTS = Registry(
         "linear_dyna": "runner.agents.linear_dyna:LinearDyna",
         "linear_gaussian": "runner.agents.linear_gaussian:LinearGaussian",
         "q_network": "runner.agents.q_network:QNetwork",
+        "neural_dyna": "runner.agents.neural_dyna:NeuralDyna",
     },
     base=(TabularAgent, NeuralAgent),
     base_name="runner.agents.TabularAgent or runner.agents.NeuralAgent",

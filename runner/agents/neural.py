@@ -156,6 +156,11 @@ class NeuralAgent:
         """Neural kinds never predict on a grid of bins (they take the box itself)."""
         return False
 
+    def has_function_model(self) -> bool:
+        """Whether the agent learns a function model whose error the trial measures on held-out transitions
+        (kinds with one override this and `predict`)."""
+        return False
+
     def model_error(self, table: tuple) -> tuple[float, float]:
         """Neural models are not compared with a true table."""
         return float("nan"), float("nan")

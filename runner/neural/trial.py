@@ -4,8 +4,11 @@ Between two evaluation points the trial runs as `lax.scan` chunks of at most `CH
 compiled call doing, per step, the agent's action, the environment step, the buffer write and the due updates;
 an evaluation is one compiled call playing all its greedy episodes as a batch (`vmap`) on a separate copy of the
 environment. So Python dispatch is paid once per chunk, not once per step. The wall-clock limit is checked between
-chunks. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths do (the model columns NaN: this kind learns
-no model); `cpu_seconds` excludes evaluation, and compiling happens before the clocks start.
+chunks. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths do; a kind with a learned function model
+(its core's `fitted(state) -> (model, params)`, `runner.neural.model`) has its held-out errors measured at every
+evaluation point by `runner.neural.model_error.held_out_honesty` (one batch; the definitions of
+`runner.models.held_out`), other kinds get NaN there. `cpu_seconds` excludes evaluation and the model errors, and
+compiling happens before the clocks start.
 
 Randomness: the agent's key comes from the trial's agent stream, the training environment's from its env stream and
 the evaluation environment's from its own (`runner.seeding`), so two runs of one spec give the same rows bit for
@@ -30,7 +33,9 @@ from runner.agents.neural import NeuralAgent
 from runner.compiled_box_trial import BoxDynamics
 from runner.errors import TrialTimeout
 from runner.metrics import METRIC_COLUMNS
+from runner.models.held_out import HeldOut
 from runner.neural.dynamics import JaxDynamics, jax_dynamics
+from runner.neural.model_error import held_out_honesty
 from runner.seeding import TrialStreams, jax_key_data
 
 __all__ = ["CACHE_VARIABLE", "CHUNK_STEPS", "run_neural_trial"]
@@ -159,16 +164,37 @@ def _key(sequence: np.random.SeedSequence) -> jax.Array:
 
 
 def run_neural_trial(
-    spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: TrialStreams, time_limit: float
+    spec: dict[str, Any],
+    box: BoxDynamics,
+    agent: NeuralAgent,
+    streams: TrialStreams,
+    time_limit: float,
+    held: HeldOut | None = None,
 ) -> Any:
     """Run the trial of a set-up neural agent on `box`'s environment in compiled chunks; the `TrialResult` of
-    `runner.trial` (rows, training episodes, the path). Raises TrialTimeout past `time_limit` seconds (0: none)."""
+    `runner.trial` (rows, training episodes, the path). `held`: the held-out real transitions the agent's model is
+    measured on (None: no model errors). Raises TrialTimeout past `time_limit` seconds (0: none)."""
     _use_compilation_cache()
     with jax.enable_x64(True):
-        return _run(spec, box, agent, streams, time_limit)
+        return _run(spec, box, agent, streams, time_limit, held)
 
 
-def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: TrialStreams, time_limit: float) -> Any:
+def _model_errors(core: Any, state: Any, held: HeldOut | None) -> tuple[float, ...]:
+    """(one-step, reward, 5-step, 20-step) held-out errors of the agent's fitted model, or NaN without one."""
+    if held is None:
+        return (np.nan,) * 4
+    honesty = held_out_honesty(*core.fitted(state), held, jax.random.key(0))
+    return honesty.one_step, honesty.reward, *honesty.open_loop.values()
+
+
+def _run(
+    spec: dict[str, Any],
+    box: BoxDynamics,
+    agent: NeuralAgent,
+    streams: TrialStreams,
+    time_limit: float,
+    held: HeldOut | None,
+) -> Any:
     from runner.trial import TrialResult
 
     ev = spec["evaluation"]
@@ -211,6 +237,9 @@ def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: Tr
         rows["reward_earned"][point] = earned
         counts = np.asarray(core.counters(carry.agent))
         rows["real_updates"][point], rows["planning_updates"][point], rows["model_updates"][point] = counts
+        one_step, reward_error, short, long = _model_errors(core, carry.agent, held)
+        rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
+        rows["model_error_5"][point], rows["model_error_20"][point] = short, long
         rows["env_phase"][point] = 0
         rows["wall_seconds"][point] = time.perf_counter() - started
         measured += time.process_time() - measuring
