@@ -3,7 +3,9 @@
 A neural kind is a `NeuralAgent` subclass naming its schema, tags (`engine="jax"`) and `core`, the entry point of
 its JAX side: a frozen dataclass built by `core.from_params(params, obs_size, n_actions)` with pure, jitted
 methods `init(key)`, `act(state, obs) -> (state, action)`, `observe(state, obs, action, reward, next_obs,
-terminated) -> state`, `greedy(network, obs) -> action` (on `state.online`) and `counters(state)`. This module
+terminated) -> state`, `greedy(network, obs) -> action` (on `state.online`) and `counters(state)`; a core may add
+`observe_one` with the signature of `observe`, which the step-by-step path then calls instead (a host-side version
+that dispatches its own jitted parts, e.g. so branches compile only when first due). This module
 imports no JAX, so `stepmeter list` and `check` work without the `neural` extra and an experiment naming a neural
 kind without it gets one line saying what to install (`neural_requirement`).
 
@@ -127,7 +129,8 @@ class NeuralAgent:
         import jax
 
         with jax.enable_x64(True):
-            self.state_ = self.core_.observe(
+            observe = getattr(self.core_, "observe_one", self.core_.observe)
+            self.state_ = observe(
                 self.state_,
                 np.asarray(observation, dtype=np.float32),
                 np.int32(action),

@@ -178,6 +178,37 @@ class NeuralDynaCore:
         plan_due = (steps >= self.q.learning_starts) & (steps % self.q.update_every == 0) & (state.rounds > 0)
         return jax.lax.cond(plan_due, self._plan, lambda s: s, state)
 
+    def observe_one(
+        self,
+        state: DynaState,
+        obs: jax.Array,
+        action: jax.Array,
+        reward: jax.Array,
+        next_obs: jax.Array,
+        terminated: jax.Array,
+    ) -> DynaState:
+        """`observe` for the step-by-step path: the same schedule decided in Python, so the model's training and
+        planning compile only when first due (a short run before `learning_starts` never compiles them)."""
+        state = state._replace(q=self.q.observe(state.q, obs, action, reward, next_obs, terminated))
+        steps = int(state.q.steps)
+        if not self.learns_model or steps < self.q.learning_starts:
+            return state
+        if steps % self.model_every == 0:
+            state = self.train_model(state)
+        if steps % self.q.update_every == 0 and int(state.rounds) > 0:
+            state = self.plan(state)
+        return state
+
+    @functools.partial(jax.jit, static_argnums=0)
+    def train_model(self, state: DynaState) -> DynaState:
+        """One model training round (compiled on its own, for `observe_one`)."""
+        return self._train_model(state)
+
+    @functools.partial(jax.jit, static_argnums=0)
+    def plan(self, state: DynaState) -> DynaState:
+        """One round of `planning_steps` planning updates (compiled on its own, for `observe_one`)."""
+        return self._plan(state)
+
     def _train_model(self, state: DynaState) -> DynaState:
         """One training round: scalers from the whole buffer, then `model_steps` Adam steps."""
         buf = state.q.buffer
