@@ -165,6 +165,7 @@ def test_rollouts_start_at_real_states_and_stop_at_predicted_ends(trained):
         obs, actions, rewards, next_obs, ended, weight = jax.jit(core.simulate)(state, jax.random.key(5))
     h, runs = core.rollout_length, -(-core.q.batch_size // core.rollout_length)
     assert obs.shape == (core.q.batch_size, 2) and set(np.asarray(actions).tolist()) <= {0, 1}
+    np.testing.assert_allclose(np.asarray(rewards), np.asarray(obs[:, 1]), atol=0.1)  # the system's reward is s_1
     stored = {tuple(row) for row in np.asarray(state.q.buffer.obs[:600]).tolist()}
     assert all(tuple(row) in stored for row in np.asarray(obs[:runs]).tolist())
     assert np.all(np.asarray(weight[:runs]) == 1.0)
