@@ -27,8 +27,8 @@ Q_TINY = {
 }
 MODEL_TINY = {
     "ensemble_size": 2,
-    "model_hidden_layers": 1,
-    "model_hidden_units": 16,
+    "model_layers": 1,
+    "model_units": 16,
     "model_every": 100,
     "model_steps": 5,
     "rollout_length": 3,
@@ -138,7 +138,7 @@ def trained():
     """A small model trained for 40 rounds on the known system (float64 mode, as trials run)."""
     with jax.enable_x64(True):
         q = NeuralDynaCore.from_params({**Q_TINY, "batch_size": 32, "buffer_size": 600}, 2, 2).q
-        core = NeuralDynaCore(q, ensemble_size=2, model_hidden_units=32, model_steps=50, rollout_length=4)
+        core = NeuralDynaCore(q, ensemble_size=2, model_units=32, model_steps=50, rollout_length=4)
         state = _known_system_state(core, 600, seed=0)
         for _ in range(40):
             state = core.train_model(state)

@@ -21,7 +21,10 @@ _MODEL_ACTIVATIONS = ("swish", "relu", "tanh", "elu")
 
 def _q_params() -> tuple[Param, ...]:
     """The Q-network's parameters; `replays` keeps its meaning but not the budget role (planning has it here)."""
-    return tuple(dataclasses.replace(p, role="") if p.name == "replays" else p for p in QNetwork.schema)
+    meaning = "minibatch updates on real transitions per round (real updates; planning_steps is the budget here)"
+    return tuple(
+        dataclasses.replace(p, role="", meaning=meaning) if p.name == "replays" else p for p in QNetwork.schema
+    )
 
 
 class NeuralDyna(NeuralAgent):
@@ -54,12 +57,12 @@ class NeuralDyna(NeuralAgent):
         ),
         Param("rollout_length", "int", 1, "model steps per rollout from a replayed real state (h)", low=1, high=100),
         Param("ensemble_size", "int", 5, "members of the model's ensemble", low=1, high=64),
-        Param("model_hidden_layers", "int", 2, "hidden layers of each member", low=1, high=8),
-        Param("model_hidden_units", "int", 64, "units in each hidden layer of the model", low=1, high=4096),
+        Param("model_layers", "int", 2, "hidden layers of each member", low=1, high=8),
+        Param("model_units", "int", 64, "units in each hidden layer of the model", low=1, high=4096),
         Param(
             "model_activation", "choice", "swish", "activation of the model's hidden layers", choices=_MODEL_ACTIVATIONS
         ),
-        Param("model_learning_rate", "float", 1e-3, "Adam's step size for the model", low=0.0, high=1.0, low_open=True),
+        Param("model_step_size", "float", 1e-3, "Adam's step size for the model", low=0.0, high=1.0, low_open=True),
         Param("model_batch_size", "int", 64, "real transitions per member per model step", low=1, high=65536),
         Param("model_every", "int", 250, "real steps between model training rounds (from learning_starts on)", low=1),
         Param("model_steps", "int", 50, "Adam steps of the model per training round", low=1, high=100_000),
@@ -70,8 +73,8 @@ class NeuralDyna(NeuralAgent):
         "hidden_layers": 1,
         "hidden_units": 16,
         "ensemble_size": 2,
-        "model_hidden_layers": 1,
-        "model_hidden_units": 16,
+        "model_layers": 1,
+        "model_units": 16,
         "model_every": 100,
         "model_steps": 10,
         "rollout_length": 2,

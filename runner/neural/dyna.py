@@ -11,7 +11,7 @@ that core's own calls. On top of it:
   its own `model_batch_size` transitions drawn uniformly with replacement from the buffer (the online stand-in for
   each member's bootstrap); the scalers of inputs and targets are the mean and standard deviation of the whole
   buffer, recomputed at the start of every round;
-- the termination predictor: a logistic classifier (an MLP of one hidden layer of `model_hidden_units` with one
+- the termination predictor: a logistic classifier (an MLP of one hidden layer of `model_units` with one
   output logit) of the next state, trained in the same Adam steps on the same draws by the binary cross-entropy
   against the real `terminated` flags (truncations are not terminations). In a rollout each simulated step ends
   the episode with the predicted probability (a Bernoulli draw); its later steps are masked out of the loss. This
@@ -82,10 +82,10 @@ class NeuralDynaCore:
     planning_steps: int = 1
     rollout_length: int = 1
     ensemble_size: int = 5
-    model_hidden_layers: int = 2
-    model_hidden_units: int = 64
+    model_layers: int = 2
+    model_units: int = 64
     model_activation: str = "swish"
-    model_learning_rate: float = 1e-3
+    model_step_size: float = 1e-3
     model_batch_size: int = 64
     model_every: int = 250
     model_steps: int = 50
@@ -103,10 +103,10 @@ class NeuralDynaCore:
         return EnsembleModel(
             ActionEncoding(n_actions=self.q.n_actions),
             members=self.ensemble_size,
-            hidden=(self.model_hidden_units,) * self.model_hidden_layers,
+            hidden=(self.model_units,) * self.model_layers,
             activation=self.model_activation,
             batch_size=self.model_batch_size,
-            learning_rate=self.model_learning_rate,
+            learning_rate=self.model_step_size,
         )
 
     @property
@@ -125,7 +125,7 @@ class NeuralDynaCore:
             Scaler(jnp.zeros(width, jnp.float32), jnp.ones(width, jnp.float32)),
             Scaler(jnp.zeros(d + 1, jnp.float32), jnp.ones(d + 1, jnp.float32)),
         )
-        done_net = init_mlp(done_key, (d, self.model_hidden_units, 1), jnp.float32)
+        done_net = init_mlp(done_key, (d, self.model_units, 1), jnp.float32)
         zero = jnp.zeros((), jnp.int32)
         return DynaState(
             q,
@@ -140,11 +140,11 @@ class NeuralDynaCore:
 
     def model_sizes(self, inputs: int, outputs: int) -> tuple[int, ...]:
         """Layer sizes of one member: inputs, hidden layers, a mean and a raw log-variance per target."""
-        return (inputs, *([self.model_hidden_units] * self.model_hidden_layers), 2 * outputs)
+        return (inputs, *([self.model_units] * self.model_layers), 2 * outputs)
 
     @property
     def _model_optimizer(self) -> optax.GradientTransformation:
-        return optax.adam(self.model_learning_rate)
+        return optax.adam(self.model_step_size)
 
     @functools.partial(jax.jit, static_argnums=0)
     def act(self, state: DynaState, obs: jax.Array) -> tuple[DynaState, jax.Array]:
