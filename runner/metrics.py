@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-__all__ = ["INT_COLUMNS", "METRICS", "METRIC_COLUMNS", "METRIC_INDEX", "TIMING_COLUMNS", "Metric"]
+__all__ = ["HONESTY_COLUMNS", "INT_COLUMNS", "METRICS", "METRIC_COLUMNS", "METRIC_INDEX", "TIMING_COLUMNS", "Metric"]
 
 
 @dataclass(frozen=True)
@@ -50,6 +50,22 @@ METRICS = (
     ),
     Metric("model_error_5", False, False, "the same after 5 steps of the model's own open-loop rollouts"),
     Metric("model_error_20", False, False, "the same after 20 steps of the model's own open-loop rollouts"),
+    Metric(
+        "model_spread_1",
+        False,
+        False,
+        "the spread a probabilistic model predicts for its one-step error on the same held-out transitions (root "
+        "mean square of its predicted standard deviation, on model_error_1's scale: equal to it when honest)",
+    ),
+    Metric("model_spread_5", False, False, "the same for 5 steps of sampled open-loop rollouts (beside model_error_5)"),
+    Metric(
+        "model_coverage_1",
+        False,
+        False,
+        "share of held-out next-observation values inside the model's central 95% predictive interval (0.95 when "
+        "honest)",
+    ),
+    Metric("model_coverage_5", False, False, "the same after 5 steps of sampled open-loop rollouts"),
 )
 
 METRIC_COLUMNS = tuple(m.name for m in METRICS)
@@ -79,4 +95,11 @@ TIMING_COLUMNS = tuple(m.name for m in METRICS if m.timing)
     MODEL_ERROR_1,
     MODEL_ERROR_5,
     MODEL_ERROR_20,
+    MODEL_SPREAD_1,
+    MODEL_SPREAD_5,
+    MODEL_COVERAGE_1,
+    MODEL_COVERAGE_5,
 ) = range(len(METRIC_COLUMNS))
+
+HONESTY_COLUMNS = ("model_spread_1", "model_spread_5", "model_coverage_1", "model_coverage_5")
+"""What only a probabilistic model (one that states its own uncertainty) measures; NaN for every other agent."""

@@ -37,7 +37,7 @@ from runner.compiled_trial import run_kind_trial
 from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
-from runner.metrics import METRIC_COLUMNS
+from runner.metrics import HONESTY_COLUMNS, METRIC_COLUMNS, METRIC_INDEX
 from runner.models.held_out import HeldOut, collect_held_out, model_errors
 from runner.models.held_out_bins import bin_arrays, bin_predictor, held_out_arrays
 from runner.neural import JAX_DYNAMICS_IDS
@@ -228,6 +228,7 @@ def _run_compiled(
     ev = spec["evaluation"]
     budget = int(spec["real_steps"])
     rows = np.zeros((budget // ev["every"] + 1, len(METRIC_COLUMNS)))
+    rows[:, [METRIC_INDEX[name] for name in HONESTY_COLUMNS]] = np.nan
     returns = np.zeros(budget, dtype=np.float64)
     lengths = np.zeros(budget, dtype=np.int64)
     agent_args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_)
@@ -320,7 +321,8 @@ def _run_gymnasium(
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
     read = _reader(facts.tags.observation)
     predict = _predictor(agent, facts)
-    held = _held_out(spec) if predict is not None else None
+    honesty = getattr(agent, "model_honesty", None) if facts.tags.observation == "box" else None
+    held = _held_out(spec) if predict is not None or honesty is not None else None
     phase = 0
     earned = 0.0
     start = time.perf_counter()
@@ -343,12 +345,16 @@ def _run_gymnasium(
             rows[name][point] = value
         errors = agent.model_error(tables[phase]) if tables is not None else (np.nan, np.nan)
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
-        if predict is not None and held is not None:
+        for name in ("model_error_1", "model_error_5", "model_error_20", *HONESTY_COLUMNS):
+            rows[name][point] = np.nan
+        measured_honesty = honesty(held) if honesty is not None and held is not None else None
+        if measured_honesty is not None:
+            for name, value in measured_honesty.columns().items():
+                rows[name][point] = value
+        elif predict is not None and held is not None:
             one_step, reward_error, *rollouts = model_errors(predict, held)
             rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
             rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
-        else:
-            rows["model_error_1"][point] = rows["model_error_5"][point] = rows["model_error_20"][point] = np.nan
         rows["env_phase"][point] = phase
         rows["wall_seconds"][point] = time.perf_counter() - start
         measured += time.process_time() - measuring

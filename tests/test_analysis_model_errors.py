@@ -5,7 +5,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from runner.analysis.model_errors import MODEL_ERROR_COLUMNS, held_out_error_bands
+from runner.analysis.model_errors import (
+    HONESTY_TABLE_COLUMNS,
+    MODEL_ERROR_COLUMNS,
+    held_out_error_bands,
+    model_honesty_table,
+)
 from runner.analysis.report import ExperimentFacts, write_report
 
 _SEEDS, _POINTS = 6, 5
@@ -90,3 +95,52 @@ def test_report_writes_the_table_and_the_figure_when_errors_were_measured(tmp_pa
         assert table["interval"].str.contains("bootstrap").all()
         html = (tmp_path / "report.html").read_text(encoding="utf-8")
         assert "divided by its spread" in html
+
+
+def _honest_frame() -> pd.DataFrame:
+    """Dyna-Q's model states a spread: honest one step ahead (spread equals the error, 95% coverage) and
+    overconfident after 5 steps (half the error, 70% coverage); Q-learning has none."""
+    frame = _frame()
+    stated = frame["kind"] == "dyna_q"
+    return frame.assign(
+        model_spread_1=np.where(stated, frame["model_error_1"], np.nan),
+        model_spread_5=np.where(stated, frame["model_error_5"] / 2, np.nan),
+        model_coverage_1=np.where(stated, 0.95, np.nan),
+        model_coverage_5=np.where(stated, 0.7, np.nan),
+    )
+
+
+def test_honesty_table_puts_each_stated_spread_beside_its_error():
+    frame = _honest_frame()
+    table = model_honesty_table(frame)
+    assert list(table.columns) == HONESTY_TABLE_COLUMNS
+    assert set(table["agent"]) == {"Dyna-Q"} and sorted(table["steps_ahead"].unique()) == [1, 5]
+    dyna = frame[frame["agent"] == "Dyna-Q"]
+    for k, ratio, coverage in ((1, 1.0, 0.95), (5, 0.5, 0.7)):
+        rows = table[table["steps_ahead"] == k].sort_values("point")
+        # reference: pandas' own groupby mean over the seeds at each point
+        np.testing.assert_allclose(rows["error"], dyna.groupby("point")[f"model_error_{k}"].mean(), rtol=1e-12)
+        np.testing.assert_allclose(rows["spread"], ratio * rows["error"], rtol=1e-12)
+        np.testing.assert_allclose(rows["coverage"], coverage)
+        assert (rows["n_seeds"] == _SEEDS).all()
+    assert model_honesty_table(_frame()).empty
+
+
+def test_report_draws_the_honesty_figure_only_for_models_that_state_a_spread(tmp_path):
+    facts = ExperimentFacts(
+        name="honesty",
+        budget=400,
+        baseline="Q-learning",
+        thresholds={"crane": -80.0},
+        env_order=["crane"],
+        agent_order=["Q-learning", "Dyna-Q"],
+        n_resamples=100,
+    )
+    write_report(_honest_frame(), facts, tmp_path / "stated")
+    write_report(_frame(), facts, tmp_path / "unstated")
+    assert (tmp_path / "stated" / "model_honesty_crane.png").is_file()
+    table = pd.read_csv(tmp_path / "stated" / "model_honesty.csv")
+    assert len(table) == 2 * _POINTS
+    assert "overconfident" in (tmp_path / "stated" / "report.html").read_text(encoding="utf-8")
+    assert not (tmp_path / "unstated" / "model_honesty_crane.png").exists()
+    assert not (tmp_path / "unstated" / "model_honesty.csv").exists()

@@ -112,7 +112,7 @@ def test_a_model_free_own_agent_leaves_them_empty(monkeypatch):
 
 def test_a_store_made_before_the_new_columns_gains_them_empty(tmp_path):
     with Store(tmp_path, create=True) as store:
-        for column in ("model_error_1", "model_error_5", "model_error_20"):
+        for column in METRIC_COLUMNS[METRIC_COLUMNS.index("model_error_1") :]:
             store.conn.execute(f"ALTER TABLE metrics DROP COLUMN {column}")
     with Store(tmp_path) as store:
         columns = [row[1] for row in store.conn.execute("PRAGMA table_info(metrics)")]

@@ -134,24 +134,30 @@ def _real_steps_to_finish(act, observe, arrays, hyper, counters, rng, env_stream
 @pytest.mark.slow
 def test_planning_saves_real_steps_on_mountain_car():
     """The direction Sutton, Szepesvari, Geramifard & Bowling (2008) report (from memory): linear Dyna needs
-    fewer real steps than its model-free counterpart at the same step size, here for the first 20 episodes of
-    Mountain Car (8 tilings of 8x8 tiles, 5 planning updates per real step, 10 paired seeds). Seen: 2.44 times
-    fewer real steps (geometric mean of the paired ratios, 95% bootstrap interval 2.38 to 2.50)."""
+    fewer real steps than model-free learning at the same step size, here for the first 20 episodes of Mountain Car
+    (8 tilings of 8x8 tiles, alpha 0.1, 5 planning updates per real step, 10 paired seeds), against linear Sarsa
+    and against its own planning 0 (linear Q-learning). Seen: 2.44 times fewer real steps than planning 0
+    (geometric mean of the paired ratios, 95% bootstrap interval 2.38 to 2.50) and 2.22 times fewer than linear
+    Sarsa (2.17 to 2.28). Reaching the registered greedy threshold (-110) is another matter: see the README's
+    results."""
     features = {"kind": "tiles", "tilings": 8, "tiles": 8, "hash_size": 0}
+    arms = {
+        "sarsa": ("linear_sarsa", {}),
+        "q": ("linear_dyna", {"planning_steps": 0}),
+        "dyna": ("linear_dyna", {"planning_steps": 5}),
+    }
     totals = {}
-    for n in (0, 5):
-        totals[n] = []
+    for arm, (kind, extra) in arms.items():
+        totals[arm] = []
         for seed in range(10):
-            agent = make_agent(
-                "linear_dyna",
-                {"alpha": 0.1, "gamma": 1.0, "epsilon": 0.0, "features": features, "planning_steps": n},
-            )
+            agent = make_agent(kind, {"alpha": 0.1, "gamma": 1.0, "epsilon": 0.0, "features": features, **extra})
             agent.setup(2, 3, seed, bounds=MOUNTAIN_CAR)
             args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_, new_stream(500 + seed))
-            totals[n].append(
+            totals[arm].append(
                 _real_steps_to_finish(agent.act_kernel, agent.observe_kernel, *args, default_params(), 20, 100_000)
             )
             assert agent.arrays_[W].any()
-    log_ratio = np.log(np.array(totals[0]) / np.array(totals[5]))
-    interval = stats.bootstrap((log_ratio,), np.mean, confidence_level=0.95, random_state=0, method="percentile")
-    assert np.exp(interval.confidence_interval.low) > 1.5  # scipy.stats.bootstrap of the paired log ratios
+    for baseline in ("q", "sarsa"):
+        log_ratio = np.log(np.array(totals[baseline]) / np.array(totals["dyna"]))
+        interval = stats.bootstrap((log_ratio,), np.mean, confidence_level=0.95, random_state=0, method="percentile")
+        assert np.exp(interval.confidence_interval.low) > 1.5  # scipy.stats.bootstrap of the paired log ratios

@@ -72,6 +72,10 @@ class NeuralAgent:
     check_params: ClassVar[dict[str, Any]] = {}
     """Parameters the contract checks (`runner.checks`) use when given none: their tasks last a few thousand real
     steps, too short for defaults sized for tens of thousands."""
+    model_honesty: ClassVar[Any] = None
+    """Kinds with a probabilistic model override this with a method `model_honesty(held) -> ModelHonesty`
+    (`runner.neural.model_error.held_out_honesty` on their fitted model), or None before the model is fitted; the
+    step-by-step trial then records errors, predicted spread and coverage (`runner.metrics.HONESTY_COLUMNS`)."""
 
     def __init__(self, **params: Any) -> None:
         self._params = resolve_params(self.schema, params)

@@ -114,6 +114,7 @@ class ReportTables:
     priced: pd.DataFrame = field(default_factory=lambda: _empty(COST_TRIAL_COLUMNS))
     seed_flags: pd.DataFrame = field(default_factory=lambda: _empty(SEED_FLAG_COLUMNS))
     model_errors: pd.DataFrame = field(default_factory=pd.DataFrame)
+    model_honesty: pd.DataFrame = field(default_factory=pd.DataFrame)
 
 
 @dataclass(frozen=True)
@@ -785,6 +786,17 @@ _FIGURE_TEXT = {
         "is off by a typical spread (bands: {interval}; model_errors.csv). A tabular model on bins predicts the "
         "expected centre of its next bin.",
     ),
+    "model_honesty": (
+        "Is the model's uncertainty honest?",
+        "For models that state their own uncertainty (ensembles, Gaussian processes). Left: the spread each "
+        "model predicts for its error against the error it makes on the held-out real transitions, on the same "
+        "scale (the root mean square of its predicted standard deviation, each dimension divided by its spread in "
+        "the data), one point per evaluation point, the mean over seeds; filled one step ahead, hollow after 5 "
+        "steps of sampled open-loop rollouts. On the dashed diagonal the two agree; below it the model is "
+        "overconfident (its planning trusts predictions that are worse than it thinks), above it timid. Right: "
+        "the share of held-out values inside the model's central 95% interval, 0.95 when honest "
+        "(model_honesty.csv).",
+    ),
 }
 
 
@@ -826,6 +838,7 @@ def _env_context(page: EnvPage, index: int, data: ReportTables, facts: Experimen
         ("table", views["costs"]),
         ("table", views["break_even"]),
         ("figure", figures.get("model_error")),
+        ("figure", figures.get("model_honesty")),
     ]
     return {
         "name": page.env,

@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.axes import Axes
 from matplotlib.figure import Figure
+from matplotlib.ticker import NullFormatter
 
 from runner.analysis.tables import ordered_labels
 from runner.safe_files import ensure_folder, write_atomic
@@ -31,6 +32,7 @@ __all__ = [
     "plot_curves",
     "plot_frontier",
     "plot_model_error",
+    "plot_model_honesty",
     "plot_threshold",
     "safe_name",
 ]
@@ -292,6 +294,67 @@ def plot_model_error(
     )
     figure.suptitle(title)
     return _save_both(figure, out_dir, f"model_error_{safe_name(env)}")
+
+
+def plot_model_honesty(
+    honesty: pd.DataFrame, env: str, *, agents: Sequence[str], out_dir: Path, title: str
+) -> list[Path]:
+    """Write `model_honesty_<env>.png/.svg`: is each probabilistic model's stated uncertainty honest?
+
+    Left: the spread a model predicts against the error it makes on held-out real transitions, one point per
+    evaluation point (mean over seeds; filled one step ahead, hollow after 5 steps of sampled rollouts), with
+    the diagonal where they agree: below it the model is overconfident, above it timid. Right: the share of
+    held-out values inside its 95% predictive interval over real steps, with the 0.95 an honest model keeps.
+    `honesty` has the columns of `runner.analysis.model_errors.HONESTY_TABLE_COLUMNS`.
+    """
+    figure = Figure(figsize=(12.0, 4.5), layout="constrained")
+    scatter, coverage = figure.subplots(1, 2)
+    styles = agent_styles(agents)
+    present = [agent for agent in agents if agent in set(honesty["agent"])]
+    for agent in present:
+        colour, marker = styles[agent]
+        for steps_ahead, rows in honesty[honesty["agent"] == agent].groupby("steps_ahead", sort=True):
+            rows = rows.sort_values("real_steps")
+            what = "one step" if steps_ahead == 1 else f"{steps_ahead} steps"
+            filled = steps_ahead == 1
+            scatter.scatter(
+                rows["spread"],
+                rows["error"],
+                marker=marker,
+                s=28,
+                facecolors=colour if filled else "none",
+                edgecolors=colour,
+                label=f"{agent}, {what}",
+            )
+            coverage.plot(
+                rows["real_steps"],
+                rows["coverage"],
+                color=colour,
+                marker=marker,
+                markersize=4,
+                linewidth=1.6,
+                linestyle="-" if filled else ":",
+                markerfacecolor=colour if filled else "none",
+                label=f"{agent}, {what}",
+            )
+    values = honesty[["spread", "error"]].to_numpy(dtype=float)
+    values = values[np.isfinite(values) & (values > 0)]
+    if values.size:
+        low, high = values.min() / 1.5, values.max() * 1.5
+        scatter.plot([low, high], [low, high], color=_THRESHOLD_COLOUR, linestyle="--", linewidth=1.0, label="honest")
+        scatter.set_xscale("log")
+        scatter.set_yscale("log")
+        for axis in (scatter.xaxis, scatter.yaxis):
+            axis.set_minor_formatter(NullFormatter())
+    _finish(
+        scatter, "predicted spread (in spreads of the data)", "held-out error (same units)", "spread vs error", False
+    )
+    coverage.axhline(0.95, color=_THRESHOLD_COLOUR, linestyle="--", linewidth=1.0, label="0.95 (honest)")
+    coverage.set_ylim(-0.02, 1.02)
+    _finish(coverage, "real environment steps", "share inside the 95% interval", "interval coverage", legend=False)
+    _legend_beside(coverage)
+    figure.suptitle(title)
+    return _save_both(figure, out_dir, f"model_honesty_{safe_name(env)}")
 
 
 @dataclass(frozen=True)

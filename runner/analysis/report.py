@@ -48,7 +48,7 @@ from runner.analysis.curves import curve_bands, trial_scores
 from runner.analysis.efficiency import EFFICIENCY_COLUMNS, efficiency_ratios, efficiency_sentences
 from runner.analysis.measures import EARNING_COLUMNS, GREEDY_RETURN, MEASURES, earning_summary, with_earning_rate
 from runner.analysis.methods import method_lines
-from runner.analysis.model_errors import held_out_error_bands
+from runner.analysis.model_errors import held_out_error_bands, model_honesty_table
 from runner.analysis.page import (
     EnvPage,
     ExperimentRecords,
@@ -66,6 +66,7 @@ from runner.analysis.plots import (
     plot_curves,
     plot_frontier,
     plot_model_error,
+    plot_model_honesty,
     plot_threshold,
 )
 from runner.analysis.power import ADVICE_SHARES, ADVICE_TABLE_COLUMNS, advice_table
@@ -732,6 +733,7 @@ def _env_figures(
                 "earning_seeds",
                 "threshold",
                 "model_error",
+                "model_honesty",
                 "budget",
                 "frontier",
                 "costs",
@@ -829,6 +831,9 @@ def _env_figures(
                 held_out=_only(held_out, agents),
             ),
         )
+    honesty = _only(data.model_honesty[data.model_honesty["env"] == env], agents) if len(data.model_honesty) else None
+    if honesty is not None and len(honesty):
+        figures.add("model_honesty", plot_model_honesty(honesty, env, agents=agents, out_dir=out_dir, title=title))
     styles = agent_styles(agents)
     kinds = dict(zip(data.summary["agent"], data.summary["kind"], strict=True))
     families = [
@@ -1003,6 +1008,7 @@ def _analyse(frame: pd.DataFrame, facts: ExperimentFacts, envs: list[str], agent
             envs,
             agents,
         ),
+        model_honesty=_sort_by_order(model_honesty_table(frame), envs, agents, "point"),
     )
 
 
@@ -1114,6 +1120,7 @@ def _write_tables(
         "recovery_ratios.csv": data.rratios,
         "change_windows.csv": data.windows,
         "model_errors.csv": data.model_errors,
+        "model_honesty.csv": data.model_honesty,
     }
     tables.update({name: table for name, table in optional.items() if len(table)})
     if len(data.costs):

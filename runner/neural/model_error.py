@@ -59,6 +59,18 @@ class ModelHonesty:
     open_loop_spread: dict[int, float]
     open_loop_coverage: dict[int, float]
 
+    def columns(self) -> dict[str, float]:
+        """The metric columns these fill (`runner.metrics`): the errors and, beside them, spread and coverage."""
+        return {
+            "model_error_1": self.one_step,
+            "model_reward_error": self.reward,
+            **{f"model_error_{k}": self.open_loop[k] for k in ROLLOUT_STEPS},
+            "model_spread_1": self.one_step_spread,
+            "model_spread_5": self.open_loop_spread[5],
+            "model_coverage_1": self.one_step_coverage,
+            "model_coverage_5": self.open_loop_coverage[5],
+        }
+
 
 def predictor(model: DynamicsModel, params: Any) -> Callable[[np.ndarray, Any], tuple[np.ndarray, float]]:
     """The model's mean as `predict(observation, action) -> (next_observation, reward)`, one transition a call
