@@ -11,7 +11,7 @@ jax = pytest.importorskip("jax")
 import jax.numpy as jnp  # noqa: E402
 
 from runner.agents import AGENTS, agent_class, make_agent  # noqa: E402
-from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS  # noqa: E402
+from runner.metrics import HONESTY_COLUMNS, METRIC_COLUMNS, TIMING_COLUMNS  # noqa: E402
 from runner.neural.dyna import NeuralDynaCore  # noqa: E402
 from runner.params import budget_params  # noqa: E402
 from runner.trial import run_trial  # noqa: E402
@@ -68,7 +68,7 @@ def test_no_planning_is_the_q_network_bit_for_bit(path, steps, every):
     assert _same_rows(dyna, q)
     assert dyna.rows["real_updates"][-1] > 0
     assert np.all(dyna.rows["planning_updates"] == 0) and np.all(dyna.rows["model_updates"] == 0)
-    assert np.all(np.isnan(dyna.rows["model_error_1"]))
+    assert np.all(np.isnan(dyna.rows["model_error_1"])) and np.all(np.isnan(dyna.rows["model_spread_1"]))
 
 
 @pytest.fixture(scope="module")
@@ -92,10 +92,12 @@ def test_compiled_rows_repeat_and_count_what_the_schedule_says(compiled_runs):
 
 
 def test_compiled_rows_report_the_models_held_out_errors(compiled_runs):
-    """The errors are finite at every point, and the trained model's one-step error is below its untrained one."""
+    """The errors, spread and coverage are finite at every point, and the trained model's one-step error is below
+    its untrained one."""
     _, first, _ = compiled_runs
-    for column in ("model_error_1", "model_error_5", "model_error_20", "model_reward_error"):
+    for column in ("model_error_1", "model_error_5", "model_error_20", "model_reward_error", *HONESTY_COLUMNS):
         assert np.all(np.isfinite(first.rows[column])), column
+    assert np.all((first.rows["model_coverage_1"] >= 0) & (first.rows["model_coverage_1"] <= 1))
     assert first.rows["model_error_1"][-1] < first.rows["model_error_1"][0]
 
 

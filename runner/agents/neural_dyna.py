@@ -5,7 +5,7 @@ replay-based Q-network. Parameters and accounting here; the JAX side is `runner.
 from __future__ import annotations
 
 import dataclasses
-from typing import Any, ClassVar
+from typing import TYPE_CHECKING, Any, ClassVar
 
 import numpy as np
 
@@ -13,6 +13,10 @@ from runner.agents.neural import NeuralAgent
 from runner.agents.q_network import QNetwork
 from runner.params import PLANNING_BUDGET, Param
 from runner.tags import AgentTags
+
+if TYPE_CHECKING:
+    from runner.models.held_out import HeldOut
+    from runner.neural.model_error import ModelHonesty
 
 __all__ = ["NeuralDyna"]
 
@@ -92,6 +96,15 @@ class NeuralDyna(NeuralAgent):
             obs = np.asarray(observation, dtype=np.float32)[None]
             pred = self.core_.predict(self.state_, obs, np.asarray([int(action)], dtype=np.int32))
             return np.asarray(pred.next_state_mean[0], dtype=np.float64), float(pred.reward_mean[0])
+
+    def model_honesty(self, held: HeldOut) -> ModelHonesty | None:
+        """Held-out errors, predicted spread and coverage of the ensemble; None when no model is learned."""
+        if not self.has_function_model():
+            return None
+        import jax
+
+        with jax.enable_x64(True):
+            return self.core_.honesty(self.state_, held)
 
     def counter_problems(self, real_steps: int) -> list[str]:
         """Real updates as the Q-network's; `planning_steps` planning updates at every real-update step from the

@@ -44,12 +44,17 @@ import jax
 import jax.numpy as jnp
 import optax
 
+from runner.models.held_out import HeldOut
 from runner.neural.ensemble import EnsembleModel, EnsembleParams, ensemble_loss, fresh_members
 from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
 from runner.neural.model import ActionEncoding, Prediction, Scaler
+from runner.neural.model_error import ModelHonesty, held_out_honesty
 from runner.neural.q_network import QNetworkCore, QState, ReplayBuffer
 
-__all__ = ["DynaState", "NeuralDynaCore"]
+__all__ = ["HONESTY_KEY", "DynaState", "NeuralDynaCore"]
+
+HONESTY_KEY = 0
+"""Seed of the key of the particle rollouts that measure the model's k-step spread and coverage."""
 
 
 class DynaState(NamedTuple):
@@ -256,8 +261,14 @@ class NeuralDynaCore:
         return self.ensemble.predict(state.model, states, actions)
 
     def fitted(self, state: DynaState) -> tuple[EnsembleModel, EnsembleParams]:
-        """The model and its fitted params (the `runner.neural.model` interface, for held-out errors)."""
+        """The model and its fitted params (the `runner.neural.model` interface)."""
         return self.ensemble, state.model
+
+    def honesty(self, state: DynaState, held: HeldOut) -> ModelHonesty:
+        """The model's held-out errors, predicted spread and coverage (`runner.neural.model_error`). The particle
+        draws of the k-step spread use one fixed key, so from one evaluation point to the next only the model
+        changes (the errors themselves use the mean and draw nothing)."""
+        return held_out_honesty(*self.fitted(state), held, jax.random.key(HONESTY_KEY))
 
     def done_probability(self, state: DynaState, next_obs: jax.Array) -> jax.Array:
         """The termination predictor's probability that a transition into `next_obs` (b, obs_size) ends the

@@ -5,9 +5,9 @@ compiled call doing, per step, the agent's action, the environment step, the buf
 an evaluation is one compiled call playing all its greedy episodes as a batch (`vmap`) on a separate copy of the
 environment. So Python dispatch is paid once per chunk, not once per step. The wall-clock limit is checked between
 chunks. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths do; a kind with a learned function model
-(its core's `fitted(state) -> (model, params)`, `runner.neural.model`) has its held-out errors measured at every
-evaluation point by `runner.neural.model_error.held_out_honesty` (one batch; the definitions of
-`runner.models.held_out`), other kinds get NaN there. `cpu_seconds` excludes evaluation and the model errors, and
+(its core's `honesty(state, held) -> ModelHonesty`, `runner.neural.model_error.held_out_honesty` on its fitted
+model) has its held-out errors, predicted spread and coverage measured at every evaluation point (one batch; the
+definitions of `runner.models.held_out`), other kinds get NaN there. `cpu_seconds` excludes evaluation and the model errors, and
 compiling happens before the clocks start.
 
 Randomness: the agent's key comes from the trial's agent stream, the training environment's from its env stream and
@@ -35,7 +35,6 @@ from runner.errors import TrialTimeout
 from runner.metrics import METRIC_COLUMNS
 from runner.models.held_out import HeldOut
 from runner.neural.dynamics import JaxDynamics, jax_dynamics
-from runner.neural.model_error import held_out_honesty
 from runner.seeding import TrialStreams, jax_key_data
 
 __all__ = ["CACHE_VARIABLE", "CHUNK_STEPS", "run_neural_trial"]
@@ -179,12 +178,9 @@ def run_neural_trial(
         return _run(spec, box, agent, streams, time_limit, held)
 
 
-def _model_errors(core: Any, state: Any, held: HeldOut | None) -> tuple[float, ...]:
-    """(one-step, reward, 5-step, 20-step) held-out errors of the agent's fitted model, or NaN without one."""
-    if held is None:
-        return (np.nan,) * 4
-    honesty = held_out_honesty(*core.fitted(state), held, jax.random.key(0))
-    return honesty.one_step, honesty.reward, *honesty.open_loop.values()
+def _model_columns(core: Any, state: Any, held: HeldOut | None) -> dict[str, float]:
+    """The model columns the agent's held-out honesty fills (`ModelHonesty.columns`); none without a model."""
+    return core.honesty(state, held).columns() if held is not None else {}
 
 
 def _run(
@@ -237,9 +233,8 @@ def _run(
         rows["reward_earned"][point] = earned
         counts = np.asarray(core.counters(carry.agent))
         rows["real_updates"][point], rows["planning_updates"][point], rows["model_updates"][point] = counts
-        one_step, reward_error, short, long = _model_errors(core, carry.agent, held)
-        rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
-        rows["model_error_5"][point], rows["model_error_20"][point] = short, long
+        for name, value in _model_columns(core, carry.agent, held).items():
+            rows[name][point] = value
         rows["env_phase"][point] = 0
         rows["wall_seconds"][point] = time.perf_counter() - started
         measured += time.process_time() - measuring
