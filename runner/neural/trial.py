@@ -7,8 +7,8 @@ environment. So Python dispatch is paid once per chunk, not once per step. The w
 chunks. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths do; a kind with a learned function model
 (its core's `honesty(state, held) -> ModelHonesty`, `runner.neural.model_error.held_out_honesty` on its fitted
 model) has its held-out errors, predicted spread and coverage measured at every evaluation point (one batch; the
-definitions of `runner.models.held_out`), other kinds get NaN there. `cpu_seconds` excludes evaluation and the model errors, and
-compiling happens before the clocks start.
+definitions of `runner.models.held_out`), other kinds get NaN there. `cpu_seconds` excludes evaluation and the
+model errors, and compiling happens before the clocks start.
 
 Randomness: the agent's key comes from the trial's agent stream, the training environment's from its env stream and
 the evaluation environment's from its own (`runner.seeding`), so two runs of one spec give the same rows bit for
