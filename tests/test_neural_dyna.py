@@ -161,6 +161,27 @@ def test_model_and_termination_predictor_learn_a_known_system(trained):
     assert int(core.counters(state)[2]) == 40 * 50
 
 
+def test_the_gaussian_process_model_learns_the_known_system_in_the_loop():
+    """`model: gp`: the GP of `runner.neural.gp` refitted inside the compiled training round on the most recent
+    `gp_points` transitions of the buffer predicts the known system, and its rollouts draw from its predictive."""
+    with jax.enable_x64(True):
+        q = NeuralDynaCore.from_params({**Q_TINY, "buffer_size": 600}, 2, 2).q
+        core = NeuralDynaCore(q, model="gp", gp_points=64, model_steps=30, model_units=8)
+        state = core.train_model(_known_system_state(core, 600, seed=1))
+        grid = np.array([[x, y] for x in (-0.5, 0.0, 0.4) for y in (-0.5, 0.5)], np.float32)
+        for action in (0, 1):
+            pred = core.predict(state, grid, np.full(len(grid), action, np.int32))
+            expected = grid + np.array([0.2 * (2 * action - 1), 0.0], np.float32)
+            np.testing.assert_allclose(np.asarray(pred.next_state_mean), expected, atol=0.05)
+            np.testing.assert_allclose(np.asarray(pred.reward_mean), grid[:, 1], atol=0.05)
+        obs, actions, rewards, next_obs, _, _ = jax.jit(core.simulate)(state, jax.random.key(2))
+        pred = core.predict(state, obs, actions)
+    state_z = (np.asarray(next_obs) - np.asarray(pred.next_state_mean)) / np.sqrt(np.asarray(pred.next_state_var))
+    reward_z = (np.asarray(rewards) - np.asarray(pred.reward_mean)) / np.sqrt(np.asarray(pred.reward_var))
+    assert np.all(np.abs(state_z) < 5) and np.all(np.abs(reward_z) < 5)  # draws from the GP's own predictive
+    assert int(core.counters(state)[2]) == 30
+
+
 def test_rollouts_start_at_real_states_and_stop_at_predicted_ends(trained):
     core, state = trained
     with jax.enable_x64(True):

@@ -70,6 +70,22 @@ class NeuralDyna(NeuralAgent):
         Param("model_batch_size", "int", 64, "real transitions per member per model step", low=1, high=65536),
         Param("model_every", "int", 250, "real steps between model training rounds (from learning_starts on)", low=1),
         Param("model_steps", "int", 50, "Adam steps of the model per training round", low=1, high=100_000),
+        Param(
+            "model",
+            "choice",
+            "ensemble",
+            "the learned model: an ensemble of probabilistic MLPs, or a Gaussian process (runner.neural.gp) refitted "
+            "each round on the gp_points most recent real transitions (model_steps marginal-likelihood steps)",
+            choices=("ensemble", "gp"),
+        ),
+        Param(
+            "gp_points",
+            "int",
+            200,
+            "real transitions a Gaussian-process model is fitted on (model: gp)",
+            low=1,
+            high=4096,
+        ),
     )
 
     check_params: ClassVar[dict[str, Any]] = {

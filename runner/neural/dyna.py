@@ -46,6 +46,7 @@ import optax
 
 from runner.models.held_out import HeldOut
 from runner.neural.ensemble import EnsembleModel, EnsembleParams, ensemble_loss, fresh_members
+from runner.neural.gp import GaussianProcessModel, GPHyper, GPParams, GPPosterior, fit_hyper, posterior
 from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
 from runner.neural.model import ActionEncoding, Prediction, Scaler
 from runner.neural.model_error import ModelHonesty, held_out_honesty
@@ -94,6 +95,8 @@ class NeuralDynaCore:
     model_batch_size: int = 64
     model_every: int = 250
     model_steps: int = 50
+    model: str = "ensemble"
+    gp_points: int = 200
 
     @classmethod
     def from_params(cls, params: dict[str, Any], obs_size: int, n_actions: int) -> NeuralDynaCore:
@@ -115,6 +118,19 @@ class NeuralDynaCore:
         )
 
     @property
+    def gp(self) -> GaussianProcessModel:
+        """The model's hyperparameters as the Gaussian process of `runner.neural.gp` (`model: gp`): its
+        marginal likelihood's Adam steps are `model_steps` per round, at the GP's own step size."""
+        return GaussianProcessModel(
+            ActionEncoding(n_actions=self.q.n_actions), max_points=self.gp_points, iterations=self.model_steps
+        )
+
+    @property
+    def dynamics(self) -> EnsembleModel | GaussianProcessModel:
+        """The model this setting learns (`model: ensemble` or `gp`)."""
+        return self.gp if self.model == "gp" else self.ensemble
+
+    @property
     def learns_model(self) -> bool:
         """Whether a model is trained at all (not with `planning_steps` 0: it would never be used)."""
         return self.planning_steps > 0
@@ -125,17 +141,21 @@ class NeuralDynaCore:
         q = self.q.init(key)
         member_key, done_key, key = jax.random.split(jax.random.fold_in(key, 1), 3)
         d, width = self.q.obs_size, self.q.obs_size + self.q.n_actions
-        members = _float32(fresh_members(member_key, self.ensemble_size, self.model_sizes(width, d + 1)))
-        scalers = (
-            Scaler(jnp.zeros(width, jnp.float32), jnp.ones(width, jnp.float32)),
-            Scaler(jnp.zeros(d + 1, jnp.float32), jnp.ones(d + 1, jnp.float32)),
-        )
         done_net = init_mlp(done_key, (d, self.model_units, 1), jnp.float32)
         zero = jnp.zeros((), jnp.int32)
+        if self.model == "gp":
+            model, model_opt = _unfitted_gp(member_key, width, d + 1, self.gp_points), ()
+        else:
+            members = _float32(fresh_members(member_key, self.ensemble_size, self.model_sizes(width, d + 1)))
+            scalers = (
+                Scaler(jnp.zeros(width, jnp.float32), jnp.ones(width, jnp.float32)),
+                Scaler(jnp.zeros(d + 1, jnp.float32), jnp.ones(d + 1, jnp.float32)),
+            )
+            model, model_opt = EnsembleParams(*scalers, members), self._model_optimizer.init(members)
         return DynaState(
             q,
-            EnsembleParams(*scalers, members),
-            self._model_optimizer.init(members),
+            model,
+            model_opt,
             done_net,
             self._model_optimizer.init(done_net),
             zero,
@@ -215,39 +235,74 @@ class NeuralDynaCore:
         return self._plan(state)
 
     def _train_model(self, state: DynaState) -> DynaState:
-        """One training round: scalers from the whole buffer, then `model_steps` Adam steps."""
+        """One training round: scalers from the whole buffer, then `model_steps` Adam steps of the model (the
+        ensemble on minibatches; the GP's marginal likelihood on the `gp_points` most recent transitions) and of
+        the termination predictor."""
         buf = state.q.buffer
         inputs, targets = self._inputs(buf.obs, buf.actions), self._targets(buf)
         valid = (jnp.arange(buf.obs.shape[0]) < buf.size)[:, None]
         in_scaler, out_scaler = _masked_scaler(inputs, valid), _masked_scaler(targets, valid)
-        model = state.model._replace(inputs=in_scaler, targets=out_scaler)
         x, y = (inputs - in_scaler.mean) / in_scaler.scale, (targets - out_scaler.mean) / out_scaler.scale
-        state_scaler = Scaler(in_scaler.mean[: self.q.obs_size], in_scaler.scale[: self.q.obs_size])
-        next_x = (buf.next_obs - state_scaler.mean) / state_scaler.scale
-        ones = jnp.ones(self.model_batch_size, jnp.float32)
+        next_x = (buf.next_obs - in_scaler.mean[: self.q.obs_size]) / in_scaler.scale[: self.q.obs_size]
+        key, model_key, done_key = jax.random.split(state.key, 3)
+        if self.model == "gp":
+            model, model_opt = self._fit_gp(state.model, x, y, buf, in_scaler, out_scaler), state.model_opt
+        else:
+            model, model_opt = self._fit_ensemble(state, x, y, buf.size, model_key)
+            model = model._replace(inputs=in_scaler, targets=out_scaler)
         activation = self.model_activation
 
         def step(_: int, carry: tuple) -> tuple:
-            members, model_opt, done_net, done_opt, key = carry
+            done_net, done_opt, key = carry
             key, draw = jax.random.split(key)
-            idx = jax.random.randint(draw, (self.ensemble_size, self.model_batch_size), 0, jnp.maximum(buf.size, 1))
-            grads = jax.grad(ensemble_loss)(members, x[idx], y[idx], ones, jnp.float32(0.01), activation)
-            changes, model_opt = self._model_optimizer.update(grads, model_opt, members)
-            members = optax.apply_updates(members, changes)
-            done_grads = jax.grad(_done_loss)(done_net, next_x[idx[0]], buf.terminated[idx[0]], activation)
-            done_changes, done_opt = self._model_optimizer.update(done_grads, done_opt, done_net)
-            return members, model_opt, optax.apply_updates(done_net, done_changes), done_opt, key
+            idx = jax.random.randint(draw, (self.model_batch_size,), 0, jnp.maximum(buf.size, 1))
+            grads = jax.grad(_done_loss)(done_net, next_x[idx], buf.terminated[idx], activation)
+            changes, done_opt = self._model_optimizer.update(grads, done_opt, done_net)
+            return optax.apply_updates(done_net, changes), done_opt, key
 
-        start = (model.members, state.model_opt, state.done_net, state.done_opt, state.key)
-        members, model_opt, done_net, done_opt, key = jax.lax.fori_loop(0, self.model_steps, step, start)
+        done_net, done_opt, _ = jax.lax.fori_loop(0, self.model_steps, step, (state.done_net, state.done_opt, done_key))
         return state._replace(
-            model=model._replace(members=members),
+            model=model,
             model_opt=model_opt,
             done_net=done_net,
             done_opt=done_opt,
             rounds=state.rounds + 1,
             key=key,
         )
+
+    def _fit_ensemble(
+        self, state: DynaState, x: jax.Array, y: jax.Array, size: jax.Array, key: jax.Array
+    ) -> tuple[EnsembleParams, Any]:
+        """`model_steps` Adam steps of every member, each on its own uniform draw of `model_batch_size` rows."""
+        ones = jnp.ones(self.model_batch_size, jnp.float32)
+
+        def step(_: int, carry: tuple) -> tuple:
+            members, opt, key = carry
+            key, draw = jax.random.split(key)
+            idx = jax.random.randint(draw, (self.ensemble_size, self.model_batch_size), 0, jnp.maximum(size, 1))
+            grads = jax.grad(ensemble_loss)(members, x[idx], y[idx], ones, jnp.float32(0.01), self.model_activation)
+            changes, opt = self._model_optimizer.update(grads, opt, members)
+            return optax.apply_updates(members, changes), opt, key
+
+        members, opt, _ = jax.lax.fori_loop(0, self.model_steps, step, (state.model.members, state.model_opt, key))
+        return state.model._replace(members=members), opt
+
+    def _fit_gp(
+        self, previous: GPParams, x: jax.Array, y: jax.Array, buf: ReplayBuffer, in_scaler: Scaler, out_scaler: Scaler
+    ) -> GPParams:
+        """The GP refitted (float64, from the previous round's hyperparameters) on the `gp_points` most recent
+        transitions of the ring buffer (`selection: recent` of `runner.neural.gp`)."""
+        m, capacity = self.gp_points, buf.obs.shape[0]
+        rows = (buf.slot - 1 - jnp.arange(m)) % capacity
+        mask = jnp.arange(m) < buf.size
+        gp = self.gp
+        x = jnp.where(mask[:, None], x[rows], 0.0).astype(jnp.float64)
+        y = jnp.where(mask[:, None], y[rows], 0.0).astype(jnp.float64)
+        fit = jax.vmap(fit_hyper, in_axes=(None, 1, None, 0, None, None, None))
+        hyper = fit(x, y, mask, previous.hyper, gp.iterations, gp.learning_rate, gp.min_noise_var)
+        post = jax.vmap(posterior, in_axes=(0, None, 1, None))(hyper, x, y, mask)
+        scalers = (Scaler(*(a.astype(jnp.float64) for a in sc)) for sc in (in_scaler, out_scaler))
+        return GPParams(*scalers, hyper, post)
 
     def _inputs(self, obs: jax.Array, actions: jax.Array) -> jax.Array:
         return jnp.concatenate([obs, jax.nn.one_hot(actions, self.q.n_actions, dtype=jnp.float32)], axis=-1)
@@ -257,12 +312,12 @@ class NeuralDynaCore:
 
     @functools.partial(jax.jit, static_argnums=0)
     def predict(self, state: DynaState, states: jax.Array, actions: jax.Array) -> Prediction:
-        """The ensemble's predictive mean and variance of the next state and reward for a batch."""
-        return self.ensemble.predict(state.model, states, actions)
+        """The model's predictive mean and variance of the next state and reward for a batch."""
+        return self.dynamics.predict(state.model, states, actions)
 
-    def fitted(self, state: DynaState) -> tuple[EnsembleModel, EnsembleParams]:
+    def fitted(self, state: DynaState) -> tuple[EnsembleModel | GaussianProcessModel, Any]:
         """The model and its fitted params (the `runner.neural.model` interface)."""
-        return self.ensemble, state.model
+        return self.dynamics, state.model
 
     def honesty(self, state: DynaState, held: HeldOut) -> ModelHonesty:
         """The model's held-out errors, predicted spread and coverage (`runner.neural.model_error`). The particle
@@ -275,7 +330,7 @@ class NeuralDynaCore:
         episode."""
         scaler = state.model.inputs
         d = self.q.obs_size
-        x = (next_obs - scaler.mean[:d]) / scaler.scale[:d]
+        x = ((next_obs - scaler.mean[:d]) / scaler.scale[:d]).astype(jnp.float32)
         return jax.nn.sigmoid(apply_mlp(state.done_net, x, self.model_activation)[..., 0])
 
     def simulate(self, state: DynaState, key: jax.Array) -> tuple[jax.Array, ...]:
@@ -286,7 +341,6 @@ class NeuralDynaCore:
         start_key, key = jax.random.split(key)
         starts = q.buffer.obs[jax.random.randint(start_key, (runs,), 0, jnp.maximum(q.buffer.size, 1))]
         epsilon = self.q.epsilon(q.steps)
-        model = self.ensemble
 
         def step(carry: tuple, step_key: jax.Array) -> tuple:
             obs, alive = carry
@@ -294,8 +348,12 @@ class NeuralDynaCore:
             greedy = self.q.greedy(q.online, obs)
             random_actions = jax.random.randint(action_key, (runs,), 0, self.q.n_actions, jnp.int32)
             actions = jnp.where(jax.random.uniform(explore_key, (runs,)) < epsilon, random_actions, greedy)
-            members = jax.random.randint(member_key, (runs,), 0, self.ensemble_size)
-            next_obs, rewards = model.sample_members(state.model, draw_key, obs, actions, members)
+            if self.model == "gp":
+                next_obs, rewards = self.gp.sample(state.model, draw_key, obs, actions)
+            else:
+                members = jax.random.randint(member_key, (runs,), 0, self.ensemble_size)
+                next_obs, rewards = self.ensemble.sample_members(state.model, draw_key, obs, actions, members)
+            next_obs, rewards = next_obs.astype(jnp.float32), rewards.astype(jnp.float32)
             ended = jax.random.uniform(end_key, (runs,)) < self.done_probability(state, next_obs)
             out = (obs, actions, rewards, next_obs, ended, alive.astype(jnp.float32))
             return (next_obs, alive & ~ended), out
@@ -353,6 +411,25 @@ class NeuralDynaCore:
 
 def _float32(tree: Any) -> Any:
     return jax.tree_util.tree_map(lambda a: a.astype(jnp.float32), tree)
+
+
+def _unfitted_gp(key: jax.Array, inputs: int, outputs: int, points: int) -> GPParams:
+    """A GP before its first fit (float64): length scales drawn log-uniformly in [e^-0.5, e^0.5] as
+    `GaussianProcessModel.fit` starts them, signal variance 1, noise variance 0.1, no training points."""
+    f64 = jnp.float64
+    hyper = GPHyper(
+        jnp.exp(jax.random.uniform(key, (outputs, inputs), f64, -0.5, 0.5)),
+        jnp.ones(outputs, f64),
+        jnp.full(outputs, 0.1, f64),
+    )
+    post = GPPosterior(
+        jnp.zeros((outputs, points, inputs), f64),
+        jnp.zeros((outputs, points), jnp.bool_),
+        jnp.zeros((outputs, points), f64),
+        jnp.broadcast_to(jnp.eye(points, dtype=f64), (outputs, points, points)),
+    )
+    scalers = (Scaler(jnp.zeros(n, f64), jnp.ones(n, f64)) for n in (inputs, outputs))
+    return GPParams(*scalers, hyper, post)
 
 
 def _masked_scaler(columns: jax.Array, valid: jax.Array) -> Scaler:
