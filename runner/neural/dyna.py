@@ -11,6 +11,9 @@ that core's own calls. On top of it:
   its own `model_batch_size` transitions drawn uniformly with replacement from the buffer (the online stand-in for
   each member's bootstrap); the scalers of inputs and targets are the mean and standard deviation of the whole
   buffer, recomputed at the start of every round;
+- or, with `model: gp`, the Gaussian process of `runner.neural.gp` (one GP per output, float64): every round
+  refitted on the `gp_points` most recent transitions of the buffer (its `selection: recent`), `model_steps` Adam
+  steps of the log marginal likelihood at the GP's own step size from the previous round's hyperparameters;
 - the termination predictor: a logistic classifier (an MLP of one hidden layer of `model_units` with one
   output logit) of the next state, trained in the same Adam steps on the same draws by the binary cross-entropy
   against the real `terminated` flags (truncations are not terminations). In a rollout each simulated step ends
@@ -21,7 +24,7 @@ that core's own calls. On top of it:
   network as the real updates) on `batch_size` simulated transitions made fresh for it: ceil(batch_size /
   rollout_length) rollouts of `rollout_length` steps, each starting at a real state drawn uniformly from the buffer,
   actions epsilon-greedy under the online network (the behaviour policy's epsilon), each step sampled from a member
-  drawn at random per row and step (trajectory sampling, PETS), the first `batch_size` transitions in step order.
+  drawn at random per row and step (trajectory sampling, PETS; the GP: from its predictive Gaussian), the first `batch_size` transitions in step order.
   Planning moves the online network only: the target network keeps the schedule of the real updates.
 
 Why extra updates on fresh simulated minibatches rather than a model buffer mixed into the real minibatches: the
@@ -30,8 +33,8 @@ steps on the same unit as `replays` (one planning update is one minibatch gradie
 and `planning_steps: 0` is the Q-network itself, bit for bit (no model is trained then: it would never be used).
 
 Counters: real updates are the Q-network's; planning updates the simulated minibatch steps; model updates the Adam
-steps of the model (ensemble and termination predictor together count one per step). Networks, the model and the
-buffer are float32.
+steps of the model (ensemble or GP and termination predictor together count one per step). Networks, the ensemble
+and the buffer are float32; the GP is float64.
 """
 
 from __future__ import annotations
