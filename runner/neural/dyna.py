@@ -21,11 +21,12 @@ that core's own calls. On top of it:
   is a learned predictor: the environment's own termination test is never used;
 - planning: once the model has had a round, every real step that makes real updates also makes `planning_steps`
   planning updates. Each is one Q-network minibatch gradient step (the same Huber loss, Adam state and target
-  network as the real updates) on `batch_size` simulated transitions made fresh for it: ceil(batch_size /
+  state as the real updates) on `batch_size` simulated transitions made fresh for it: ceil(batch_size /
   rollout_length) rollouts of `rollout_length` steps, each starting at a real state drawn uniformly from the buffer,
   actions epsilon-greedy under the online network (the behaviour policy's epsilon), each step sampled from a member
-  drawn at random per row and step (trajectory sampling, PETS; the GP: from its predictive Gaussian), the first `batch_size` transitions in step order.
-  Planning moves the online network only: the target network keeps the schedule of the real updates.
+  drawn at random per row and step (trajectory sampling, PETS; the GP: from its predictive Gaussian), the first
+  `batch_size` transitions in step order. Planning moves the online network only: the target network keeps the
+  schedule of the real updates.
 
 Why extra updates on fresh simulated minibatches rather than a model buffer mixed into the real minibatches: the
 real updates stay exactly the Q-network's, so the planning budget is a separate, countable number of gradient
