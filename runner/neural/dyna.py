@@ -21,7 +21,7 @@ that core's own calls. On top of it:
   is a learned predictor: the environment's own termination test is never used;
 - planning: once the model has had a round, every real step that makes real updates also makes `planning_steps`
   planning updates. Each is one Q-network minibatch gradient step (the same Huber loss, Adam state and target
-  state as the real updates) on `batch_size` simulated transitions made fresh for it: ceil(batch_size /
+  network as the real updates) on `batch_size` simulated transitions made fresh for it: ceil(batch_size /
   rollout_length) rollouts of `rollout_length` steps, each starting at a real state drawn uniformly from the buffer,
   actions epsilon-greedy under the online network (the behaviour policy's epsilon), each step sampled from a member
   drawn at random per row and step (trajectory sampling, PETS; the GP: from its predictive Gaussian), the first
