@@ -1,6 +1,6 @@
-"""The `neural_dyna` kind: Dyna with a learned neural model (an ensemble of probabilistic MLPs, Chua et al. 2018)
-planning by short rollouts from replayed real states (Janner et al. 2019) into the minibatch updates of the
-replay-based Q-network. Parameters and accounting here; the JAX side is `runner.neural.dyna`."""
+"""The `neural_dyna` kind: Dyna with a learned model (an ensemble of probabilistic MLPs, Chua et al. 2018, or a
+Gaussian process) planning by short rollouts from replayed real states (Janner et al. 2019) into the minibatch
+updates of the replay-based Q-network. Parameters and accounting here; the JAX side is `runner.neural.dyna`."""
 
 from __future__ import annotations
 
@@ -33,7 +33,7 @@ def _q_params() -> tuple[Param, ...]:
 
 class NeuralDyna(NeuralAgent):
     """Dyna-style Q-network: real minibatch updates as `q_network`, plus planning updates on transitions simulated
-    by a learned ensemble model with a learned termination predictor."""
+    by a learned model (ensemble or GP) with a learned termination predictor."""
 
     kind = "neural_dyna"
     summary = (

@@ -63,11 +63,11 @@ HONESTY_KEY = 0
 
 
 class DynaState(NamedTuple):
-    """The Q-network's state, the fitted model (scalers, members, termination predictor), their optimiser states,
-    the counts of model rounds and planning updates, and the key of the model's draws."""
+    """The Q-network's state, the fitted model (the ensemble's or the GP's params) and termination predictor,
+    their optimiser states, the counts of model rounds and planning updates, and the key of the model's draws."""
 
     q: QState
-    model: EnsembleParams
+    model: EnsembleParams | GPParams
     model_opt: Any
     done_net: MLPParams
     done_opt: Any
