@@ -22,6 +22,7 @@ from joblib import delayed
 
 from runner.cluster import DEFAULT_TIMEOUT
 from runner.errors import TrialTimeout
+from runner.metrics import HONESTY_COLUMNS
 from runner.plan import PlannedTrial
 from runner.trial import resolve_path, run_trial
 from runner.workers import pool, stop_workers
@@ -33,8 +34,10 @@ NAN_ALLOWED = (
     "model_error_1",
     "model_error_5",
     "model_error_20",
+    *HONESTY_COLUMNS,
 )
-"""Metric columns where NaN means "not applicable yet" rather than a broken trial."""
+"""Metric columns where NaN means "not applicable yet" rather than a broken trial (the honesty columns: NaN for
+every agent without a probabilistic model)."""
 
 __all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "ignore_interrupts", "run_parallel", "warm_up"]
 
