@@ -50,7 +50,7 @@ TILES = {"kind": "tiles", "tilings": 8, "tiles": 8, "hash_size": 0}
 PARAMS = {"alpha": 0.5, "gamma": 1.0, "epsilon": 0.1, "features": TILES}
 
 
-def _compiled_cpu_seconds(kind: str, params: dict, steps: int, seed: int) -> tuple[float, np.ndarray]:
+def compiled_cpu_seconds(kind: str, params: dict, steps: int, seed: int) -> tuple[float, np.ndarray]:
     """CPU seconds of one compiled trial of `steps` real steps (one evaluation step at the start and the end)."""
     spec = dynamics_spec(ENV_ID)
     dynamics = BoxDynamics(ENV_ID, spec.default_params(), spec.step_limit, spec.state_size, spec.obs_size)
@@ -142,20 +142,20 @@ def main(argv: list[str] | None = None) -> int:
     print(f"pinning: {pin_to_one_core()}; CPU: {cpu_model()}")
     print(f"plain tile coding picks the compiled kernel's tiles: {'yes' if _same_tiles(args.seed) else 'NO'}")
     before = CpuSnapshot.take()
-    _compiled_cpu_seconds("linear_sarsa", PARAMS, 1000, args.seed)
+    compiled_cpu_seconds("linear_sarsa", PARAMS, 1000, args.seed)
     dyna = {**PARAMS, "planning_steps": 10, "features": TILES}
-    _compiled_cpu_seconds("linear_dyna", dyna, 1000, args.seed)
-    compiled = min(_compiled_cpu_seconds("linear_sarsa", PARAMS, compiled_steps, args.seed)[0] for _ in range(REPEATS))
+    compiled_cpu_seconds("linear_dyna", dyna, 1000, args.seed)
+    compiled = min(compiled_cpu_seconds("linear_sarsa", PARAMS, compiled_steps, args.seed)[0] for _ in range(REPEATS))
     plain = min(_plain_python_cpu_seconds(plain_steps, args.seed) for _ in range(REPEATS))
     planning = []
     for _ in range(REPEATS):
-        seconds, counters = _compiled_cpu_seconds("linear_dyna", dyna, dyna_steps, args.seed)
+        seconds, counters = compiled_cpu_seconds("linear_dyna", dyna, dyna_steps, args.seed)
         planning.append((seconds, counters))
     seconds, counters = min(planning, key=lambda item: item[0])
     swept = {**dyna, "sweeping": "prioritized"}
-    _compiled_cpu_seconds("linear_dyna", swept, 1000, args.seed)
+    compiled_cpu_seconds("linear_dyna", swept, 1000, args.seed)
     sweeping = min(
-        (_compiled_cpu_seconds("linear_dyna", swept, dyna_steps, args.seed) for _ in range(REPEATS)),
+        (compiled_cpu_seconds("linear_dyna", swept, dyna_steps, args.seed) for _ in range(REPEATS)),
         key=lambda item: item[0],
     )
     measuring = min(_model_error_cpu_seconds(dyna, args.seed) for _ in range(REPEATS))

@@ -18,38 +18,16 @@ import numpy as np
 from numba import njit
 
 try:  # run as a script: benchmarks/ is on sys.path
+    from linear_speed import ENV_ID, compiled_cpu_seconds
     from planning_speed import REPEATS, command_line, cpu_model, pin_to_one_core
     from speed import CpuSnapshot, other_cpu_use
 except ImportError:  # imported as part of a package rather than run as a script
+    from benchmarks.linear_speed import ENV_ID, compiled_cpu_seconds
     from benchmarks.planning_speed import REPEATS, command_line, cpu_model, pin_to_one_core
     from benchmarks.speed import CpuSnapshot, other_cpu_use
 
-from runner.agents import make_agent
-from runner.compiled_box_trial import BoxDynamics, run_box_kind_trial
-from runner.envs.dynamics import dynamics_spec
-from runner.metrics import METRIC_COLUMNS
-from runner.streams import new_stream
-
-ENV_ID = "MountainCar-v0"
-LOW, HIGH = np.array([-1.2, -0.07]), np.array([0.6, 0.07])
 HASH_SIZES = (0, 4096, 65536, 1 << 20)
 """0: no hashing (8 x 81 = 648 features per action)."""
-
-
-def _compiled_cpu_seconds(kind: str, params: dict, steps: int, seed: int) -> float:
-    """CPU seconds of one compiled trial of `steps` real steps (one evaluation step at the start and the end)."""
-    spec = dynamics_spec(ENV_ID)
-    dynamics = BoxDynamics(ENV_ID, spec.default_params(), spec.step_limit, spec.state_size, spec.obs_size)
-    agent = make_agent(kind, params)
-    agent.setup(spec.obs_size, spec.action_size, seed, bounds=(LOW, HIGH))
-    rows = np.zeros((2, len(METRIC_COLUMNS)))
-    returns, lengths = np.zeros(steps), np.zeros(steps, dtype=np.int64)
-    args = (new_stream(seed + 1), new_stream(seed + 2), new_stream(seed + 3), steps, steps, 1, 1, 5, 0.0)
-    start = time.process_time()
-    run_box_kind_trial(
-        kind, dynamics, agent.arrays_, agent.hyper_, agent.counters_, agent.stream_, *args, rows, returns, lengths
-    )
-    return time.process_time() - start
 
 
 @njit(cache=True)
@@ -91,8 +69,8 @@ def main(argv: list[str] | None = None) -> int:
         traced = {**base, "lam": 0.9}
         rates = []
         for kind, params in (("linear_sarsa", base), ("linear_true_online_sarsa", traced)):
-            _compiled_cpu_seconds(kind, params, 1000, args.seed)
-            seconds = min(_compiled_cpu_seconds(kind, params, steps, args.seed) for _ in range(REPEATS))
+            compiled_cpu_seconds(kind, params, 1000, args.seed)
+            seconds = min(compiled_cpu_seconds(kind, params, steps, args.seed)[0] for _ in range(REPEATS))
             rates.append(steps / seconds)
         n_features = hash_size or 8 * 81
         dense = _dense_seconds_per_step(n_features, max(10, 2_000_000 // (n_features * scale)))

@@ -20,28 +20,11 @@ import numpy as np
 from numba import literally, njit, typeof, types
 
 from runner.clock import cpu_clock, wall_clock
+from runner.compiled_rows import record_point, record_times
 from runner.compiled_trial import agent_act, agent_greedy, agent_observe
 from runner.envs.bins import BinnedObservation, bin_index
 from runner.envs.dynamics import DYNAMICS
 from runner.envs.dynamics.compiled import env_observation, env_reset, env_step
-from runner.metrics import (
-    CPU_SECONDS,
-    ENV_PHASE,
-    EPISODES,
-    EVAL_RETURN,
-    MODEL_ERROR_1,
-    MODEL_ERROR_5,
-    MODEL_ERROR_20,
-    MODEL_REWARD_ERROR,
-    MODEL_TV_ERROR,
-    MODEL_UPDATES,
-    PLANNING_UPDATES,
-    REAL_STEPS,
-    REAL_UPDATES,
-    REWARD_EARNED,
-    TRAIN_RETURN,
-    WALL_SECONDS,
-)
 from runner.models.held_out_bins import bin_arrays, bin_model_errors
 
 __all__ = ["CompiledDynamics", "compiled_dynamics", "run_dynamics_kind_trial", "run_dynamics_trial"]
@@ -195,10 +178,7 @@ def run_dynamics_trial(
                 s = bin_index(obs, edges, edge_offsets, strides)
         if step % every == 0:
             measuring = cpu_clock()
-            rows[point, REAL_STEPS] = step
-            rows[point, REWARD_EARNED] = earned
-            rows[point, EPISODES] = n_episodes
-            rows[point, EVAL_RETURN] = _evaluate(
+            value = _evaluate(
                 kind,
                 env_id,
                 arrays,
@@ -212,24 +192,10 @@ def run_dynamics_trial(
                 eval_env_stream,
                 eval_stream,
             )
-            if n_episodes == 0:
-                rows[point, TRAIN_RETURN] = np.nan
-            else:
-                first = n_episodes - window if n_episodes > window else 0
-                rows[point, TRAIN_RETURN] = episode_returns[first:n_episodes].mean()
-            rows[point, REAL_UPDATES] = counters[0]
-            rows[point, PLANNING_UPDATES] = counters[1]
-            rows[point, MODEL_UPDATES] = counters[2]
-            rows[point, MODEL_TV_ERROR] = np.nan
             one_step, reward_error, short, long = bin_model_errors(kind, arrays, bins, grid, held)
-            rows[point, MODEL_REWARD_ERROR] = reward_error
-            rows[point, MODEL_ERROR_1] = one_step
-            rows[point, MODEL_ERROR_5] = short
-            rows[point, MODEL_ERROR_20] = long
-            rows[point, ENV_PHASE] = 0
-            rows[point, WALL_SECONDS] = wall_clock() - started
-            rows[point, CPU_SECONDS] = measuring - cpu_started - measured
-            measured += cpu_clock() - measuring
+            errors = (np.nan, reward_error, one_step, short, long)
+            record_point(rows, point, step, earned, n_episodes, value, episode_returns, window, counters, errors, 0)
+            measured = record_times(rows, point, started, cpu_started, measuring, measured)
             point += 1
     return n_episodes
 

@@ -21,24 +21,7 @@ from numba.extending import overload
 from runner.agents import agent_class
 from runner.agents.kernels import NO_REFCOUNTS
 from runner.clock import cpu_clock, wall_clock
-from runner.metrics import (
-    CPU_SECONDS,
-    ENV_PHASE,
-    EPISODES,
-    EVAL_RETURN,
-    MODEL_ERROR_1,
-    MODEL_ERROR_5,
-    MODEL_ERROR_20,
-    MODEL_REWARD_ERROR,
-    MODEL_TV_ERROR,
-    MODEL_UPDATES,
-    PLANNING_UPDATES,
-    REAL_STEPS,
-    REAL_UPDATES,
-    REWARD_EARNED,
-    TRAIN_RETURN,
-    WALL_SECONDS,
-)
+from runner.compiled_rows import record_point, record_times
 from runner.streams import uniform
 
 __all__ = ["run_kind_trial", "run_table_trial", "sample_outcome", "sample_start"]
@@ -74,8 +57,9 @@ def _kernel(kind, attribute: str, refcount_free: bool) -> Any:
     return kernel if free == refcount_free else None
 
 
-def _greedy(kind, refcount_free):
-    kernel = _kernel(kind, "greedy_kernel", refcount_free)
+def _choose(kind, attribute: str, refcount_free: bool) -> Any:
+    """An implementation calling the action-choosing kernel `attribute` (act or greedy) of the literal kind."""
+    kernel = _kernel(kind, attribute, refcount_free)
     if kernel is None:
         return None
 
@@ -87,12 +71,12 @@ def _greedy(kind, refcount_free):
 
 @overload(agent_greedy)
 def _agent_greedy(kind, arrays, hyper, state, stream):
-    return _greedy(kind, False)
+    return _choose(kind, "greedy_kernel", False)
 
 
 @overload(agent_greedy, jit_options=NO_REFCOUNTS)
 def _agent_greedy_free(kind, arrays, hyper, state, stream):
-    return _greedy(kind, True)
+    return _choose(kind, "greedy_kernel", True)
 
 
 def agent_model_error(kind, arrays, table):
@@ -146,25 +130,14 @@ def _agent_function_predict(kind, arrays, observation, action, out):
     return impl
 
 
-def _act(kind, refcount_free):
-    kernel = _kernel(kind, "act_kernel", refcount_free)
-    if kernel is None:
-        return None
-
-    def impl(kind, arrays, hyper, state, stream):
-        return kernel(arrays, hyper, state, stream)
-
-    return impl
-
-
 @overload(agent_act)
 def _agent_act(kind, arrays, hyper, state, stream):
-    return _act(kind, False)
+    return _choose(kind, "act_kernel", False)
 
 
 @overload(agent_act, jit_options=NO_REFCOUNTS)
 def _agent_act_free(kind, arrays, hyper, state, stream):
-    return _act(kind, True)
+    return _choose(kind, "act_kernel", True)
 
 
 def _observe(kind, refcount_free):
@@ -328,33 +301,15 @@ def run_table_trial(
                 s = sample_start(start_cdf, env_stream)
         if step % every == 0:
             measuring = cpu_clock()
-            rows[point, REAL_STEPS] = step
-            rows[point, REWARD_EARNED] = earned
-            rows[point, EPISODES] = n_episodes
             value, late = _evaluate(
                 kind, arrays, hyper, table, step_cap, eval_episodes, eval_env_stream, eval_stream, watch, deadline
             )
             if late:
                 return -1
-            rows[point, EVAL_RETURN] = value
-            if n_episodes == 0:
-                rows[point, TRAIN_RETURN] = np.nan
-            else:
-                first = n_episodes - window if n_episodes > window else 0
-                rows[point, TRAIN_RETURN] = episode_returns[first:n_episodes].mean()
-            rows[point, REAL_UPDATES] = counters[0]
-            rows[point, PLANNING_UPDATES] = counters[1]
-            rows[point, MODEL_UPDATES] = counters[2]
             tv, reward_error = agent_model_error(literally(kind), arrays, table)
-            rows[point, MODEL_TV_ERROR] = tv
-            rows[point, MODEL_REWARD_ERROR] = reward_error
-            rows[point, MODEL_ERROR_1] = np.nan
-            rows[point, MODEL_ERROR_5] = np.nan
-            rows[point, MODEL_ERROR_20] = np.nan
-            rows[point, ENV_PHASE] = phase
-            rows[point, WALL_SECONDS] = wall_clock() - started
-            rows[point, CPU_SECONDS] = measuring - cpu_started - measured
-            measured += cpu_clock() - measuring
+            errors = (tv, reward_error, np.nan, np.nan, np.nan)
+            record_point(rows, point, step, earned, n_episodes, value, episode_returns, window, counters, errors, phase)
+            measured = record_times(rows, point, started, cpu_started, measuring, measured)
             point += 1
     return n_episodes
 

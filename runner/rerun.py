@@ -12,7 +12,7 @@ import numpy as np
 from runner.analysis.frames import open_store
 from runner.errors import StoreError
 from runner.metrics import METRIC_COLUMNS, TIMING_COLUMNS
-from runner.provenance import platform_text, versions
+from runner.provenance import WORKER_THREADS, platform_text, versions
 from runner.schedule import warm_up
 from runner.trial import run_trial
 from runner.trust import check_stored_spec
@@ -118,7 +118,7 @@ def rerun_trials(folder: str | Path, trial_ids: list[str], *, trust_code: bool =
         changed = [
             f"{name} {now_versions.get(name, 'absent')} (stored {old})"
             for name, old in run_versions.items()
-            if now_versions.get(name) != old
+            if name != WORKER_THREADS and now_versions.get(name) != old
         ]
         if run_platform != now_platform:
             changed.append(f"platform {now_platform} (stored {run_platform})")

@@ -18,7 +18,7 @@ from runner.limits import CONFIRM_METRIC_ROWS, CONFIRM_TRIALS
 from runner.lock import ExperimentLock
 from runner.plan import PlannedTrial, plan_trials
 from runner.progress import Progress
-from runner.provenance import platform_text, versions
+from runner.provenance import platform_text, versions, worker_threads
 from runner.safe_files import remove_leftovers
 from runner.schedule import TrialOutcome, run_parallel, warm_up
 from runner.start_over import confirm_start_over
@@ -26,7 +26,7 @@ from runner.store import Store, experiment_dir, remove_store
 from runner.store_check import repair_store
 from runner.store_faults import faults_as_store_errors
 from runner.wording import count
-from runner.workers import default_jobs, stop_workers
+from runner.workers import default_jobs, stop_workers, worker_thread_caps
 
 __all__ = ["RunOptions", "RunSummary", "experiment_facts", "run_experiment"]
 
@@ -208,12 +208,15 @@ def _run_locked(
         return summary
     if options.cluster:
         check_reachable(options.cluster, options.cluster_timeout)
+    recorded = versions()
+    if n_jobs > 1 and not options.cluster:
+        recorded.update(worker_threads(worker_thread_caps()))
     run_id = store.begin_run(
         command=command or " ".join(sys.argv),
         experiment_file=str(Path(path).resolve()),
         experiment_text=experiment.text,
         experiment_hash=experiment.text_hash,
-        versions=versions(),
+        versions=recorded,
         platform=platform_text(),
         jobs=n_jobs,
     )

@@ -36,8 +36,7 @@ NAN_ALLOWED = (
     "model_error_20",
     *HONESTY_COLUMNS,
 )
-"""Metric columns where NaN means "not applicable yet" rather than a broken trial (the honesty columns: NaN for
-every agent without a probabilistic model)."""
+"""Metric columns where NaN means "not applicable yet" rather than a broken trial."""
 
 __all__ = ["NAN_ALLOWED", "TrialOutcome", "execute_trial", "ignore_interrupts", "run_parallel", "warm_up"]
 

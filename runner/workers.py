@@ -8,6 +8,14 @@ and no worker inherits the parent's open database or threads. Each worker then s
 (`prepare_worker`) and loads each compiled loop from numba's disk cache on its first trial. A worker watches the
 run's process and exits within half a second of it, however the run ends (a worker's own task queue would not
 tell it). This module imports nothing heavy itself.
+
+Each worker runs one trial at a time, and the pool has as many workers as cores, so a worker whose BLAS library
+(OpenBLAS, MKL, BLIS, or OpenMP under them) started a thread per core would put cores x cores threads on the
+machine; OpenBLAS's threads spin while they wait, which made a 200 x 200 Cholesky factorisation over 100 times
+slower on a busy two-core machine. The fork server therefore starts with each of those libraries capped at one
+thread (`worker_thread_caps`), unless the user set the variable: the libraries read it when numpy is imported,
+in the fork server, before any worker exists. Dask's nanny caps OpenMP, MKL and OpenBLAS the same way in the
+cluster workers it starts (`distributed.nanny.pre-spawn-environ`).
 """
 
 from __future__ import annotations
@@ -17,17 +25,28 @@ import os
 import signal
 import threading
 import time
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
 from typing import Any
 
 __all__ = [
+    "THREAD_VARIABLES",
     "default_jobs",
     "pool",
     "prepare_worker",
     "start_workers",
     "stop_workers",
+    "worker_thread_caps",
     "workers_ignore_interrupts",
 ]
+
+THREAD_VARIABLES = (
+    "OMP_NUM_THREADS",
+    "OPENBLAS_NUM_THREADS",
+    "MKL_NUM_THREADS",
+    "BLIS_NUM_THREADS",
+    "VECLIB_MAXIMUM_THREADS",
+)
+"""The thread counts of the BLAS and OpenMP libraries numpy, scipy and jaxlib may load; capped at 1 in workers."""
 
 
 _started: dict[str, Any] = {}
@@ -80,6 +99,26 @@ def prepare_worker(parent: int) -> None:
     wall_clock()
 
 
+def worker_thread_caps(environ: Mapping[str, str] | None = None) -> dict[str, str]:
+    """The thread variables workers run with: each of `THREAD_VARIABLES` as the user set it in `environ` (this
+    process's environment by default), else 1."""
+    environ = os.environ if environ is None else environ
+    return {name: environ.get(name, "1") for name in THREAD_VARIABLES}
+
+
+@contextlib.contextmanager
+def _capped_threads() -> Iterator[None]:
+    """This process's environment with the worker thread caps, while processes started now inherit it (the fork
+    server, and through it every worker); restored after, so this process keeps its own threads."""
+    added = {name: value for name, value in worker_thread_caps().items() if name not in os.environ}
+    os.environ.update(added)
+    try:
+        yield
+    finally:
+        for name in added:
+            os.environ.pop(name, None)
+
+
 def pool(jobs: int) -> Any:
     """A pool of at least `jobs` worker processes, started now if this process has none that large."""
     if _started.get("jobs", 0) >= jobs:
@@ -91,7 +130,7 @@ def pool(jobs: int) -> Any:
     context = multiprocessing.get_context("forkserver")
     context.set_forkserver_preload(["runner.schedule"])
     before = set(multiprocessing.active_children())
-    with workers_ignore_interrupts():
+    with workers_ignore_interrupts(), _capped_threads():
         executor = ProcessPoolExecutor(
             max_workers=jobs, mp_context=context, initializer=prepare_worker, initargs=(os.getpid(),)
         )

@@ -3,30 +3,16 @@ Barto 2018, Example 10.1)."""
 
 import numpy as np
 import pytest
+from linear_setups import agent_on_mountain_car as _agent
+from linear_setups import episode_lengths
+from linear_setups import fourier_order_2 as _fourier
 from numba import njit
 
-from runner.agents import make_agent
-from runner.agents.linear import linear_sarsa_act, linear_sarsa_observe
 from runner.agents.linear_kernels import W, largest
-from runner.envs.dynamics.mountain_car import default_params, observation, reset, step
-from runner.streams import new_stream
 from runner.trial import run_trial
 from runner.trial_spec import TrialSpec
 
-MOUNTAIN_CAR = (np.array([-1.2, -0.07]), np.array([0.6, 0.07]))
 FOURIER = {"kind": "fourier", "order": 2}
-
-
-def _agent(kind, **params):
-    agent = make_agent(kind, params)
-    agent.setup(2, 3, 0, bounds=MOUNTAIN_CAR)
-    return agent
-
-
-def _fourier(obs):
-    s = (np.asarray(obs) - MOUNTAIN_CAR[0]) / (MOUNTAIN_CAR[1] - MOUNTAIN_CAR[0])
-    c = np.array([(i, j) for i in range(3) for j in range(3)], dtype=float)
-    return np.cos(np.pi * c @ s)
 
 
 def test_q_learning_update_is_the_normalised_semi_gradient_step():
@@ -95,47 +81,18 @@ def test_runs_on_both_paths_on_classic_control(kind, env_id):
         assert np.all(np.isfinite(result.rows["eval_return"]))
 
 
-@njit(cache=True)
-def _mountain_car_episodes(arrays, hyper, counters, rng, env_stream, params, lengths, cap):
-    """Semi-gradient Sarsa on the compiled Mountain Car, with no time limit but `cap` steps per episode."""
-    state = np.zeros(2)
-    obs = np.zeros(2)
-    nxt = np.zeros(2)
-    for e in range(lengths.shape[0]):
-        reset(state, params, env_stream)
-        observation(state, params, obs)
-        steps = 0
-        while True:
-            action = linear_sarsa_act(arrays, hyper, obs, rng)
-            reward, terminated = step(state, action, params, state)
-            observation(state, params, nxt)
-            steps += 1
-            linear_sarsa_observe(arrays, hyper, counters, obs, action, reward, nxt, terminated, rng)
-            obs[:] = nxt
-            if terminated or steps >= cap:
-                break
-        lengths[e] = steps
-
-
 def _steps_per_episode(alpha: float, seeds: int, episodes: int) -> np.ndarray:
-    out = np.zeros((seeds, episodes), dtype=np.int64)
-    for seed in range(seeds):
-        agent = make_agent(
-            "linear_sarsa",
-            {"alpha": alpha, "gamma": 1.0, "epsilon": 0.0, "features": {"kind": "tiles", "tilings": 8, "tiles": 8}},
-        )
-        agent.setup(2, 3, seed, bounds=MOUNTAIN_CAR)
-        _mountain_car_episodes(
-            agent.arrays_,
-            agent.hyper_,
-            agent.counters_,
-            agent.stream_,
-            new_stream(1000 + seed),
-            default_params(),
-            out[seed],
+    features = {"kind": "tiles", "tilings": 8, "tiles": 8}
+    out = [
+        episode_lengths(
+            _agent("linear_sarsa", seed, alpha=alpha, gamma=1.0, epsilon=0.0, features=features),
+            1000 + seed,
+            episodes,
             100_000,
         )
-    return out.mean(axis=0)
+        for seed in range(seeds)
+    ]
+    return np.mean(out, axis=0)
 
 
 @pytest.mark.slow

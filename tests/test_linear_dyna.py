@@ -3,22 +3,16 @@ saves real steps on Mountain Car."""
 
 import numpy as np
 import pytest
-from numba import njit
+from linear_setups import agent_on_mountain_car, assert_same_rows, episode_lengths, short_trial
 from scipy import stats
 
 from runner.agents import make_agent
 from runner.agents.linear_dyna import linear_model_update
 from runner.agents.linear_kernels import W
-from runner.envs.dynamics.mountain_car import default_params, observation, reset, step
-from runner.metrics import TIMING_COLUMNS
-from runner.streams import new_stream
-from runner.trial import run_trial
-from runner.trial_spec import TrialSpec
 
 FEATURES = {"kind": "tiles", "tilings": 4, "tiles": 4, "hash_size": 256}
 MODEL_ERRORS = ("model_reward_error", "model_error_1", "model_error_5", "model_error_20")
 """Measured for linear Dyna's model, empty for the model-free kind."""
-MOUNTAIN_CAR = (np.array([-1.2, -0.07]), np.array([0.6, 0.07]))
 
 
 def test_planning_zero_is_linear_q_learning_bit_for_bit():
@@ -27,16 +21,11 @@ def test_planning_zero_is_linear_q_learning_bit_for_bit():
     common = {"alpha": 0.5, "gamma": 1.0, "epsilon": 0.1, "features": FEATURES}
 
     def run(kind, **extra):
-        spec = TrialSpec.build(
-            env, kind, {**common, **extra}, 3, 1200, every=400, episodes=2, step_cap=200, training_window=5
-        )
-        return run_trial(spec.as_dict())
+        return short_trial(env, kind, {**common, **extra}, 3, 1200, every=400, step_cap=200)
 
     dyna, plain = run("linear_dyna", planning_steps=0), run("linear_q_learning")
     assert np.array_equal(dyna.final_values, plain.final_values)
-    for column, values in plain.rows.items():
-        if column not in (*TIMING_COLUMNS, "model_updates", *MODEL_ERRORS):
-            assert np.array_equal(dyna.rows[column], values, equal_nan=True), column
+    assert_same_rows(dyna, plain, skip=("model_updates", *MODEL_ERRORS))
     assert dyna.rows["model_updates"].tolist() == [0, 400, 800, 1200]
     assert np.isfinite(dyna.rows["model_error_1"]).all() and np.isnan(plain.rows["model_error_1"]).all()
     assert not np.array_equal(run("linear_dyna", planning_steps=3).final_values, plain.final_values)
@@ -111,26 +100,6 @@ def test_model_converges_to_least_squares_on_a_noisy_batch():
     assert np.abs(f_ls).max() > 0.1
 
 
-@njit(cache=True)
-def _real_steps_to_finish(act, observe, arrays, hyper, counters, rng, env_stream, params, episodes, cap):
-    """Real steps until `episodes` episodes of the compiled Mountain Car are done (no time limit)."""
-    state, obs, nxt = np.zeros(2), np.zeros(2), np.zeros(2)
-    total = 0
-    for _ in range(episodes):
-        reset(state, params, env_stream)
-        observation(state, params, obs)
-        for _ in range(cap):
-            action = act(arrays, hyper, obs, rng)
-            reward, terminated = step(state, action, params, state)
-            observation(state, params, nxt)
-            total += 1
-            observe(arrays, hyper, counters, obs, action, reward, nxt, terminated, rng)
-            obs[:] = nxt
-            if terminated:
-                break
-    return total
-
-
 @pytest.mark.slow
 def test_planning_saves_real_steps_on_mountain_car():
     """The direction Sutton, Szepesvari, Geramifard & Bowling (2008) report (from memory): linear Dyna needs
@@ -150,12 +119,8 @@ def test_planning_saves_real_steps_on_mountain_car():
     for arm, (kind, extra) in arms.items():
         totals[arm] = []
         for seed in range(10):
-            agent = make_agent(kind, {"alpha": 0.1, "gamma": 1.0, "epsilon": 0.0, "features": features, **extra})
-            agent.setup(2, 3, seed, bounds=MOUNTAIN_CAR)
-            args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_, new_stream(500 + seed))
-            totals[arm].append(
-                _real_steps_to_finish(agent.act_kernel, agent.observe_kernel, *args, default_params(), 20, 100_000)
-            )
+            agent = agent_on_mountain_car(kind, seed, alpha=0.1, gamma=1.0, epsilon=0.0, features=features, **extra)
+            totals[arm].append(episode_lengths(agent, 500 + seed, 20).sum())
             assert agent.arrays_[W].any()
     for baseline in ("q", "sarsa"):
         log_ratio = np.log(np.array(totals[baseline]) / np.array(totals["dyna"]))

@@ -4,37 +4,22 @@ save real steps on Mountain Car (slow)."""
 
 import numpy as np
 import pytest
-from numba import njit
+from linear_setups import agent_on_mountain_car, assert_same_rows, episode_lengths, fourier_order_2, short_trial
 
-from runner.agents import make_agent
 from runner.agents.linear_kernels import LINEAR_ARRAYS, W
-from runner.envs.dynamics.mountain_car import default_params, observation, reset, step
-from runner.metrics import TIMING_COLUMNS
-from runner.streams import new_stream
-from runner.trial import run_trial
-from runner.trial_spec import TrialSpec
 
-MOUNTAIN_CAR = (np.array([-1.2, -0.07]), np.array([0.6, 0.07]))
 _OBS, _ACTIONS, _REWARDS, _NEXT, _ENDED, _FILL = range(LINEAR_ARRAYS, LINEAR_ARRAYS + 6)
 
 
 def _agent(**params):
-    agent = make_agent("linear_replay_q_learning", params)
-    agent.setup(2, 3, 0, bounds=MOUNTAIN_CAR)
-    return agent
-
-
-def _fourier(obs):
-    s = (np.asarray(obs) - MOUNTAIN_CAR[0]) / (MOUNTAIN_CAR[1] - MOUNTAIN_CAR[0])
-    c = np.array([(i, j) for i in range(3) for j in range(3)], dtype=float)
-    return np.cos(np.pi * c @ s)
+    return agent_on_mountain_car("linear_replay_q_learning", **params)
 
 
 def _q_step(w, s, action, reward, s2, terminated, alpha, gamma):
     """Sutton & Barto (2018), sections 10.1 and 11.1 with Q-learning's target and the step divided by phi . phi
     (as `linear_q_learning`), in numpy."""
-    phi = _fourier(s)
-    target = reward if terminated else reward + gamma * np.max(w @ _fourier(s2))
+    phi = fourier_order_2(s)
+    target = reward if terminated else reward + gamma * np.max(w @ fourier_order_2(s2))
     w[action] += alpha / (phi @ phi) * (target - w[action] @ phi) * phi
 
 
@@ -49,18 +34,13 @@ def test_replays_zero_is_linear_q_learning_bit_for_bit_on_both_paths():
     }
 
     def run(kind, path, **extra):
-        spec = TrialSpec.build(
-            env, kind, {**common, **extra}, 4, 900, every=300, episodes=2, step_cap=100, training_window=5
-        )
-        return run_trial(spec.as_dict(), path)
+        return short_trial(env, kind, {**common, **extra}, 4, 900, every=300, step_cap=100, path=path)
 
     for path in ("gymnasium", "compiled"):
         replayed, plain = run("linear_replay_q_learning", path, replays=0), run("linear_q_learning", path)
         assert replayed.trial_path == plain.trial_path == path
         assert np.array_equal(replayed.final_values, plain.final_values)
-        for column, values in plain.rows.items():
-            if column not in TIMING_COLUMNS:
-                assert np.array_equal(replayed.rows[column], values, equal_nan=True), column
+        assert_same_rows(replayed, plain)
         more = run("linear_replay_q_learning", path, replays=3, buffer_size=50)
         assert more.rows["planning_updates"].tolist() == [0, 900, 1800, 2700]
         assert more.rows["model_updates"].tolist() == [0, 0, 0, 0]
@@ -103,26 +83,6 @@ def test_buffer_keeps_the_last_transitions():
     assert arrays[_ENDED].tolist() == [0, 1, 0]
 
 
-@njit(cache=True)
-def _real_steps_to_finish(act, observe, arrays, hyper, counters, rng, env_stream, params, episodes, cap):
-    """Real steps until `episodes` episodes of the compiled Mountain Car are done (no time limit)."""
-    state, obs, nxt = np.zeros(2), np.zeros(2), np.zeros(2)
-    total = 0
-    for _ in range(episodes):
-        reset(state, params, env_stream)
-        observation(state, params, obs)
-        for _ in range(cap):
-            action = act(arrays, hyper, obs, rng)
-            reward, terminated = step(state, action, params, state)
-            observation(state, params, nxt)
-            total += 1
-            observe(arrays, hyper, counters, obs, action, reward, nxt, terminated, rng)
-            obs[:] = nxt
-            if terminated:
-                break
-    return total
-
-
 @pytest.mark.slow
 def test_replays_save_real_steps_on_mountain_car():
     """Lin (1992) reports that replaying experience speeds up learning in real steps (from memory). Here the
@@ -134,14 +94,9 @@ def test_replays_save_real_steps_on_mountain_car():
     for replays in (0, 5):
         totals[replays] = []
         for seed in range(10):
-            agent = make_agent(
-                "linear_replay_q_learning",
-                {"alpha": 0.1, "gamma": 1.0, "epsilon": 0.0, "features": features, "replays": replays},
+            agent = agent_on_mountain_car(
+                "linear_replay_q_learning", seed, alpha=0.1, gamma=1.0, epsilon=0.0, features=features, replays=replays
             )
-            agent.setup(2, 3, seed, bounds=MOUNTAIN_CAR)
-            args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_, new_stream(700 + seed))
-            totals[replays].append(
-                _real_steps_to_finish(agent.act_kernel, agent.observe_kernel, *args, default_params(), 20, 100_000)
-            )
+            totals[replays].append(episode_lengths(agent, 700 + seed, 20).sum())
     ratio = np.array(totals[0]) / np.array(totals[5])
     assert np.all(ratio > 1.5)

@@ -5,18 +5,13 @@ error, so values spread backwards from where they changed; planning 0 stays line
 
 import numpy as np
 import pytest
+from linear_setups import agent_on_mountain_car, assert_same_rows, episode_lengths, short_trial
 from scipy import stats
-from test_linear_dyna import MOUNTAIN_CAR, _real_steps_to_finish
 
 from runner.agents import make_agent
 from runner.agents.linear_kernels import LINEAR_ARRAYS
 from runner.agents.linear_sweeping import note_predecessors, sweep_arrays, sweep_plan
 from runner.agents.priority_queue import queue_pop, queue_raise
-from runner.envs.dynamics.mountain_car import default_params
-from runner.metrics import TIMING_COLUMNS
-from runner.streams import new_stream
-from runner.trial import run_trial
-from runner.trial_spec import TrialSpec
 
 ALPHA, GAMMA = 0.5, 0.9
 MODEL_COLUMNS = ("model_updates", "model_reward_error", "model_error_1", "model_error_5", "model_error_20")
@@ -122,27 +117,23 @@ def test_predecessors_are_the_pairs_whose_column_reaches_the_feature():
     assert agent.counters()["planning_updates"] <= 2 * 30 and agent.counter_problems(30) == []
 
 
-def _spec(kind, real_steps=1200, **params):
+def _trial(kind, real_steps=1200, path="auto", **params):
     env = {"source": "gym", "id": "MountainCar-v0", "options": {}, "step_limit": None}
     common = {"alpha": 0.5, "gamma": 1.0, "epsilon": 0.1, "features": {"kind": "tiles", "tilings": 4, "tiles": 4}}
-    return TrialSpec.build(
-        env, kind, {**common, **params}, 3, real_steps, every=400, episodes=2, step_cap=200, training_window=5
-    ).as_dict()
+    return short_trial(env, kind, {**common, **params}, 3, real_steps, every=400, step_cap=200, path=path)
 
 
 def test_planning_zero_with_sweeping_is_linear_q_learning_bit_for_bit():
     """Queuing surprises changes no value: with no budget the agent is linear Q-learning (compiled path)."""
-    swept = run_trial(_spec("linear_dyna", planning_steps=0, sweeping="prioritized"))
-    plain = run_trial(_spec("linear_q_learning"))
+    swept = _trial("linear_dyna", planning_steps=0, sweeping="prioritized")
+    plain = _trial("linear_q_learning")
     assert np.array_equal(swept.final_values, plain.final_values)
-    for column, values in plain.rows.items():
-        if column not in (*TIMING_COLUMNS, *MODEL_COLUMNS):
-            assert np.array_equal(swept.rows[column], values, equal_nan=True), column
+    assert_same_rows(swept, plain, skip=MODEL_COLUMNS)
 
 
 @pytest.mark.parametrize("path", ["compiled", "gymnasium"])
 def test_both_paths_run_sweeping_within_its_budget(path):
-    result = run_trial(_spec("linear_dyna", 800, planning_steps=3, sweeping="prioritized"), path=path)
+    result = _trial("linear_dyna", 800, path, planning_steps=3, sweeping="prioritized")
     assert result.trial_path == path
     planned = result.rows["planning_updates"]
     assert 0 < planned[-1] <= 3 * 800 and np.all(planned <= 3 * result.rows["real_updates"])
@@ -161,12 +152,8 @@ def test_prioritized_sweeping_saves_real_steps_on_mountain_car():
         totals[sweeping] = []
         for seed in range(10):
             params = {"alpha": 0.1, "gamma": 1.0, "epsilon": 0.0, "features": features}
-            agent = make_agent("linear_dyna", {**params, "planning_steps": n, "sweeping": sweeping})
-            agent.setup(2, 3, seed, bounds=MOUNTAIN_CAR)
-            args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_, new_stream(500 + seed))
-            totals[sweeping].append(
-                _real_steps_to_finish(agent.act_kernel, agent.observe_kernel, *args, default_params(), 20, 100_000)
-            )
+            agent = agent_on_mountain_car("linear_dyna", seed, **params, planning_steps=n, sweeping=sweeping)
+            totals[sweeping].append(episode_lengths(agent, 500 + seed, 20).sum())
             assert agent.counter_problems(totals[sweeping][-1]) == []
     log_ratio = np.log(np.array(totals["none"]) / np.array(totals["prioritized"]))
     interval = stats.bootstrap((log_ratio,), np.mean, confidence_level=0.95, random_state=0, method="percentile")

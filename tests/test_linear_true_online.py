@@ -4,24 +4,16 @@ algorithm, against the online lambda-return algorithm (section 12.4) it is equiv
 
 import numpy as np
 import pytest
-from numba import njit
+from linear_setups import MOUNTAIN_CAR, agent_on_mountain_car, assert_same_rows, episode_lengths, short_trial
 
-from runner.agents import make_agent
 from runner.agents.linear_kernels import LINEAR_ARRAYS, W
-from runner.envs.dynamics.mountain_car import default_params, observation, reset, step
 from runner.features import feature_values
-from runner.metrics import TIMING_COLUMNS
-from runner.streams import new_stream
-from runner.trial import run_trial
-from runner.trial_spec import TrialSpec
 
-MOUNTAIN_CAR = (np.array([-1.2, -0.07]), np.array([0.6, 0.07]))
 _PENDING = LINEAR_ARRAYS + 1
 
 
 def _agent(**params):
-    agent = make_agent("linear_true_online_sarsa", params)
-    agent.setup(2, 3, 7, bounds=MOUNTAIN_CAR)
+    agent = agent_on_mountain_car("linear_true_online_sarsa", 7, **params)
     agent.arrays_[W][:] = np.random.default_rng(11).normal(size=agent.arrays_[W].shape)
     return agent
 
@@ -138,61 +130,27 @@ def test_lambda_zero_is_linear_sarsa_on_both_paths():
     common = {"alpha": 0.5, "gamma": 1.0, "epsilon": 0.1, "features": {"kind": "tiles", "tilings": 4, "hash_size": 128}}
 
     def run(kind, path, **extra):
-        spec = TrialSpec.build(
-            env, kind, {**common, **extra}, 5, 1200, every=400, episodes=2, step_cap=150, training_window=5
-        )
-        return run_trial(spec.as_dict(), path)
+        return short_trial(env, kind, {**common, **extra}, 5, 1200, every=400, step_cap=150, path=path)
 
     for path in ("gymnasium", "compiled"):
         true_online, sarsa = run("linear_true_online_sarsa", path, lam=0.0), run("linear_sarsa", path)
         assert true_online.trial_path == sarsa.trial_path == path
         assert np.allclose(true_online.final_values, sarsa.final_values, rtol=0, atol=1e-12)
         assert np.abs(sarsa.final_values).max() > 1.0
-        for column, values in sarsa.rows.items():
-            if column not in TIMING_COLUMNS:
-                assert np.array_equal(true_online.rows[column], values, equal_nan=True), column
+        assert_same_rows(true_online, sarsa)
         traced = run("linear_true_online_sarsa", path, lam=0.9)
         assert traced.rows["real_updates"].tolist() == [0, 400, 800, 1200]
         assert not np.allclose(traced.final_values, sarsa.final_values, rtol=0, atol=1e-3)
 
 
-@njit(cache=True)
-def _episode_lengths(act, observe, arrays, hyper, counters, rng, env_stream, params, lengths, cap):
-    """The compiled Mountain Car with no time limit (episodes capped at `cap` steps), as Example 10.1 runs."""
-    state, obs, nxt = np.zeros(2), np.zeros(2), np.zeros(2)
-    for e in range(lengths.shape[0]):
-        reset(state, params, env_stream)
-        observation(state, params, obs)
-        steps = 0
-        while True:
-            action = act(arrays, hyper, obs, rng)
-            reward, terminated = step(state, action, params, state)
-            observation(state, params, nxt)
-            steps += 1
-            observe(arrays, hyper, counters, obs, action, reward, nxt, terminated, rng)
-            obs[:] = nxt
-            if terminated or steps >= cap:
-                break
-        lengths[e] = steps
-
-
 def _mean_lengths(lam: float, seeds: int, episodes: int) -> np.ndarray:
-    out = np.zeros((seeds, episodes), dtype=np.int64)
-    for seed in range(seeds):
-        agent = make_agent(
-            "linear_true_online_sarsa",
-            {
-                "alpha": 0.5,
-                "gamma": 1.0,
-                "epsilon": 0.0,
-                "lam": lam,
-                "features": {"kind": "tiles", "tilings": 8, "tiles": 8, "hash_size": 0},
-            },
-        )
-        agent.setup(2, 3, seed, bounds=MOUNTAIN_CAR)
-        args = (agent.arrays_, agent.hyper_, agent.counters_, agent.stream_, new_stream(2000 + seed))
-        _episode_lengths(agent.act_kernel, agent.observe_kernel, *args, default_params(), out[seed], 100_000)
-    return out.mean(axis=0)
+    features = {"kind": "tiles", "tilings": 8, "tiles": 8, "hash_size": 0}
+    params = {"alpha": 0.5, "gamma": 1.0, "epsilon": 0.0, "lam": lam, "features": features}
+    out = [
+        episode_lengths(agent_on_mountain_car("linear_true_online_sarsa", seed, **params), 2000 + seed, episodes)
+        for seed in range(seeds)
+    ]
+    return np.mean(out, axis=0)
 
 
 @pytest.mark.slow

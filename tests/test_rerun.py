@@ -3,6 +3,7 @@ they were stored from; tampered rows and changed provenance are named; bad ids a
 
 import json
 import os
+import shutil
 import sqlite3
 import subprocess
 import sys
@@ -24,13 +25,21 @@ def _experiment(tmp_path: Path, seeds: int = 2) -> Path:
     return path
 
 
-@pytest.fixture
-def folder(tmp_path) -> Path:
-    """A store whose first 4 trials took the compiled path and whose 2 seed-2 trials were forced on gymnasium."""
-    results = tmp_path / "results"
-    run_experiment(_experiment(tmp_path, 2), results_root=results, options=RunOptions(jobs=1))
-    run_experiment(_experiment(tmp_path, 3), results_root=results, options=RunOptions(jobs=1, trial_path="gymnasium"))
+@pytest.fixture(scope="module")
+def stored_once(tmp_path_factory) -> Path:
+    """A store whose first 4 trials took the compiled path and whose 2 seed-2 trials were forced on gymnasium,
+    run once for the module."""
+    where = tmp_path_factory.mktemp("stored")
+    results = where / "results"
+    run_experiment(_experiment(where, 2), results_root=results, options=RunOptions(jobs=1))
+    run_experiment(_experiment(where, 3), results_root=results, options=RunOptions(jobs=1, trial_path="gymnasium"))
     return results / "redo"
+
+
+@pytest.fixture
+def folder(stored_once, tmp_path) -> Path:
+    """A copy of the module's store of its own, which a test may tamper with."""
+    return Path(shutil.copytree(stored_once, tmp_path / "results" / "redo"))
 
 
 def _stored(folder: Path) -> dict[str, tuple[str, int]]:
@@ -115,7 +124,7 @@ def test_a_unique_prefix_selects_its_trial(folder, capsys):
     assert out[-1] == "1 of 1 re-run trials reproduced their stored rows"
 
 
-def test_a_tampered_metric_is_found_with_its_row_column_and_size(folder):
+def test_a_tampered_metric_is_found_with_its_row_column_and_size(folder, capsys):
     stored = _stored(folder)
     trial_id = sorted(t for t, (path, _) in stored.items() if path == "compiled")[1]
     with sqlite3.connect(folder / "experiment.sqlite") as conn:
@@ -134,11 +143,11 @@ def test_a_tampered_metric_is_found_with_its_row_column_and_size(folder):
     assert line.endswith("largest difference 0.5 in eval_return at row 2")
     assert one.stdout.splitlines()[-1] == "0 of 1 re-run trials reproduced their stored rows"
 
-    every = _cli("rerun", str(folder), "--all", cwd=folder.parent)
-    assert every.returncode == 1
-    different = [line for line in every.stdout.splitlines() if "DIFFERENT" in line]
+    code, every, _ = _rerun(capsys, str(folder), "--all")
+    assert code == 1
+    different = [line for line in every if "DIFFERENT" in line]
     assert len(different) == 1 and different[0].startswith(trial_id)
-    assert every.stdout.splitlines()[-1] == "5 of 6 re-run trials reproduced their stored rows"
+    assert every[-1] == "5 of 6 re-run trials reproduced their stored rows"
 
 
 def test_the_largest_difference_is_reported_where_it_is(folder, capsys):
@@ -195,13 +204,14 @@ def test_unknown_packages_and_another_platform_are_named(folder, capsys):
         ("abc", "'abc' is not a trial id"),
     ],
 )
-def test_bad_and_unknown_ids_are_one_line_errors(folder, given, message):
-    assert not any(t.startswith(given) for t in _stored(folder))
-    result = _cli("rerun", str(folder), given, cwd=folder.parent)
-    assert result.returncode == 2
-    lines = result.stderr.splitlines()
-    assert len(lines) == 1 and lines[0].startswith("stepmeter: error: ") and message in lines[0], result.stderr
-    assert result.stdout == ""
+def test_bad_and_unknown_ids_are_one_line_errors(stored_once, given, message, capsys):
+    """Through `main` in this process; `test_a_sample_size_below_one_is_a_one_line_user_error` checks the same
+    one-line path through the command in a process of its own."""
+    assert not any(t.startswith(given) for t in _stored(stored_once))
+    code, out, err = _rerun(capsys, str(stored_once), given)
+    assert code == 2
+    assert len(err) == 1 and err[0].startswith("stepmeter: error: ") and message in err[0], err
+    assert out == []
 
 
 def test_no_selection_and_a_missing_store_are_user_errors(tmp_path, folder, capsys):

@@ -1,6 +1,7 @@
 """Local worker processes: the same rows as one process, and a run that stops (a store fault, Ctrl-C) ends its
 workers at once instead of leaving them running."""
 
+import json
 import os
 import signal
 import sqlite3
@@ -18,7 +19,9 @@ import runner
 import runner.run as run_module
 from runner.errors import StoreError
 from runner.metrics import TIMING_COLUMNS
+from runner.provenance import WORKER_THREADS, worker_threads
 from runner.run import RunOptions, run_experiment
+from runner.workers import THREAD_VARIABLES, worker_thread_caps
 
 _REPO = Path(__file__).resolve().parents[1]
 
@@ -61,6 +64,41 @@ def test_two_workers_store_the_same_rows_as_one_process(tmp_path):
     assert len(_workers_alive()) == 2  # the pool stays up for the next run in this process
     frames = [runner.load_results(s.folder).drop(columns=list(TIMING_COLUMNS)) for s in (one, two)]
     pd.testing.assert_frame_equal(*frames)
+    recorded = []
+    for summary in (one, two):
+        with sqlite3.connect(Path(summary.folder) / "experiment.sqlite") as conn:
+            recorded.append(json.loads(conn.execute("SELECT versions FROM runs").fetchone()[0]))
+    assert WORKER_THREADS not in recorded[0]  # one process: no workers to cap
+    assert recorded[1][WORKER_THREADS] == worker_threads(worker_thread_caps())[WORKER_THREADS]
+
+
+_THREADS_IN_A_WORKER = """
+import json, os, threadpoolctl
+from runner.workers import THREAD_VARIABLES, pool, stop_workers
+
+executor = pool(2)
+seen = executor.submit(threadpoolctl.threadpool_info).result()
+environ = {name: executor.submit(os.getenv, name).result() for name in THREAD_VARIABLES}
+stop_workers()
+parent = {name: os.getenv(name) for name in THREAD_VARIABLES}
+print(json.dumps({"libraries": seen, "worker": environ, "parent": parent}))
+"""
+
+
+def test_workers_run_with_one_blas_thread_unless_the_user_set_another():
+    """With no thread variable set, a worker's OpenBLAS (as loaded by numpy, read back with threadpoolctl) runs one
+    thread and every variable reads 1; a variable the user set reaches the worker unchanged; the run's own
+    process keeps its environment."""
+    env = {k: v for k, v in os.environ.items() if k not in THREAD_VARIABLES} | {"MKL_NUM_THREADS": "3"}
+    done = subprocess.run(
+        [sys.executable, "-c", _THREADS_IN_A_WORKER], env=env, cwd=_REPO, capture_output=True, text=True, timeout=120
+    )
+    assert done.returncode == 0, done.stderr
+    report = json.loads(done.stdout.splitlines()[-1])
+    openblas = [lib for lib in report["libraries"] if lib["internal_api"] == "openblas"]
+    assert openblas and all(lib["num_threads"] == 1 for lib in openblas), report["libraries"]
+    assert report["worker"] == {name: "3" if name == "MKL_NUM_THREADS" else "1" for name in THREAD_VARIABLES}
+    assert report["parent"] == {name: "3" if name == "MKL_NUM_THREADS" else None for name in THREAD_VARIABLES}
 
 
 def test_a_store_fault_while_workers_run_ends_them(tmp_path, monkeypatch):

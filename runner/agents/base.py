@@ -21,14 +21,15 @@ from runner.params import Param, resolve_params
 from runner.streams import as_stream
 from runner.tags import AgentTags
 
-__all__ = ["COUNTER_NAMES", "TabularAgent"]
+__all__ = ["COUNTER_NAMES", "KindParams", "SteppedAgent", "TabularAgent"]
 
 COUNTER_NAMES = ("real_updates", "planning_updates", "model_updates")
 """Order of `counters_`: value updates from real transitions, from the model, and model updates."""
 
 
-class TabularAgent:
-    """Base class: parameters in, arrays and compiled kernels out."""
+class KindParams:
+    """What every agent kind has: the registry's class attributes, and the parameters it was built with, checked
+    against its schema with defaults filled."""
 
     kind: ClassVar[str] = ""
     summary: ClassVar[str] = ""
@@ -41,6 +42,28 @@ class TabularAgent:
     def get_params(self) -> dict[str, Any]:
         """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
         return dict(self._params)
+
+
+class SteppedAgent(KindParams):
+    """What the kinds driven step by step from Python (neural kinds, own agents) share: they never search a
+    game's rules, plan on a true table or note a label."""
+
+    @classmethod
+    def needs_rules(cls) -> bool:
+        """Never: these kinds do not search a game's rules."""
+        return False
+
+    def uses_table(self) -> bool:
+        """Never: these kinds do not plan on the true table."""
+        return False
+
+    def label_note(self) -> str:
+        """No note on the label."""
+        return ""
+
+
+class TabularAgent(KindParams):
+    """Base class: parameters in, arrays and compiled kernels out."""
 
     tags: ClassVar[AgentTags] = AgentTags()
     """What the kind takes and needs (see `runner.tags.AgentTags`): discrete observations and actions, compiled

@@ -12,6 +12,7 @@ and value pairs). `replays: 0` draws nothing and is `linear_q_learning` bit for 
 import numpy as np
 from numba import njit
 
+from runner.agents.common import replay_counter_problems
 from runner.agents.linear import LINEAR_SCHEMA, LinearAgent, linear_q_act, linear_q_update
 from runner.agents.linear_kernels import (
     IDX,
@@ -100,15 +101,8 @@ class LinearReplayQLearning(LinearAgent):
         return [*super().make_hyper(), float(self._params["replays"])]
 
     def counter_problems(self, real_steps):
-        c = self.counters()
         problems = super().counter_problems(real_steps)
-        if c["real_updates"] != real_steps:
-            problems.append(f"real_updates {c['real_updates']} != real steps {real_steps}")
-        if c["planning_updates"] != self._params["replays"] * real_steps:
-            problems.append(f"planning_updates {c['planning_updates']} != replays x real steps")
-        if c["model_updates"]:
-            problems.append("a replay buffer is not a model; model_updates should stay 0")
-        return problems
+        return problems + replay_counter_problems(self.counters(), real_steps, self._params["replays"])
 
     act_kernel = staticmethod(linear_q_act)
     observe_kernel = staticmethod(linear_replay_observe)

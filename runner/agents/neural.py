@@ -24,9 +24,9 @@ from typing import Any, ClassVar
 import gymnasium as gym
 import numpy as np
 
-from runner.agents.base import COUNTER_NAMES
+from runner.agents.base import COUNTER_NAMES, SteppedAgent
 from runner.errors import EnvironmentSourceError
-from runner.params import Param, resolve_params
+from runner.params import Param
 from runner.registry import import_entry_point
 from runner.seeding import jax_key_data
 from runner.tags import AgentTags
@@ -59,7 +59,7 @@ def neural_requirement(kind: str) -> str | None:
     )
 
 
-class NeuralAgent:
+class NeuralAgent(SteppedAgent):
     """Base class of neural kinds: parameters and tags in Python, acting and learning in JAX."""
 
     kind: ClassVar[str] = ""
@@ -76,26 +76,6 @@ class NeuralAgent:
     """Kinds with a probabilistic model override this with a method `model_honesty(held) -> ModelHonesty`
     (`runner.neural.model_error.held_out_honesty` on their fitted model), or None before the model is fitted; the
     step-by-step trial then records errors, predicted spread and coverage (`runner.metrics.HONESTY_COLUMNS`)."""
-
-    def __init__(self, **params: Any) -> None:
-        self._params = resolve_params(self.schema, params)
-
-    def get_params(self) -> dict[str, Any]:
-        """Exactly the parameters the agent was built with (defaults filled), so it can be rebuilt."""
-        return dict(self._params)
-
-    @classmethod
-    def needs_rules(cls) -> bool:
-        """Neural kinds never search a game's rules."""
-        return False
-
-    def uses_table(self) -> bool:
-        """Neural kinds never plan on the true table."""
-        return False
-
-    def label_note(self) -> str:
-        """No note on the label."""
-        return ""
 
     def setup(self, observation_space: gym.Space, action_space: gym.Space, stream: Any) -> None:
         """Build the JAX core for these spaces and its initial state from the agent's stream (a seed, a

@@ -32,9 +32,9 @@ from typing import Any, ClassVar
 import gymnasium as gym
 import numpy as np
 
-from runner.agents.base import COUNTER_NAMES
+from runner.agents.base import COUNTER_NAMES, SteppedAgent
 from runner.errors import UnknownKindError
-from runner.params import Param, resolve_params
+from runner.params import Param
 from runner.tags import AgentTags
 
 __all__ = ["OWN_AGENT_METHODS", "OwnAgent", "own_agent_class", "why_not_own_agent"]
@@ -66,36 +66,15 @@ def why_not_own_agent(cls: Any) -> str | None:
     return None
 
 
-class OwnAgent:
+class OwnAgent(SteppedAgent):
     """A user's plain agent behind the interface the trial loop uses (subclassed per user class)."""
 
     user_class: ClassVar[type] = object
-    kind: ClassVar[str] = ""
-    summary: ClassVar[str] = ""
-    source: ClassVar[str] = ""
-    schema: ClassVar[tuple[Param, ...]] = ()
     tags: ClassVar[AgentTags] = AgentTags(compiled=False)
 
     def __init__(self, **params: Any) -> None:
-        self._params = resolve_params(self.schema, params)
+        super().__init__(**params)
         self.agent = self.user_class(**self._params)
-
-    def get_params(self) -> dict[str, Any]:
-        """Exactly the checked parameters the agent was built with (defaults filled)."""
-        return dict(self._params)
-
-    @classmethod
-    def needs_rules(cls) -> bool:
-        """Own agents never search a game's rules."""
-        return False
-
-    def uses_table(self) -> bool:
-        """Own agents never plan on the true table."""
-        return False
-
-    def label_note(self) -> str:
-        """No note on the label."""
-        return ""
 
     def setup(self, observation_space: gym.Space, action_space: gym.Space, seed: Any) -> None:
         """Create the learned state; `seed` is an int, a SeedSequence or a compiled stream (its words seed the

@@ -8,7 +8,7 @@ import numpy as np
 from numba import njit
 
 from runner.agents.base import TabularAgent
-from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q
+from runner.agents.common import ALPHA, EPSILON, GAMMA, INITIAL_Q, replay_counter_problems
 from runner.agents.kernels import epsilon_greedy, q_learning_update
 from runner.params import PLANNING_BUDGET, Param
 from runner.streams import below
@@ -96,15 +96,8 @@ class ReplayQLearning(TabularAgent):
         return [p["alpha"], p["gamma"], p["epsilon"], float(p["replays"])]
 
     def counter_problems(self, real_steps):
-        c = self.counters()
         problems = super().counter_problems(real_steps)
-        if c["real_updates"] != real_steps:
-            problems.append(f"real_updates {c['real_updates']} != real steps {real_steps}")
-        if c["planning_updates"] != self._params["replays"] * real_steps:
-            problems.append(f"planning_updates {c['planning_updates']} != replays x real steps")
-        if c["model_updates"]:
-            problems.append("a replay buffer is not a model; model_updates should stay 0")
-        return problems
+        return problems + replay_counter_problems(self.counters(), real_steps, self._params["replays"])
 
     act_kernel = staticmethod(replay_q_act)
     observe_kernel = staticmethod(replay_q_observe)

@@ -22,7 +22,18 @@ from runner.envs.bins import bin_centres, bin_index
 from runner.models.bin_prediction import grid_arrays
 from runner.models.held_out import ROLLOUT_STEPS, HeldOut
 
-__all__ = ["bin_arrays", "bin_model_errors", "bin_predictor", "held_out_arrays", "root_mean", "scaled_squares"]
+__all__ = [
+    "bin_arrays",
+    "bin_model_errors",
+    "bin_predictor",
+    "error_sums",
+    "held_out_arrays",
+    "held_out_errors",
+    "root_mean",
+    "scaled_squares",
+    "score_one_step",
+    "score_open_loop",
+]
 
 _SHORT, _LONG = ROLLOUT_STEPS
 
@@ -88,6 +99,53 @@ def root_mean(total, count, varying):
     return np.sqrt(total / (count * varying))
 
 
+_ONE_STEP, _REWARD_ERROR, _TRANSITIONS, _SHORT_SUM, _N_SHORT, _LONG_SUM, _N_LONG = range(7)
+
+
+@njit(cache=True)
+def error_sums():
+    """Empty running sums of a held-out measurement: one-step squares, absolute reward errors, transitions,
+    open-loop squares after the short rollout and their count, after the long rollout and their count."""
+    return np.zeros(7)
+
+
+@njit(cache=True)
+def score_one_step(sums, predicted, real, predicted_reward, real_reward, spread):
+    """Add one held-out transition's one-step prediction (next observation and reward) to `sums`."""
+    sums[_ONE_STEP] += scaled_squares(predicted, real, spread)
+    sums[_REWARD_ERROR] += abs(predicted_reward - real_reward)
+    sums[_TRANSITIONS] += 1
+
+
+@njit(cache=True)
+def score_open_loop(sums, t, imagined, real, spread):
+    """Add the open-loop prediction `imagined` after t + 1 of the model's own steps, at the rollout lengths."""
+    if t + 1 == _SHORT:
+        sums[_SHORT_SUM] += scaled_squares(imagined, real, spread)
+        sums[_N_SHORT] += 1
+    if t + 1 == _LONG:
+        sums[_LONG_SUM] += scaled_squares(imagined, real, spread)
+        sums[_N_LONG] += 1
+
+
+@njit(cache=True)
+def held_out_errors(sums, spread):
+    """(one-step error, mean absolute reward error, open-loop errors after 5 and 20 steps) from the running sums;
+    NaN where nothing was measured."""
+    varying = 0
+    for d in range(spread.shape[0]):
+        if spread[d] > 0:
+            varying += 1
+    transitions = sums[_TRANSITIONS]
+    mean_reward_error = sums[_REWARD_ERROR] / transitions if transitions > 0 else np.nan
+    return (
+        root_mean(sums[_ONE_STEP], transitions, varying),
+        mean_reward_error,
+        root_mean(sums[_SHORT_SUM], sums[_N_SHORT], varying),
+        root_mean(sums[_LONG_SUM], sums[_N_LONG], varying),
+    )
+
+
 @njit(cache=True)
 def bin_model_errors(kind, arrays, bins, grid, held):
     """(one-step error, mean absolute reward error, open-loop errors after 5 and 20 steps) of agent kind `kind`'s
@@ -95,40 +153,17 @@ def bin_model_errors(kind, arrays, bins, grid, held):
     edges, edge_offsets, strides = bins
     starts, actions, observations, rewards, lengths, spread = held
     dim = starts.shape[1]
-    varying = 0
-    for d in range(dim):
-        if spread[d] > 0:
-            varying += 1
     predicted = np.zeros(dim)
     imagined = np.zeros(dim)
-    one_step = 0.0
-    reward_error = 0.0
-    transitions = 0
-    short = 0.0
-    n_short = 0
-    long = 0.0
-    n_long = 0
+    sums = error_sums()
     for i in range(starts.shape[0]):
         imagined[:] = starts[i]
         for t in range(lengths[i]):
             before = starts[i] if t == 0 else observations[i, t - 1]
             s = bin_index(before, edges, edge_offsets, strides)
             reward = agent_predict(literally(kind), arrays, s, actions[i, t], grid, predicted)
-            one_step += scaled_squares(predicted, observations[i, t], spread)
-            reward_error += abs(reward - rewards[i, t])
-            transitions += 1
+            score_one_step(sums, predicted, observations[i, t], reward, rewards[i, t], spread)
             s = bin_index(imagined, edges, edge_offsets, strides)
             agent_predict(literally(kind), arrays, s, actions[i, t], grid, imagined)
-            if t + 1 == _SHORT:
-                short += scaled_squares(imagined, observations[i, t], spread)
-                n_short += 1
-            if t + 1 == _LONG:
-                long += scaled_squares(imagined, observations[i, t], spread)
-                n_long += 1
-    mean_reward_error = reward_error / transitions if transitions > 0 else np.nan
-    return (
-        root_mean(one_step, transitions, varying),
-        mean_reward_error,
-        root_mean(short, n_short, varying),
-        root_mean(long, n_long, varying),
-    )
+            score_open_loop(sums, t, imagined, observations[i, t], spread)
+    return held_out_errors(sums, spread)

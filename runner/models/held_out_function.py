@@ -14,12 +14,9 @@ import numpy as np
 from numba import literally, njit
 
 from runner.compiled_trial import agent_function_predict
-from runner.models.held_out import ROLLOUT_STEPS
-from runner.models.held_out_bins import root_mean, scaled_squares
+from runner.models.held_out_bins import error_sums, held_out_errors, score_one_step, score_open_loop
 
 __all__ = ["function_model_errors"]
-
-_SHORT, _LONG = ROLLOUT_STEPS
 
 
 @njit(cache=True)
@@ -28,40 +25,17 @@ def function_model_errors(kind, arrays, held):
     function model over the held-out arrays (see `runner.models.held_out`); NaN when there are no runs."""
     starts, actions, observations, rewards, lengths, spread = held
     dim = starts.shape[1]
-    varying = 0
-    for d in range(dim):
-        if spread[d] > 0:
-            varying += 1
     predicted = np.zeros(dim)
     imagined = np.zeros(dim)
     following = np.zeros(dim)
-    one_step = 0.0
-    reward_error = 0.0
-    transitions = 0
-    short = 0.0
-    n_short = 0
-    long = 0.0
-    n_long = 0
+    sums = error_sums()
     for i in range(starts.shape[0]):
         imagined[:] = starts[i]
         for t in range(lengths[i]):
             before = starts[i] if t == 0 else observations[i, t - 1]
             reward = agent_function_predict(literally(kind), arrays, before, actions[i, t], predicted)
-            one_step += scaled_squares(predicted, observations[i, t], spread)
-            reward_error += abs(reward - rewards[i, t])
-            transitions += 1
+            score_one_step(sums, predicted, observations[i, t], reward, rewards[i, t], spread)
             agent_function_predict(literally(kind), arrays, imagined, actions[i, t], following)
             imagined[:] = following
-            if t + 1 == _SHORT:
-                short += scaled_squares(imagined, observations[i, t], spread)
-                n_short += 1
-            if t + 1 == _LONG:
-                long += scaled_squares(imagined, observations[i, t], spread)
-                n_long += 1
-    mean_reward_error = reward_error / transitions if transitions > 0 else np.nan
-    return (
-        root_mean(one_step, transitions, varying),
-        mean_reward_error,
-        root_mean(short, n_short, varying),
-        root_mean(long, n_long, varying),
-    )
+            score_open_loop(sums, t, imagined, observations[i, t], spread)
+    return held_out_errors(sums, spread)

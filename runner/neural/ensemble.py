@@ -37,12 +37,9 @@ from runner.neural.model import (
     Prediction,
     Scaler,
     Transitions,
-    check_transitions,
-    fit_scaler,
-    host_inputs,
-    model_inputs,
-    model_targets,
     prediction_from_targets,
+    standardised_data,
+    standardised_inputs,
 )
 
 __all__ = [
@@ -139,14 +136,12 @@ class EnsembleModel:
     def fit(self, data: Transitions, key: jax.Array, previous: EnsembleParams | None = None) -> EnsembleParams:
         """Train every member on its own bootstrap of `data` for `epochs` epochs, from `previous`'s members when
         given, else from fresh ones drawn from `key`."""
-        data = check_transitions(data, self.encoding)
-        inputs, targets = host_inputs(data, self.encoding), model_targets(data)
-        in_scaler, out_scaler = fit_scaler(inputs), fit_scaler(targets)
+        inputs, targets, in_scaler, out_scaler = standardised_data(data, self.encoding)
         n = inputs.shape[0]
         rows = _size_class(n, self.batch_size)
         dtype = jnp.asarray(0.0).dtype
         x, y = np.zeros((rows, inputs.shape[1])), np.zeros((rows, targets.shape[1]))
-        x[:n], y[:n] = (inputs - in_scaler.mean) / in_scaler.scale, (targets - out_scaler.mean) / out_scaler.scale
+        x[:n], y[:n] = inputs, targets
         sizes = (x.shape[1], *self.hidden, 2 * y.shape[1])
         fresh, boot, train_key = _draws(key, self.members, sizes, rows, n)
         members = previous.members if previous is not None else fresh
@@ -168,9 +163,7 @@ class EnsembleModel:
 
     def member_predict(self, params: EnsembleParams, states: jax.Array, actions: jax.Array) -> Prediction:
         """Every member's predictive mean and variance: fields with a leading member axis, (E, b, ds) and (E, b)."""
-        dtype = params.inputs.mean.dtype
-        states = jnp.asarray(states, dtype)
-        x = (model_inputs(states, actions, self.encoding, dtype) - params.inputs.mean) / params.inputs.scale
+        states, x = standardised_inputs(states, actions, self.encoding, params.inputs, params.inputs.mean.dtype)
         mean, logvar = _member_outputs(params.members, x, self.activation)
         return prediction_from_targets(states, mean, jnp.exp(logvar), params.targets)
 

@@ -34,12 +34,9 @@ from runner.neural.model import (
     Prediction,
     Scaler,
     Transitions,
-    check_transitions,
-    fit_scaler,
-    host_inputs,
-    model_inputs,
-    model_targets,
     prediction_from_targets,
+    standardised_data,
+    standardised_inputs,
 )
 
 __all__ = [
@@ -230,11 +227,7 @@ class GaussianProcessModel:
         """Fit every output's GP to at most `max_points` of `data`; start from `previous`'s hyperparameters when
         given, else from length scales drawn log-uniformly in [e^-0.5, e^0.5], signal variance 1 and noise
         variance 0.1 (in standardised units)."""
-        data = check_transitions(data, self.encoding)
-        inputs, targets = host_inputs(data, self.encoding), model_targets(data)
-        in_scaler, out_scaler = fit_scaler(inputs), fit_scaler(targets)
-        x = (inputs - in_scaler.mean) / in_scaler.scale
-        y = (targets - out_scaler.mean) / out_scaler.scale
+        x, y, in_scaler, out_scaler = standardised_data(data, self.encoding)
         select_key, start_key = jax.random.split(key)
         rows = choose_points(x, self.max_points, self.selection, select_key)
         m, d, outputs = self.max_points, x.shape[1], y.shape[1]
@@ -262,9 +255,7 @@ class GaussianProcessModel:
 
     def predict(self, params: GPParams, states: jax.Array, actions: jax.Array) -> Prediction:
         """Predictive mean and variance (latent variance plus noise) of the next state and reward per row."""
-        dtype = params.posterior.x.dtype
-        states = jnp.asarray(states, dtype)
-        xs = (model_inputs(states, actions, self.encoding, dtype) - params.inputs.mean) / params.inputs.scale
+        states, xs = standardised_inputs(states, actions, self.encoding, params.inputs, params.posterior.x.dtype)
         mean, latent = jax.vmap(posterior_predict, in_axes=(0, 0, None))(params.hyper, params.posterior, xs)
         var = latent + params.hyper.noise_var[:, None]
         return prediction_from_targets(states, mean.T, var.T, params.targets)

@@ -38,6 +38,8 @@ __all__ = [
     "model_inputs",
     "model_targets",
     "prediction_from_targets",
+    "standardised_data",
+    "standardised_inputs",
 ]
 
 
@@ -97,6 +99,10 @@ class Scaler(NamedTuple):
     mean: jax.Array
     scale: jax.Array
 
+    def standardise(self, columns: Any) -> Any:
+        """The columns (..., k) in standardised units, on the host or in JAX as they come."""
+        return (columns - self.mean) / self.scale
+
 
 def fit_scaler(columns: np.ndarray) -> Scaler:
     """Mean and standard deviation per column of a host array (n, k), as float64 host arrays; a column that
@@ -104,6 +110,23 @@ def fit_scaler(columns: np.ndarray) -> Scaler:
     columns = np.asarray(columns, dtype=np.float64)
     spread = columns.std(axis=0)
     return Scaler(columns.mean(axis=0), np.where(spread > 1e-12, spread, 1.0))
+
+
+def standardised_data(data: Transitions, encoding: ActionEncoding) -> tuple[np.ndarray, np.ndarray, Scaler, Scaler]:
+    """The inputs (n, ds + width) and targets (n, ds + 1) of `data`, checked and standardised, with their scalers:
+    what every model fits on."""
+    data = check_transitions(data, encoding)
+    inputs, targets = host_inputs(data, encoding), model_targets(data)
+    in_scaler, out_scaler = fit_scaler(inputs), fit_scaler(targets)
+    return in_scaler.standardise(inputs), out_scaler.standardise(targets), in_scaler, out_scaler
+
+
+def standardised_inputs(
+    states: jax.Array, actions: jax.Array, encoding: ActionEncoding, inputs: Scaler, dtype: Any
+) -> tuple[jax.Array, jax.Array]:
+    """`states` as `dtype`, and the standardised inputs (b, ds + width) a fitted model predicts from."""
+    states = jnp.asarray(states, dtype)
+    return states, inputs.standardise(model_inputs(states, actions, encoding, dtype))
 
 
 def check_transitions(data: Transitions, encoding: ActionEncoding) -> Transitions:
