@@ -43,6 +43,7 @@ class BoxDynamics:
     step_limit: int
     state_size: int
     obs_size: int
+    action_kind: str = "discrete"  # "box" on Pendulum-v1 and the continuous crane: only neural kinds run those
 
 
 def box_dynamics(spec: dict[str, Any], env: gym.Env) -> BoxDynamics | str:
@@ -50,8 +51,6 @@ def box_dynamics(spec: dict[str, Any], env: gym.Env) -> BoxDynamics | str:
     dynamics = DYNAMICS.get(spec.get("id", "")) if spec.get("source") == "gym" else None
     if dynamics is None:
         return "no compiled dynamics for this environment"
-    if dynamics.action_kind != "discrete":
-        return f"{dynamics.env_id} has box actions"
     if spec.get("bins"):
         return f"{dynamics.env_id} is seen through bins here"
     try:
@@ -61,7 +60,7 @@ def box_dynamics(spec: dict[str, Any], env: gym.Env) -> BoxDynamics | str:
     limit = _time_limit(env)
     if limit >= np.iinfo(np.int64).max:
         return "it has no step limit"
-    return BoxDynamics(dynamics.env_id, params, limit, dynamics.state_size, dynamics.obs_size)
+    return BoxDynamics(dynamics.env_id, params, limit, dynamics.state_size, dynamics.obs_size, dynamics.action_kind)
 
 
 @njit(cache=True)

@@ -82,12 +82,12 @@ class EnvTags:
     def describe(self) -> str:
         """A few words, e.g. 'box observations (4 numbers), discrete actions (2)'."""
         obs = (
-            f"box observations ({self.observation_size} numbers)"
+            f"box observations ({self.observation_size} {'number' if self.observation_size == 1 else 'numbers'})"
             if self.observation == "box"
             else f"discrete observations ({self.observation_size} states)"
         )
         act = (
-            f"box actions ({self.action_size} numbers)"
+            f"box actions ({self.action_size} {'number' if self.action_size == 1 else 'numbers'})"
             if self.action == "box"
             else f"discrete actions ({self.action_size})"
         )

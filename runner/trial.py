@@ -158,7 +158,7 @@ def resolve_path(spec: dict[str, Any], path: str = "auto") -> str:
     kind = spec["agent"]["kind"]
     tags = agent_class(kind).tags
     compiled_agent = tags.compiled
-    box = facts.box is not None and "box" in tags.observations
+    box = facts.box is not None and "box" in tags.observations and facts.box.action_kind in tags.actions
     compiled_env = facts.table is not None or facts.dynamics is not None or box
     if tags.engine == "jax":
         compiled_env = box and spec["env"].get("id") in JAX_DYNAMICS_IDS
@@ -185,6 +185,10 @@ def environment_path(env_spec: dict[str, Any]) -> str:
         return "compiled kinds run whole trials compiled (table-backed)"
     if facts.dynamics is not None:
         return "compiled kinds run whole trials compiled (compiled dynamics through bins)"
+    if facts.box is not None and facts.box.action_kind == "box":
+        if env_spec.get("id") in JAX_DYNAMICS_IDS:
+            return "neural kinds that take box actions run whole trials compiled (JAX dynamics)"
+        return "trials run step by step"
     if facts.box is not None:
         return "compiled kinds that take boxes run whole trials compiled (compiled dynamics)"
     return "trials run step by step"

@@ -111,7 +111,7 @@ _CASES = [
         _TOP + "environments:\n  - gym: Pendulum-v1\n    bins: {counts: 5}\nagents:\n  - kind: dyna_q\n",
         8,
         "agents[0].kind",
-        "takes discrete actions but 'Pendulum-v1' gives discrete observations (125 states), box actions (1 numbers)",
+        "takes discrete actions but 'Pendulum-v1' gives discrete observations (125 states), box actions (1 number)",
     ),
     Case(
         "search-kind-without-rules",

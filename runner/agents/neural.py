@@ -5,9 +5,17 @@ its JAX side: a frozen dataclass built by `core.from_params(params, obs_size, n_
 methods `init(key)`, `act(state, obs) -> (state, action)`, `observe(state, obs, action, reward, next_obs,
 terminated) -> state`, `greedy(network, obs) -> action` (on `state.online`) and `counters(state)`; a core may add
 `observe_one` with the signature of `observe`, which the step-by-step path then calls instead (a host-side version
-that dispatches its own jitted parts, e.g. so branches compile only when first due). This module
-imports no JAX, so `stepmeter list` and `check` work without the `neural` extra and an experiment naming a neural
-kind without it gets one line saying what to install (`neural_requirement`).
+that dispatches its own jitted parts, e.g. so branches compile only when first due).
+
+Actions are what the kind's tags accept: `actions=("discrete",)` (the default) takes a Discrete space from 0 and
+the core gets the number of actions; a kind declaring `"box"` in its tags' actions takes a flat Box with finite
+bounds, and its core is built by `core.from_params(params, obs_size, action_size, bounds=(low, high))` (tuples of
+floats), acts with float32 arrays of shape (action_size,) and learns from them. An environment whose actions the
+kind does not take is refused at `check` from the tags (`runner.tags.pairing_problem`), and at setup with one
+line.
+
+This module imports no JAX, so `stepmeter list` and `check` work without the `neural` extra and an experiment
+naming a neural kind without it gets one line saying what to install (`neural_requirement`).
 
 On an environment with JAX dynamics (`runner.neural.JAX_DYNAMICS_IDS`) a trial runs as compiled JAX loops
 (`runner.neural.trial`); elsewhere the same core runs one call per real step through gymnasium (the methods below).
@@ -85,26 +93,50 @@ class NeuralAgent(SteppedAgent):
             raise MissingNeuralExtra(problem)
         import jax
 
-        if not isinstance(action_space, gym.spaces.Discrete) or len(observation_space.shape or ()) != 1:
-            raise EnvironmentSourceError(
-                f"{self.kind} needs flat box observations and discrete actions, got {observation_space} and "
-                f"{action_space}"
-            )
+        problem = self._space_problem(observation_space, action_space)
+        if problem is not None:
+            raise EnvironmentSourceError(problem)
         self.observation_space_ = observation_space
         self.action_space_ = action_space
+        self.box_actions_ = isinstance(action_space, gym.spaces.Box)
         core_class = import_entry_point(self.core)
-        self.core_ = core_class.from_params(self._params, observation_space.shape[0], int(action_space.n))
+        obs_size = observation_space.shape[0]
+        if self.box_actions_:
+            bounds = (tuple(float(v) for v in action_space.low), tuple(float(v) for v in action_space.high))
+            self.core_ = core_class.from_params(self._params, obs_size, action_space.shape[0], bounds=bounds)
+        else:
+            self.core_ = core_class.from_params(self._params, obs_size, int(action_space.n))
         with jax.enable_x64(True):
             self.state_ = self.core_.init(jax.random.wrap_key_data(jax_key_data(stream)))
         self.counters_ = np.zeros(len(COUNTER_NAMES), dtype=np.int64)
 
-    def act(self, observation: Any) -> int:
+    def _space_problem(self, observation_space: gym.Space, action_space: gym.Space) -> str | None:
+        """Why this kind cannot take these spaces, in one line; None when it can."""
+        takes = self.tags.actions
+        flat_obs = isinstance(observation_space, gym.spaces.Box) and len(observation_space.shape or ()) == 1
+        discrete = isinstance(action_space, gym.spaces.Discrete) and int(action_space.start) == 0
+        box = isinstance(action_space, gym.spaces.Box) and len(action_space.shape or ()) == 1
+        if not flat_obs or not ((discrete and "discrete" in takes) or (box and "box" in takes)):
+            wanted = " or ".join("discrete (from 0)" if t == "discrete" else "flat box" for t in takes)
+            return (
+                f"{self.kind} needs flat box observations and {wanted} actions, got {observation_space} and "
+                f"{action_space}"
+            )
+        if box and not (np.all(np.isfinite(action_space.low)) and np.all(np.isfinite(action_space.high))):
+            return f"{self.kind} needs finite bounds on box actions (it scales its actions to them), got {action_space}"
+        return None
+
+    def _action(self, action: Any) -> Any:
+        """A core's action as the environment takes it: an int, or a float32 array of shape (action_size,)."""
+        return np.array(action, dtype=np.float32) if self.box_actions_ else int(action)
+
+    def act(self, observation: Any) -> Any:
         """The behaviour action for a real step."""
         import jax
 
         with jax.enable_x64(True):
             self.state_, action = self.core_.act(self.state_, np.asarray(observation, dtype=np.float32))
-            return int(action)
+            return self._action(action)
 
     def observe(
         self, observation: Any, action: Any, reward: float, next_observation: Any, terminated: bool, truncated: bool
@@ -117,19 +149,19 @@ class NeuralAgent(SteppedAgent):
             self.state_ = observe(
                 self.state_,
                 np.asarray(observation, dtype=np.float32),
-                np.int32(action),
+                np.asarray(action, dtype=np.float32) if self.box_actions_ else np.int32(action),
                 np.float32(reward),
                 np.asarray(next_observation, dtype=np.float32),
                 np.bool_(terminated),
             )
             self.counters_[:] = np.asarray(self.core_.counters(self.state_))
 
-    def greedy(self, observation: Any, stream: np.ndarray) -> int:
+    def greedy(self, observation: Any, stream: np.ndarray) -> Any:
         """The greedy action of the current network (the evaluation stream is not needed: ties go to the first)."""
         import jax
 
         with jax.enable_x64(True):
-            return int(self.core_.greedy(self.state_.online, np.asarray(observation, dtype=np.float32)))
+            return self._action(self.core_.greedy(self.state_.online, np.asarray(observation, dtype=np.float32)))
 
     def counters(self) -> dict[str, int]:
         """Counters by name."""
@@ -138,6 +170,18 @@ class NeuralAgent(SteppedAgent):
     def counter_problems(self, real_steps: int) -> list[str]:
         """Negative counters; kinds add their own accounting."""
         return [f"{name} is negative ({value})" for name, value in self.counters().items() if value < 0]
+
+    def replay_problems(self, real_steps: int) -> list[str]:
+        """The accounting of model-free replay kinds: real updates as the core's `updates_after(real_steps)`
+        says, and no planning or model updates."""
+        problems = []
+        counts = self.counters()
+        expected = self.core_.updates_after(real_steps)
+        if counts["real_updates"] != expected:
+            problems.append(f"real_updates {counts['real_updates']} != {expected} expected after {real_steps} steps")
+        if counts["planning_updates"] or counts["model_updates"]:
+            problems.append(f"a model-free agent counted planning or model updates: {counts}")
+        return problems
 
     def has_bin_model(self) -> bool:
         """Neural kinds never predict on a grid of bins (they take the box itself)."""

@@ -41,7 +41,9 @@ truncated after `step_limit` steps. Resets draw through gymnasium's `np_random`:
 
 The compiled kernels of `runner.envs.dynamics.crane` compute the same steps (registered as
 "stepmeter/OverheadCrane-v0" and "stepmeter/OverheadCraneContinuous-v0" beside the classic-control dynamics, and
-with gymnasium under the same ids when this module is imported). In an experiment: `entry: runner.envs.crane:
+with gymnasium under the same ids when this module is imported), and so do the jax.numpy functions of
+`runner.neural.dynamics` under both ids (the neural kinds' compiled trials; the continuous crane's box is the
+fraction of push_force, so its force lies in [-push_force, push_force]). In an experiment: `entry: runner.envs.crane:
 OverheadCrane` with any of the keyword options below under `options`.
 """
 

@@ -133,7 +133,8 @@ SOURCES: dict[str, EnvSource] = {
             (),
             _build_gym,
             "the id's spaces; FrozenLake, CliffWalking and Taxi are table-backed; the classic-control ids and "
-            "stepmeter/OverheadCrane-v0 have compiled dynamics",
+            "stepmeter/OverheadCrane-v0 (and its continuous-force twin stepmeter/OverheadCraneContinuous-v0) have "
+            "compiled dynamics",
         ),
         EnvSource(
             "grid",

@@ -4,7 +4,8 @@ Each environment is three pure functions of the shape of the numba kernels (`run
 inside `lax.scan` and batch with `vmap`:
 
 - `reset(key, params) -> state` draws the start state from a `jax.random` key;
-- `step(state, action, params) -> (next_state, reward, terminated)` for an integer action;
+- `step(state, action, params) -> (next_state, reward, terminated)` for an integer action, or for box actions
+  (Pendulum-v1, the continuous crane) a float array of shape (action_size,), as the numba kernels take it;
 - `observation(state, params) -> obs`, what gymnasium returns, rounded to float32.
 
 States and parameters are float64 (the parameter vectors are the numba modules' `default_params`, at the same
@@ -26,6 +27,7 @@ from runner.envs.dynamics import acrobot as acrobot_ids
 from runner.envs.dynamics import cartpole as cartpole_ids
 from runner.envs.dynamics import crane as crane_ids
 from runner.envs.dynamics import mountain_car as mountain_car_ids
+from runner.envs.dynamics import pendulum as pendulum_ids
 
 __all__ = ["JaxDynamics", "jax_dynamics"]
 
@@ -173,8 +175,19 @@ def _crane_accelerations(p: jax.Array, force: jax.Array, x_dot, theta, theta_dot
 
 
 def _crane_step(state: jax.Array, action: jax.Array, p: jax.Array) -> tuple[jax.Array, jax.Array, jax.Array]:
+    """Push left, none or right for actions 0, 1, 2."""
+    return _crane_pushed(state, (action - 1).astype(jnp.float64), p)
+
+
+def _continuous_crane_step(state: jax.Array, action: jax.Array, p: jax.Array) -> tuple[jax.Array, jax.Array, jax.Array]:
+    """Push with the fraction `action[0]` of push_force, clipped to [-1, 1] (in float64, as the Python class)."""
+    return _crane_pushed(state, jnp.clip(action[0].astype(jnp.float64), -1.0, 1.0), p)
+
+
+def _crane_pushed(state: jax.Array, fraction: jax.Array, p: jax.Array) -> tuple[jax.Array, jax.Array, jax.Array]:
+    """One RK4 step of the crane under the force fraction * push_force."""
     c = crane_ids
-    force = (action - 1).astype(jnp.float64) * p[c.PUSH_FORCE]
+    force = fraction * p[c.PUSH_FORCE]
     x, v, theta, omega = state[0], state[1], state[2], state[3]
     h = p[c.DT]
     half = h / 2.0
@@ -203,6 +216,33 @@ def _crane_step(state: jax.Array, action: jax.Array, p: jax.Array) -> tuple[jax.
     return jnp.stack([x, v_new, theta, omega]), reward, crashed | delivered
 
 
+def _pendulum_reset(key: jax.Array, p: jax.Array) -> jax.Array:
+    q = pendulum_ids
+    high = jnp.stack([p[q.RESET_THETA], p[q.RESET_THETA_DOT]])
+    return _uniform(key, (2,), -high, high)
+
+
+def _pendulum_step(state: jax.Array, action: jax.Array, p: jax.Array) -> tuple[jax.Array, jax.Array, jax.Array]:
+    """Gymnasium's `PendulumEnv.step`: the torque is a float32 (the action space's type) clipped in float32, its
+    cost and drive computed in float32 (a float32 with a Python float), everything else in float64."""
+    q = pendulum_ids
+    th, thdot = state[0], state[1]
+    limit = _f32(p[q.MAX_TORQUE])
+    u = jnp.minimum(jnp.maximum(_f32(action[0]), -limit), limit)
+    control_cost = jnp.float32(0.001) * (u * u)
+    angle = jnp.remainder(th + jnp.pi, 2 * jnp.pi) - jnp.pi
+    costs = angle * angle + 0.1 * (thdot * thdot) + control_cost.astype(jnp.float64)
+    drive = (_f32(p[q.TORQUE_GAIN]) * u).astype(jnp.float64)
+    newthdot = thdot + (p[q.GRAVITY_GAIN] * jnp.sin(th) + drive) * p[q.DT]
+    newthdot = jnp.minimum(jnp.maximum(newthdot, -p[q.MAX_SPEED]), p[q.MAX_SPEED])
+    newth = th + newthdot * p[q.DT]
+    return jnp.stack([newth, newthdot]), -costs, jnp.bool_(False)
+
+
+def _pendulum_observation(state: jax.Array, p: jax.Array) -> jax.Array:
+    return _f32(jnp.stack([jnp.cos(state[0]), jnp.sin(state[0]), state[1]]))
+
+
 def _state_observation(state: jax.Array, p: jax.Array) -> jax.Array:
     return _f32(state)
 
@@ -211,7 +251,9 @@ _DYNAMICS = {
     "CartPole-v1": JaxDynamics(_cartpole_reset, _cartpole_step, _state_observation),
     "MountainCar-v0": JaxDynamics(_mountain_car_reset, _mountain_car_step, _state_observation),
     "Acrobot-v1": JaxDynamics(_acrobot_reset, _acrobot_step, _acrobot_observation),
+    "Pendulum-v1": JaxDynamics(_pendulum_reset, _pendulum_step, _pendulum_observation),
     "stepmeter/OverheadCrane-v0": JaxDynamics(_crane_reset, _crane_step, _state_observation),
+    "stepmeter/OverheadCraneContinuous-v0": JaxDynamics(_crane_reset, _continuous_crane_step, _state_observation),
 }
 
 
