@@ -221,7 +221,8 @@ def run_trial(spec: dict[str, Any], path: str = "auto", time_limit: float = 0.0)
     if isinstance(agent, NeuralAgent):
         from runner.neural.trial import run_neural_trial
 
-        return run_neural_trial(spec, facts.box, agent, streams, time_limit)
+        held = _held_out(spec) if agent.has_function_model() else None
+        return run_neural_trial(spec, facts.box, agent, streams, time_limit, held=held)
     return _run_compiled(spec, facts, agent, streams, time_limit)
 
 
@@ -289,6 +290,8 @@ def _predictor(
         return None
     if isinstance(agent, OwnAgent):
         return agent.predict if agent.has_model() else None
+    if isinstance(agent, NeuralAgent):
+        return agent.predict if agent.has_function_model() else None
     function_model = agent.tags.learned_model == "function" and callable(getattr(agent, "predict", None))
     return agent.predict if function_model else None
 
@@ -322,7 +325,7 @@ def _run_gymnasium(
     tables = [t.as_tuple() for t in facts.tables] if facts.tables else None
     read = _reader(facts.tags.observation)
     predict = _predictor(agent, facts)
-    honesty = getattr(agent, "model_honesty", None) if facts.tags.observation == "box" else None
+    honesty = getattr(agent, "model_honesty", None) if facts.tags.observation == "box" and predict else None
     held = _held_out(spec) if predict is not None or honesty is not None else None
     phase = 0
     earned = 0.0

@@ -49,6 +49,7 @@ AGENTS = Registry(
         "linear_gaussian": "runner.agents.linear_gaussian:LinearGaussian",
         "q_network": "runner.agents.q_network:QNetwork",
         "mpc": "runner.agents.mpc:ModelPredictiveControl",
+        "neural_dyna": "runner.agents.neural_dyna:NeuralDyna",
         "soft_actor_critic": "runner.agents.soft_actor_critic:SoftActorCritic",
     },
     base=(TabularAgent, NeuralAgent),

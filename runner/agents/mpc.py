@@ -122,6 +122,10 @@ class ModelPredictiveControl(NeuralAgent):
             nxt, reward = self.core_.predict_mean(self.state_.model, np.asarray(observation, np.float64), action)
             return np.asarray(nxt, dtype=np.float64), float(reward)
 
+    def has_function_model(self) -> bool:
+        """Model-predictive control always learns its model, so the trial measures it on held-out transitions."""
+        return True
+
     def model_honesty(self, held: Any) -> Any:
         """The fitted model's held-out errors beside its predicted spread and coverage
         (`runner.neural.model_error.held_out_honesty`, 20 sampled rollouts from the greedy plans' key); None before

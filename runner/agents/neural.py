@@ -3,7 +3,9 @@
 A neural kind is a `NeuralAgent` subclass naming its schema, tags (`engine="jax"`) and `core`, the entry point of
 its JAX side: a frozen dataclass built by `core.from_params(params, obs_size, n_actions)` with pure, jitted
 methods `init(key)`, `act(state, obs) -> (state, action)`, `observe(state, obs, action, reward, next_obs,
-terminated) -> state`, `greedy(network, obs) -> action` (on `state.online`) and `counters(state)`.
+terminated) -> state`, `greedy(network, obs) -> action` (on `state.online`) and `counters(state)`; a core may add
+`observe_one` with the signature of `observe`, which the step-by-step path then calls instead (a host-side version
+that dispatches its own jitted parts, e.g. so branches compile only when first due).
 
 Actions are what the kind's tags accept: `actions=("discrete",)` (the default) takes a Discrete space from 0 and
 the core gets the number of actions; a kind declaring `"box"` in its tags' actions takes a flat Box with finite
@@ -143,7 +145,8 @@ class NeuralAgent(SteppedAgent):
         import jax
 
         with jax.enable_x64(True):
-            self.state_ = self.core_.observe(
+            observe = getattr(self.core_, "observe_one", self.core_.observe)
+            self.state_ = observe(
                 self.state_,
                 np.asarray(observation, dtype=np.float32),
                 np.asarray(action, dtype=np.float32) if self.box_actions_ else np.int32(action),
@@ -182,6 +185,11 @@ class NeuralAgent(SteppedAgent):
 
     def has_bin_model(self) -> bool:
         """Neural kinds never predict on a grid of bins (they take the box itself)."""
+        return False
+
+    def has_function_model(self) -> bool:
+        """Whether the agent learns a function model whose error the trial measures on held-out transitions
+        (kinds with one override this and `predict`)."""
         return False
 
     def model_error(self, table: tuple) -> tuple[float, float]:

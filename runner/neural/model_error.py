@@ -98,6 +98,12 @@ def _action_array(held: HeldOut, model: DynamicsModel) -> np.ndarray:
     return out
 
 
+@partial(jax.jit, static_argnums=0)
+def _predict(model, params, states, actions):
+    """The model's prediction for a batch, compiled once per model setting and shape (models are hashable)."""
+    return model.predict(params, states, actions)
+
+
 @partial(jax.jit, static_argnums=(0, 5))
 def _rollouts(model, params, starts, actions, key, particles):
     """Open-loop rollouts from `starts` (runs, ds) under `actions` (runs, length, ...): the mean fed back, and
@@ -149,7 +155,7 @@ def held_out_honesty(
     valid = np.arange(length)[None, :] < held.lengths[:, None]
     before = np.concatenate([held.starts[:, None, :], held.observations[:, :-1, :]], axis=1)
     flat_actions = actions.reshape(runs * length, *actions.shape[2:])
-    pred = jax.jit(model.predict)(params, before.reshape(runs * length, -1), flat_actions)
+    pred = _predict(model, params, before.reshape(runs * length, -1), flat_actions)
     pred = jax.tree.map(lambda a: np.asarray(a, dtype=np.float64).reshape(runs, length, *a.shape[1:]), pred)
     error = (pred.next_state_mean - held.observations)[valid]
     sd = np.sqrt(pred.next_state_var)[valid]

@@ -35,6 +35,7 @@ from runner.agents.neural import NeuralAgent
 from runner.compiled_box_trial import BoxDynamics
 from runner.errors import TrialTimeout
 from runner.metrics import METRIC_COLUMNS
+from runner.models.held_out import HeldOut
 from runner.neural.dynamics import JaxDynamics, jax_dynamics
 from runner.seeding import TrialStreams, jax_key_data
 
@@ -170,18 +171,31 @@ def _key(sequence: np.random.SeedSequence) -> jax.Array:
 
 
 def run_neural_trial(
-    spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: TrialStreams, time_limit: float
+    spec: dict[str, Any],
+    box: BoxDynamics,
+    agent: NeuralAgent,
+    streams: TrialStreams,
+    time_limit: float,
+    held: HeldOut | None = None,
 ) -> Any:
     """Run the trial of a set-up neural agent on `box`'s environment in compiled chunks; the `TrialResult` of
-    `runner.trial` (rows, training episodes, the path). Raises TrialTimeout past `time_limit` seconds (0: none)."""
+    `runner.trial` (rows, training episodes, the path). `held`: the held-out real transitions the agent's model is
+    measured on (None: no model errors). Raises TrialTimeout past `time_limit` seconds (0: none)."""
     _use_compilation_cache()
     with jax.enable_x64(True):
-        return _run(spec, box, agent, streams, time_limit)
+        return _run(spec, box, agent, streams, time_limit, held)
 
 
-def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: TrialStreams, time_limit: float) -> Any:
+def _run(
+    spec: dict[str, Any],
+    box: BoxDynamics,
+    agent: NeuralAgent,
+    streams: TrialStreams,
+    time_limit: float,
+    held: HeldOut | None,
+) -> Any:
     from runner.models.held_out import model_errors
-    from runner.trial import TrialResult, _held_out
+    from runner.trial import TrialResult
 
     ev = spec["evaluation"]
     budget, every = int(spec["real_steps"]), int(ev["every"])
@@ -203,9 +217,8 @@ def _run(spec: dict[str, Any], box: BoxDynamics, agent: NeuralAgent, streams: Tr
     refit_steps = core.refit_steps(budget) if hasattr(core, "refit_steps") else []
     plan = _chunk_plan(budget, every, refit_steps)
     refit_at = set(refit_steps)
-    predict = agent.predict if agent.tags.learned_model == "function" else None
-    honesty = getattr(agent, "model_honesty", None)
-    held = _held_out(spec) if predict is not None or honesty is not None else None
+    predict = agent.predict if held is not None else None
+    honesty = getattr(agent, "model_honesty", None) if held is not None else None
     chunks = {n: _compiled(("chunk", *setting, n), carry, eval_key) for sizes in plan for n in sizes}
 
     n_points = budget // every + 1
