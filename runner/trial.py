@@ -38,7 +38,7 @@ from runner.envs.sources import build_env, environment_tags
 from runner.envs.table import TransitionTable, change_steps, phase_tables, why_not_table_backed
 from runner.errors import EnvironmentSourceError, TrialTimeout
 from runner.metrics import HONESTY_COLUMNS, METRIC_COLUMNS, METRIC_INDEX
-from runner.models.held_out import HeldOut, collect_held_out, model_errors
+from runner.models.held_out import HeldOut, collect_held_out, held_out_columns
 from runner.models.held_out_bins import bin_arrays, bin_predictor, held_out_arrays
 from runner.neural import JAX_DYNAMICS_IDS
 from runner.seeding import TrialStreams, held_out_sequence, trial_streams
@@ -351,14 +351,8 @@ def _run_gymnasium(
         rows["model_tv_error"][point], rows["model_reward_error"][point] = errors
         for name in ("model_error_1", "model_error_5", "model_error_20", *HONESTY_COLUMNS):
             rows[name][point] = np.nan
-        measured_honesty = honesty(held) if honesty is not None and held is not None else None
-        if measured_honesty is not None:
-            for name, value in measured_honesty.columns().items():
-                rows[name][point] = value
-        elif predict is not None and held is not None:
-            one_step, reward_error, *rollouts = model_errors(predict, held)
-            rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
-            rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
+        for name, value in held_out_columns(held, honesty, predict).items():
+            rows[name][point] = value
         rows["env_phase"][point] = phase
         rows["wall_seconds"][point] = time.perf_counter() - start
         measured += time.process_time() - measuring

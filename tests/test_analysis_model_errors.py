@@ -52,6 +52,19 @@ def _frame() -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def _facts(name: str) -> ExperimentFacts:
+    """The report facts of `_frame`'s experiment: one crane, Q-learning as the baseline."""
+    return ExperimentFacts(
+        name=name,
+        budget=400,
+        baseline="Q-learning",
+        thresholds={"crane": -80.0},
+        env_order=["crane"],
+        agent_order=["Q-learning", "Dyna-Q"],
+        n_resamples=100,
+    )
+
+
 def test_bands_hold_the_mean_over_seeds_for_agents_with_a_model_only():
     frame = _frame()
     bands = held_out_error_bands(frame, n_resamples=200)
@@ -77,16 +90,7 @@ def test_report_writes_the_table_and_the_figure_when_errors_were_measured(tmp_pa
     frame = _frame()
     if not with_errors:
         frame = frame.assign(model_error_1=np.nan, model_error_5=np.nan, model_error_20=np.nan)
-    facts = ExperimentFacts(
-        name="errors",
-        budget=400,
-        baseline="Q-learning",
-        thresholds={"crane": -80.0},
-        env_order=["crane"],
-        agent_order=["Q-learning", "Dyna-Q"],
-        n_resamples=100,
-    )
-    write_report(frame, facts, tmp_path)
+    write_report(frame, _facts("errors"), tmp_path)
     assert (tmp_path / "model_error_crane.png").is_file() == with_errors
     assert (tmp_path / "model_errors.csv").is_file() == with_errors
     if with_errors:
@@ -127,15 +131,7 @@ def test_honesty_table_puts_each_stated_spread_beside_its_error():
 
 
 def test_report_draws_the_honesty_figure_only_for_models_that_state_a_spread(tmp_path):
-    facts = ExperimentFacts(
-        name="honesty",
-        budget=400,
-        baseline="Q-learning",
-        thresholds={"crane": -80.0},
-        env_order=["crane"],
-        agent_order=["Q-learning", "Dyna-Q"],
-        n_resamples=100,
-    )
+    facts = _facts("honesty")
     write_report(_honest_frame(), facts, tmp_path / "stated")
     write_report(_frame(), facts, tmp_path / "unstated")
     assert (tmp_path / "stated" / "model_honesty_crane.png").is_file()

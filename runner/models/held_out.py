@@ -24,7 +24,7 @@ from typing import Any
 import gymnasium as gym
 import numpy as np
 
-__all__ = ["ROLLOUT_STEPS", "HeldOut", "collect_held_out", "model_errors"]
+__all__ = ["ROLLOUT_STEPS", "HeldOut", "collect_held_out", "held_out_columns", "model_errors"]
 
 ROLLOUT_STEPS = (5, 20)
 """The open-loop horizons reported beside the one-step error (metric columns model_error_5 and model_error_20)."""
@@ -101,3 +101,25 @@ def model_errors(
         float(np.mean(reward_errors)) if reward_errors else float("nan"),
         *(_rms(rollouts[k], held.spread) for k in ROLLOUT_STEPS),
     )
+
+
+def held_out_columns(
+    held: HeldOut | None, honesty: Callable[[HeldOut], Any] | None, predict: Callable[[np.ndarray, Any], Any] | None
+) -> dict[str, float]:
+    """The metric columns a model's held-out measurement fills at an evaluation point: all of `honesty(held)`'s
+    (`runner.neural.model_error.ModelHonesty.columns`: errors, predicted spread, coverage) when it gives one, else
+    the errors of `predict` (`model_errors`), else none (no held-out set or no model)."""
+    if held is None:
+        return {}
+    measured = honesty(held) if honesty is not None else None
+    if measured is not None:
+        return measured.columns()
+    if predict is None:
+        return {}
+    one_step, reward_error, short, long = model_errors(predict, held)
+    return {
+        "model_error_1": one_step,
+        "model_reward_error": reward_error,
+        "model_error_5": short,
+        "model_error_20": long,
+    }

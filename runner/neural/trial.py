@@ -35,7 +35,7 @@ from runner.agents.neural import NeuralAgent
 from runner.compiled_box_trial import BoxDynamics
 from runner.errors import TrialTimeout
 from runner.metrics import METRIC_COLUMNS
-from runner.models.held_out import HeldOut
+from runner.models.held_out import HeldOut, held_out_columns
 from runner.neural.dynamics import JaxDynamics, jax_dynamics
 from runner.seeding import TrialStreams, jax_key_data
 
@@ -194,7 +194,6 @@ def _run(
     time_limit: float,
     held: HeldOut | None,
 ) -> Any:
-    from runner.models.held_out import model_errors
     from runner.trial import TrialResult
 
     ev = spec["evaluation"]
@@ -243,14 +242,8 @@ def _run(
         rows["real_updates"][point], rows["planning_updates"][point], rows["model_updates"][point] = counts
         if held is not None:
             agent.state_ = carry.agent
-        measured_honesty = honesty(held) if honesty is not None and held is not None else None
-        if measured_honesty is not None:
-            for name, value in measured_honesty.columns().items():
-                rows[name][point] = value
-        elif predict is not None and held is not None:
-            one_step, reward_error, *rollouts = model_errors(predict, held)
-            rows["model_error_1"][point], rows["model_reward_error"][point] = one_step, reward_error
-            rows["model_error_5"][point], rows["model_error_20"][point] = rollouts
+        for name, value in held_out_columns(held, honesty, predict).items():
+            rows[name][point] = value
         rows["env_phase"][point] = 0
         rows["wall_seconds"][point] = time.perf_counter() - started
         measured += time.process_time() - measuring
