@@ -6,10 +6,10 @@ an evaluation is one compiled call playing all its greedy episodes as a batch (`
 environment. So Python dispatch is paid once per chunk, not once per step. The wall-clock limit is checked between
 chunks. A core with `refit_steps(budget)` and `refit(state)` (model-predictive control) has its host work (a model
 refit) run between chunks, which end at those steps. Rows fill `runner.metrics.METRIC_COLUMNS` as the other paths
-do: the model columns from the agent's `model_honesty` (errors, predicted spread and coverage) once it gives them,
-else from `runner.models.held_out.model_errors` for kinds whose tags say they learn a function model (through the
-agent's `predict`), NaN otherwise; `cpu_seconds` excludes evaluation and the model errors but
-includes refits, and compiling happens before the clocks start.
+do: for a kind that learns a function model (`has_function_model`), the model columns on the held-out set the
+trial passes in (`runner.models.held_out.held_out_columns`: the agent's `model_honesty` once it gives one, else the
+errors of its `predict`), NaN otherwise; `cpu_seconds` excludes evaluation and the model errors but includes
+refits, and compiling happens before the clocks start.
 
 Randomness: the agent's key comes from the trial's agent stream, the training environment's from its env stream and
 the evaluation environment's from its own (`runner.seeding`), so two runs of one spec give the same rows bit for
