@@ -107,3 +107,20 @@ def test_classic_control_config_gives_acrobot_its_own_features():
         assert variant.params_on("Acrobot-v1")["features"]["hash_size"] == 1024
     budgets = [a.params["planning_steps"] for a in experiment.agents if a.kind in ("linear_dyna", "linear_gaussian")]
     assert budgets == [0, 5, 20, 0, 5, 20]
+
+
+PENDULUM_CONFIG = CONFIG.parent / "pendulum.yaml"
+
+
+def test_pendulum_config_compares_the_model_free_and_the_planning_kinds_on_box_actions():
+    """Soft actor-critic against model-predictive control on both learned models, on Pendulum-v1's box actions."""
+    pytest.importorskip("jax")
+    experiment = load_experiment(PENDULUM_CONFIG)
+    (env,) = experiment.environments
+    assert env.spec["id"] == "Pendulum-v1" and env.tags.action == "box" and env.threshold == -200
+    assert [(a.kind, a.params.get("model")) for a in experiment.agents] == [
+        ("soft_actor_critic", None),
+        ("mpc", "ensemble"),
+        ("mpc", "gp"),
+    ]
+    assert experiment.baseline == "soft actor-critic"
