@@ -14,8 +14,6 @@ Run from the repository root with `PYTHONPATH=. python benchmarks/neural_dyna_sp
 
 from __future__ import annotations
 
-import argparse
-import sys
 import time
 
 import jax
@@ -23,10 +21,10 @@ import jax.numpy as jnp
 import numpy as np
 
 try:  # run as a script: benchmarks/ is on sys.path
-    from planning_speed import command_line, cpu_model, pin_to_one_core
+    from planning_speed import benchmark_start
     from speed import CpuSnapshot, other_cpu_use
 except ImportError:  # imported as part of a package rather than run as a script
-    from benchmarks.planning_speed import command_line, cpu_model, pin_to_one_core
+    from benchmarks.planning_speed import benchmark_start
     from benchmarks.speed import CpuSnapshot, other_cpu_use
 
 from runner.agents import make_agent
@@ -94,14 +92,7 @@ def trial_rates(kind: str, params: dict, steps: int, seed: int) -> tuple[float, 
 
 def main(argv: list[str] | None = None) -> int:
     """Measure, then print the machine and the figures."""
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="a smoke run about ten times smaller")
-    parser.add_argument("--seed", type=int, default=0)
-    args = parser.parse_args(argv)
-    scale = 10 if args.quick else 1
-    pinned = pin_to_one_core()
-    print(f"machine: {cpu_model()}; {pinned}; python {sys.version.split()[0]}, jax {jax.__version__}")
-    print(f"date: {time.strftime('%Y-%m-%d %H:%M')}; reproduce: {command_line(args.quick, 'neural_dyna_speed.py')}")
+    args, scale = benchmark_start(argv, __doc__.splitlines()[0], "neural_dyna_speed.py", f", jax {jax.__version__}")
     with jax.enable_x64(True):
         before = CpuSnapshot.take()
         plan_rate, real_rate = updates_per_second(5_000 // scale, args.seed)

@@ -345,6 +345,21 @@ def command_line(quick: bool, script: str = "planning_speed.py") -> str:
     return f"cd {root} && PYTHONPATH={root} python benchmarks/{script}" + (" --quick" if quick else "")
 
 
+def benchmark_start(
+    argv: list[str] | None, description: str, script: str, versions: str = ""
+) -> tuple[argparse.Namespace, int]:
+    """The opening the JAX benchmarks share: `--quick` and `--seed`, one pinned core, the machine and date lines
+    (`versions` appended to the machine line); returns the arguments and the scale (10 with --quick, else 1)."""
+    parser = argparse.ArgumentParser(description=description)
+    parser.add_argument("--quick", action="store_true", help="a smoke run about ten times smaller")
+    parser.add_argument("--seed", type=int, default=0)
+    args = parser.parse_args(argv)
+    pinned = pin_to_one_core()
+    print(f"machine: {cpu_model()}; {pinned}; python {sys.version.split()[0]}{versions}")
+    print(f"date: {time.strftime('%Y-%m-%d %H:%M')}; reproduce: {command_line(args.quick, script)}")
+    return args, 10 if args.quick else 1
+
+
 def main(argv: list[str] | None = None) -> int:
     """Measure, then print the machine, the table, the ratios and the target check."""
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])

@@ -10,17 +10,13 @@ Run from the repository root with `PYTHONPATH=. python benchmarks/sac_speed.py` 
 
 from __future__ import annotations
 
-import argparse
-import sys
-import time
-
 import jax
 
 try:  # run as a script: benchmarks/ is on sys.path
-    from planning_speed import command_line, cpu_model, pin_to_one_core
+    from planning_speed import benchmark_start
     from speed import CpuSnapshot, other_cpu_use
 except ImportError:  # imported as part of a package rather than run as a script
-    from benchmarks.planning_speed import command_line, cpu_model, pin_to_one_core
+    from benchmarks.planning_speed import benchmark_start
     from benchmarks.speed import CpuSnapshot, other_cpu_use
 
 from runner.trial import run_trial
@@ -49,14 +45,7 @@ def steps_per_second(steps: int, seed: int, path: str) -> float:
 
 def main(argv: list[str] | None = None) -> int:
     """Measure, then print the machine and the figures."""
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="a smoke run about ten times smaller")
-    parser.add_argument("--seed", type=int, default=0)
-    args = parser.parse_args(argv)
-    scale = 10 if args.quick else 1
-    pinned = pin_to_one_core()
-    print(f"machine: {cpu_model()}; {pinned}; python {sys.version.split()[0]}, jax {jax.__version__}")
-    print(f"date: {time.strftime('%Y-%m-%d %H:%M')}; reproduce: {command_line(args.quick, 'sac_speed.py')}")
+    args, scale = benchmark_start(argv, __doc__.splitlines()[0], "sac_speed.py", f", jax {jax.__version__}")
     before = CpuSnapshot.take()
     compiled = steps_per_second(20_000 // scale, args.seed, "compiled")
     stepwise = steps_per_second(4_000 // scale, args.seed, "gymnasium")
