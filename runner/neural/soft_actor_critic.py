@@ -14,8 +14,10 @@ stability. Log-densities and entropies are those of the squashed action a in [-1
 (k = action dimensions, the second paper's heuristic) does not depend on the units of the bounds.
 
 Critics: two Q networks of (observation, a), each with a target copy moved after every update by target <- rate
-online + (1 - rate) target (Polyak averaging). Each update, on `batch_size` transitions drawn uniformly (with
-replacement) from a ring buffer of the last `buffer_size` real transitions:
+online + (1 - rate) target (Polyak averaging); with `polyak_rate` 0 (not a value of the `soft_actor_critic` kind:
+`neural_dyna` on box actions offers it, as its Q-network does) the targets are instead copies of the critics made
+every `target_period` updates (hard target updates, common practice). Each update, on `batch_size` transitions
+drawn uniformly (with replacement) from a ring buffer of the last `buffer_size` real transitions:
 
 - critics: mean over the batch and both critics of (Q_i(s, a) - y)^2 / 2 with
   y = r + gamma (1 - terminated) (min_i Qtarget_i(s', a') - alpha log pi(a' | s')), a' drawn from the policy at s';
@@ -27,6 +29,9 @@ Three Adam optimizers (optax), one learning rate. Before `learning_starts` real 
 from the box (common practice, so the first updates see varied actions); then from the policy. Every
 `update_every` real steps from `learning_starts` on, `replays` updates (the compute budget). Greedy evaluation acts
 with tanh(m). A truncated step (time limit) bootstraps; only `terminated` ends the return.
+
+`gradient_step` is one such update on a given batch, optionally weighted per row (each mean above becomes a
+weighted mean): `neural_dyna` on box actions feeds it transitions simulated by its model (`runner.neural.dyna`).
 
 Counters: one update (critics, policy, temperature, targets) counts as one real update; no planning or model
 updates. Networks and the buffer are float32.
@@ -99,6 +104,7 @@ class SoftActorCriticCore:
     polyak_rate: float = 0.005
     learn_temperature: bool = True
     temperature: float = 1.0
+    target_period: int = 1
 
     @classmethod
     def from_params(
@@ -235,28 +241,40 @@ class SoftActorCriticCore:
         return jax.lax.fori_loop(0, self.replays, lambda _, s: self._update(s), state)
 
     def critic_loss(
-        self, critics: MLPParams, state: SACState, batch: tuple[jax.Array, ...], key: jax.Array
+        self,
+        critics: MLPParams,
+        state: SACState,
+        batch: tuple[jax.Array, ...],
+        key: jax.Array,
+        weight: jax.Array | None = None,
     ) -> jax.Array:
-        """The critics' soft Bellman residual (module docstring) on a batch, the target held fixed."""
+        """The critics' soft Bellman residual (module docstring) on a batch, the target held fixed; with `weight`
+        (b,), its weighted mean."""
         obs, actions, rewards, next_obs, terminated = batch
         next_actions, next_log_prob = self.sample(state.online, next_obs, key)
         next_q = self.q_values(state.targets, next_obs, next_actions).min(axis=0)
         alpha = jnp.exp(state.log_alpha)
         soft_value = next_q - alpha * next_log_prob
         goal = jax.lax.stop_gradient(rewards + jnp.float32(self.gamma) * jnp.where(terminated, 0.0, soft_value))
-        return 0.5 * jnp.mean((self.q_values(critics, obs, actions) - goal) ** 2)
+        return 0.5 * _mean((self.q_values(critics, obs, actions) - goal) ** 2, weight)
 
     def policy_loss(
-        self, policy: MLPParams, critics: MLPParams, log_alpha: jax.Array, obs: jax.Array, key: jax.Array
+        self,
+        policy: MLPParams,
+        critics: MLPParams,
+        log_alpha: jax.Array,
+        obs: jax.Array,
+        key: jax.Array,
+        weight: jax.Array | None = None,
     ) -> tuple[jax.Array, jax.Array]:
-        """(mean of alpha log pi - min Q over a reparameterised draw, the draws' log pi)."""
+        """(mean of alpha log pi - min Q over a reparameterised draw, the draws' log pi); weighted with `weight`."""
         actions, log_prob = self.sample(policy, obs, key)
         q = self.q_values(critics, obs, actions).min(axis=0)
-        return jnp.mean(jnp.exp(log_alpha) * log_prob - q), log_prob
+        return _mean(jnp.exp(log_alpha) * log_prob - q, weight), log_prob
 
-    def temperature_loss(self, log_alpha: jax.Array, log_prob: jax.Array) -> jax.Array:
-        """J(alpha) = mean of -alpha (log pi + target entropy), log pi held fixed."""
-        return jnp.mean(-jnp.exp(log_alpha) * (jax.lax.stop_gradient(log_prob) + self.target_entropy))
+    def temperature_loss(self, log_alpha: jax.Array, log_prob: jax.Array, weight: jax.Array | None = None) -> jax.Array:
+        """J(alpha) = mean of -alpha (log pi + target entropy), log pi held fixed; weighted with `weight`."""
+        return _mean(-jnp.exp(log_alpha) * (jax.lax.stop_gradient(log_prob) + self.target_entropy), weight)
 
     def _update(self, state: SACState) -> SACState:
         """One update of critics, policy, temperature and targets from one minibatch of the buffer."""
@@ -264,22 +282,41 @@ class SoftActorCriticCore:
         buf = state.buffer
         idx = jax.random.randint(draw, (self.batch_size,), 0, jnp.maximum(buf.size, 1))
         batch = (buf.obs[idx], buf.actions[idx], buf.rewards[idx], buf.next_obs[idx], buf.terminated[idx])
+        updates = state.updates + 1
+        state = self.gradient_step(state, batch, critic_key, policy_key, copy=updates % self.target_period == 0)
+        return state._replace(updates=updates, key=key)
+
+    def gradient_step(
+        self,
+        state: SACState,
+        batch: tuple[jax.Array, ...],
+        critic_key: jax.Array,
+        policy_key: jax.Array,
+        weight: jax.Array | None = None,
+        copy: jax.Array | bool = False,
+    ) -> SACState:
+        """Critics, policy, temperature and targets moved by one Adam step each on `batch` (obs, squashed actions,
+        rewards, next_obs, terminated), rows weighted by `weight` when given; with `polyak_rate` 0 the targets
+        become the critics where `copy` holds. The update count and the state's key are the caller's."""
         opt = self.optimizer
-        grads = jax.grad(self.critic_loss)(state.critics, state, batch, critic_key)
+        grads = jax.grad(self.critic_loss)(state.critics, state, batch, critic_key, weight)
         changes, critic_opt = opt.update(grads, state.critic_opt, state.critics)
         critics = optax.apply_updates(state.critics, changes)
         grads, log_prob = jax.grad(self.policy_loss, has_aux=True)(
-            state.online, critics, state.log_alpha, batch[0], policy_key
+            state.online, critics, state.log_alpha, batch[0], policy_key, weight
         )
         changes, policy_opt = opt.update(grads, state.policy_opt, state.online)
         policy = optax.apply_updates(state.online, changes)
         log_alpha, alpha_opt = state.log_alpha, state.alpha_opt
         if self.learn_temperature:
-            grad = jax.grad(self.temperature_loss)(log_alpha, log_prob)
+            grad = jax.grad(self.temperature_loss)(log_alpha, log_prob, weight)
             changes, alpha_opt = opt.update(grad, alpha_opt, log_alpha)
             log_alpha = optax.apply_updates(log_alpha, changes)
-        rate = jnp.float32(self.polyak_rate)
-        targets = jax.tree_util.tree_map(lambda t, o: rate * o + (1 - rate) * t, state.targets, critics)
+        if self.polyak_rate > 0.0:
+            rate = jnp.float32(self.polyak_rate)
+            targets = jax.tree_util.tree_map(lambda t, o: rate * o + (1 - rate) * t, state.targets, critics)
+        else:
+            targets = jax.tree_util.tree_map(lambda t, o: jnp.where(copy, o, t), state.targets, critics)
         return state._replace(
             online=policy,
             critics=critics,
@@ -288,8 +325,6 @@ class SoftActorCriticCore:
             policy_opt=policy_opt,
             critic_opt=critic_opt,
             alpha_opt=alpha_opt,
-            updates=state.updates + 1,
-            key=key,
         )
 
     def counters(self, state: SACState) -> jax.Array:
@@ -302,3 +337,11 @@ class SoftActorCriticCore:
             return 0
         first = max(self.learning_starts, 1)
         return self.replays * (steps // self.update_every - (first - 1) // self.update_every)
+
+
+def _mean(values: jax.Array, weight: jax.Array | None) -> jax.Array:
+    """The mean of `values` (..., b), or with `weight` (b,) the weighted mean over the batch (and the leading axes)."""
+    if weight is None:
+        return jnp.mean(values)
+    weights = jnp.broadcast_to(weight, values.shape)
+    return jnp.sum(values * weights) / jnp.maximum(jnp.sum(weights), 1.0)
