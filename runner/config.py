@@ -757,14 +757,16 @@ def _baseline(src: SourceText, value: Any, agents: tuple[AgentVariant, ...]) -> 
 
 
 def _check_pairs(src: SourceText, environments: tuple[EnvironmentDecl, ...], agents: tuple[AgentVariant, ...]) -> None:
-    """Every agent variant must be able to serve every environment (their tags say so); else one line naming both
-    and what would fit."""
+    """Every agent variant must be able to serve every environment (their tags say so), with parameters that fit
+    its kind of actions (a kind's `action_params_problem`, when it has one); else one line naming both and what
+    would fit."""
     seen: set[tuple[str, str]] = set()
     for variant in agents:
         cls = agent_class(variant.kind)
         for env in environments:
             params = variant.params_on(env.label)
-            uses_table = bool(getattr(cls(**params), "uses_table", lambda: False)())
+            agent = cls(**params)
+            uses_table = bool(getattr(agent, "uses_table", lambda: False)())
             key = (variant.kind, repr(sorted(params.items())), env.label)
             if key in seen or env.tags is None:
                 continue
@@ -773,3 +775,7 @@ def _check_pairs(src: SourceText, environments: tuple[EnvironmentDecl, ...], age
             problem = pairing_problem(variant.kind, cls.tags, uses_table, env.label, gives)
             if problem is not None:
                 raise src.error(("agents", variant.index, "kind"), problem)
+            params_problem = getattr(agent, "action_params_problem", None)
+            problem = params_problem(gives.action) if params_problem is not None else None
+            if problem is not None:
+                raise src.error(("agents", variant.index, "params"), f"on {env.label!r}: {problem}")

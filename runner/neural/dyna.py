@@ -28,6 +28,16 @@ that core's own calls. On top of it:
   `batch_size` transitions in step order. Planning moves the online network only: the target network keeps the
   schedule of the real updates.
 
+On box actions the value side is soft actor-critic (`runner.neural.soft_actor_critic`) instead, the arrangement
+of MBPO (Janner et al. 2019): `q` is a `SoftActorCriticCore` and the state's `q` its `SACState`, so acting,
+storing and the real updates are soft actor-critic's own calls and `planning_steps: 0` is that kind bit for bit.
+The model takes the action in the environment's units (the buffer's squashed action moved back into the box), so
+its held-out errors are measured on the environment's actions; rollouts draw each action from the current policy
+(a reparameterised draw, squashed); each planning update is one `SoftActorCriticCore.gradient_step` (critics,
+policy, temperature, and the targets by Polyak averaging) on `batch_size` fresh simulated transitions, the squashed
+actions stored as the real ones are and rows after a simulated end weighted 0 in every loss. With `polyak_rate` 0
+the targets' periodic copies count real updates only, as the discrete Q-network's target does.
+
 Why extra updates on fresh simulated minibatches rather than a model buffer mixed into the real minibatches: the
 real updates stay exactly the Q-network's, so the planning budget is a separate, countable number of gradient
 steps on the same unit as `replays` (one planning update is one minibatch gradient step, as one real update is),
@@ -55,6 +65,7 @@ from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
 from runner.neural.model import ActionEncoding, Prediction, Scaler
 from runner.neural.model_error import ModelHonesty, held_out_honesty
 from runner.neural.q_network import QNetworkCore, QState, ReplayBuffer
+from runner.neural.soft_actor_critic import SACState, SoftActorCriticCore
 
 __all__ = ["HONESTY_KEY", "DynaState", "NeuralDynaCore"]
 
@@ -63,10 +74,11 @@ HONESTY_KEY = 0
 
 
 class DynaState(NamedTuple):
-    """The Q-network's state, the fitted model (the ensemble's or the GP's params) and termination predictor,
-    their optimiser states, the counts of model rounds and planning updates, and the key of the model's draws."""
+    """The value learner's state (a Q-network's, or soft actor-critic's on box actions), the fitted model (the
+    ensemble's or the GP's params) and termination predictor, their optimiser states, the counts of model rounds
+    and planning updates, and the key of the model's draws."""
 
-    q: QState
+    q: QState | SACState
     model: EnsembleParams | GPParams
     model_opt: Any
     done_net: MLPParams
@@ -77,18 +89,20 @@ class DynaState(NamedTuple):
 
     @property
     def online(self) -> MLPParams:
-        """The online Q-network (what greedy evaluation reads)."""
+        """The online Q-network, or the policy network on box actions (what greedy evaluation reads)."""
         return self.q.online
 
 
 _Q_FIELDS = tuple(f.name for f in fields(QNetworkCore))
+_SAC_FIELDS = tuple(f.name for f in fields(SoftActorCriticCore))
 
 
 @dataclass(frozen=True)
 class NeuralDynaCore:
-    """The static hyperparameters of neural Dyna: a Q-network's and the model's and planning's (module docstring)."""
+    """The static hyperparameters of neural Dyna: the value learner's (a Q-network, or soft actor-critic on box
+    actions) and the model's and planning's (module docstring)."""
 
-    q: QNetworkCore
+    q: QNetworkCore | SoftActorCriticCore
     planning_steps: int = 1
     rollout_length: int = 1
     ensemble_size: int = 5
@@ -103,17 +117,38 @@ class NeuralDynaCore:
     gp_points: int = 200
 
     @classmethod
-    def from_params(cls, params: dict[str, Any], obs_size: int, n_actions: int) -> NeuralDynaCore:
-        """The core of a `neural_dyna` agent's checked parameters (`runner.agents.neural_dyna`)."""
-        q_params = {k: v for k, v in params.items() if k in _Q_FIELDS}
-        rest = {k: v for k, v in params.items() if k not in _Q_FIELDS}
-        return cls(q=QNetworkCore(obs_size=int(obs_size), n_actions=int(n_actions), **q_params), **rest)
+    def from_params(
+        cls,
+        params: dict[str, Any],
+        obs_size: int,
+        n_actions: int,
+        bounds: tuple[tuple[float, ...], tuple[float, ...]] | None = None,
+    ) -> NeuralDynaCore:
+        """The core of a `neural_dyna` agent's checked parameters (`runner.agents.neural_dyna`): a Q-network on
+        `n_actions` discrete actions, or with `bounds` (low, high) soft actor-critic on a box of `n_actions`
+        dimensions. Each learner takes the parameters it has; the agent has refused values the other one's only."""
+        rest = {k: v for k, v in params.items() if k not in _Q_FIELDS and k not in _SAC_FIELDS}
+        if bounds is None:
+            q_params = {k: v for k, v in params.items() if k in _Q_FIELDS}
+            return cls(q=QNetworkCore(obs_size=int(obs_size), n_actions=int(n_actions), **q_params), **rest)
+        sac_params = {k: v for k, v in params.items() if k in _SAC_FIELDS}
+        return cls(q=SoftActorCriticCore.from_params(sac_params, obs_size, n_actions, bounds), **rest)
+
+    @property
+    def box(self) -> bool:
+        """Whether the actions are a box (the learner is soft actor-critic)."""
+        return isinstance(self.q, SoftActorCriticCore)
+
+    @property
+    def encoding(self) -> ActionEncoding:
+        """How the model takes actions: one-hot discrete actions, or the box's values in the environment's units."""
+        return ActionEncoding(box_dim=self.q.action_size) if self.box else ActionEncoding(n_actions=self.q.n_actions)
 
     @property
     def ensemble(self) -> EnsembleModel:
         """The model's hyperparameters as the PETS ensemble of `runner.neural.ensemble` (for predict and sample)."""
         return EnsembleModel(
-            ActionEncoding(n_actions=self.q.n_actions),
+            self.encoding,
             members=self.ensemble_size,
             hidden=(self.model_units,) * self.model_layers,
             activation=self.model_activation,
@@ -125,9 +160,7 @@ class NeuralDynaCore:
     def gp(self) -> GaussianProcessModel:
         """The model's hyperparameters as the Gaussian process of `runner.neural.gp` (`model: gp`): its
         marginal likelihood's Adam steps are `model_steps` per round, at the GP's own step size."""
-        return GaussianProcessModel(
-            ActionEncoding(n_actions=self.q.n_actions), max_points=self.gp_points, iterations=self.model_steps
-        )
+        return GaussianProcessModel(self.encoding, max_points=self.gp_points, iterations=self.model_steps)
 
     @property
     def dynamics(self) -> EnsembleModel | GaussianProcessModel:
@@ -140,11 +173,11 @@ class NeuralDynaCore:
         return self.planning_steps > 0
 
     def init(self, key: jax.Array) -> DynaState:
-        """A fresh agent: the Q-network's state from `key` exactly as `QNetworkCore.init` makes it; the model's
-        from a key folded off `key`, so the Q-network's draws are the same as without a model."""
+        """A fresh agent: the learner's state from `key` exactly as its own `init` makes it; the model's from a key
+        folded off `key`, so the learner's draws are the same as without a model."""
         q = self.q.init(key)
         member_key, done_key, key = jax.random.split(jax.random.fold_in(key, 1), 3)
-        d, width = self.q.obs_size, self.q.obs_size + self.q.n_actions
+        d, width = self.q.obs_size, self.q.obs_size + self.encoding.width
         done_net = init_mlp(done_key, (d, self.model_units, 1), jnp.float32)
         zero = jnp.zeros((), jnp.int32)
         if self.model == "gp":
@@ -177,13 +210,13 @@ class NeuralDynaCore:
 
     @functools.partial(jax.jit, static_argnums=0)
     def act(self, state: DynaState, obs: jax.Array) -> tuple[DynaState, jax.Array]:
-        """The Q-network's epsilon-greedy behaviour action."""
+        """The learner's behaviour action (the Q-network's epsilon-greedy one, or soft actor-critic's draw)."""
         q, action = self.q.act(state.q, obs)
         return state._replace(q=q), action
 
     @functools.partial(jax.jit, static_argnums=0)
     def greedy(self, online: MLPParams, obs: jax.Array) -> jax.Array:
-        """The Q-network's greedy actions."""
+        """The learner's greedy actions."""
         return self.q.greedy(online, obs)
 
     @functools.partial(jax.jit, static_argnums=0)
@@ -196,7 +229,7 @@ class NeuralDynaCore:
         next_obs: jax.Array,
         terminated: jax.Array,
     ) -> DynaState:
-        """Store one real transition and make the Q-network's due updates; then the model's training round and
+        """Store one real transition and make the learner's due updates; then the model's training round and
         the planning updates when due."""
         state = state._replace(q=self.q.observe(state.q, obs, action, reward, next_obs, terminated))
         if not self.learns_model:
@@ -309,6 +342,10 @@ class NeuralDynaCore:
         return GPParams(*scalers, hyper, post)
 
     def _inputs(self, obs: jax.Array, actions: jax.Array) -> jax.Array:
+        """The model's unstandardised inputs of buffer rows: the observation beside the one-hot action, or the
+        stored squashed action moved back into the box."""
+        if self.box:
+            return jnp.concatenate([obs, self.q.to_box(actions)], axis=-1)
         return jnp.concatenate([obs, jax.nn.one_hot(actions, self.q.n_actions, dtype=jnp.float32)], axis=-1)
 
     def _targets(self, buf: ReplayBuffer) -> jax.Array:
@@ -337,6 +374,21 @@ class NeuralDynaCore:
         x = ((next_obs - scaler.mean[:d]) / scaler.scale[:d]).astype(jnp.float32)
         return jax.nn.sigmoid(apply_mlp(state.done_net, x, self.model_activation)[..., 0])
 
+    def _rollout_actions(
+        self, q: QState | SACState, obs: jax.Array, explore_key: jax.Array, action_key: jax.Array
+    ) -> tuple[jax.Array, jax.Array]:
+        """(the actions the simulated rows store, the same actions as the model takes them) for a batch of
+        observations: epsilon-greedy under the online Q-network, or the current policy's squashed draw moved into
+        the box."""
+        runs = obs.shape[0]
+        if self.box:
+            squashed, _ = self.q.sample(q.online, obs, action_key)
+            return squashed, self.q.to_box(squashed)
+        greedy = self.q.greedy(q.online, obs)
+        random_actions = jax.random.randint(action_key, (runs,), 0, self.q.n_actions, jnp.int32)
+        actions = jnp.where(jax.random.uniform(explore_key, (runs,)) < self.q.epsilon(q.steps), random_actions, greedy)
+        return actions, actions
+
     def simulate(self, state: DynaState, key: jax.Array) -> tuple[jax.Array, ...]:
         """`batch_size` simulated transitions (obs, actions, rewards, next_obs, terminated, weight) from
         rollouts of the model from replayed real states (module docstring); `weight` 0 after a simulated end."""
@@ -344,19 +396,16 @@ class NeuralDynaCore:
         runs = -(-self.q.batch_size // h)
         start_key, key = jax.random.split(key)
         starts = q.buffer.obs[jax.random.randint(start_key, (runs,), 0, jnp.maximum(q.buffer.size, 1))]
-        epsilon = self.q.epsilon(q.steps)
 
         def step(carry: tuple, step_key: jax.Array) -> tuple:
             obs, alive = carry
             explore_key, action_key, member_key, draw_key, end_key = jax.random.split(step_key, 5)
-            greedy = self.q.greedy(q.online, obs)
-            random_actions = jax.random.randint(action_key, (runs,), 0, self.q.n_actions, jnp.int32)
-            actions = jnp.where(jax.random.uniform(explore_key, (runs,)) < epsilon, random_actions, greedy)
+            actions, model_actions = self._rollout_actions(q, obs, explore_key, action_key)
             if self.model == "gp":
-                next_obs, rewards = self.gp.sample(state.model, draw_key, obs, actions)
+                next_obs, rewards = self.gp.sample(state.model, draw_key, obs, model_actions)
             else:
                 members = jax.random.randint(member_key, (runs,), 0, self.ensemble_size)
-                next_obs, rewards = self.ensemble.sample_members(state.model, draw_key, obs, actions, members)
+                next_obs, rewards = self.ensemble.sample_members(state.model, draw_key, obs, model_actions, members)
             next_obs, rewards = next_obs.astype(jnp.float32), rewards.astype(jnp.float32)
             ended = jax.random.uniform(end_key, (runs,)) < self.done_probability(state, next_obs)
             out = (obs, actions, rewards, next_obs, ended, alive.astype(jnp.float32))
@@ -385,9 +434,15 @@ class NeuralDynaCore:
 
     def _planning_update(self, state: DynaState) -> DynaState:
         """One Q-network minibatch step on fresh simulated transitions, with the real updates' optimiser state;
-        the target network keeps the schedule of the real updates (planning moves only the online network)."""
+        the target network keeps the schedule of the real updates (planning moves only the online network). On
+        box actions, one soft actor-critic update on them (module docstring)."""
         key, draw = jax.random.split(state.key)
         q = state.q
+        if self.box:
+            batch_key, critic_key, policy_key = jax.random.split(draw, 3)
+            *batch, weight = self.simulate(state, batch_key)
+            q = self.q.gradient_step(q, tuple(batch), critic_key, policy_key, weight=weight)
+            return state._replace(q=q, planned=state.planned + 1, key=key)
         grads = jax.grad(self._planning_loss)(q.online, q.target, self.simulate(state, draw))
         changes, opt = self.q.optimizer.update(grads, q.opt, q.online)
         q = q._replace(online=optax.apply_updates(q.online, changes), opt=opt)
