@@ -72,7 +72,7 @@ def test_registered_for_both_kinds_of_actions(capsys):
     assert {p.name for p in agent_class("soft_actor_critic").schema} < {p.name for p in cls.schema}
     assert main(["list", "agents"]) == 0
     out = capsys.readouterr().out
-    entry = out[out.index("\n  neural_dyna: ") :].split("\n\n")[1]
+    entry = out[out.index("\n  neural_dyna: ") :].split("\n\n")[0]
     assert "takes: observations: box; actions: discrete or box;" in entry
     assert "temperature" in entry and "(box actions only)" in entry and "(discrete actions only)" in entry
 
@@ -208,8 +208,11 @@ def test_weighted_soft_actor_critic_losses_ignore_rows_of_weight_zero(trained):
         b[weight == 0] = 50.0
     key = jax.random.key(3)
     with jax.enable_x64(True):
-        critic = jax.jit(sac.critic_loss)
-        policy = jax.jit(lambda obs, w: sac.policy_loss(q.online, q.critics, q.log_alpha, obs, key, w)[0])
+        critic = sac.critic_loss
+
+        def policy(obs, w):
+            return sac.policy_loss(q.online, q.critics, q.log_alpha, obs, key, w)[0]
+
         weighted = float(critic(q.critics, q, tuple(batch), key, weight))
         assert weighted == float(critic(q.critics, q, tuple(changed), key, weight))
         rows = [float(critic(q.critics, q, tuple(batch), key, np.eye(8, dtype=np.float32)[i])) for i in range(8)]
