@@ -64,7 +64,8 @@ from runner.neural.gp import GaussianProcessModel, GPHyper, GPParams, GPPosterio
 from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
 from runner.neural.model import ActionEncoding, Prediction, Scaler
 from runner.neural.model_error import ModelHonesty, held_out_honesty
-from runner.neural.q_network import QNetworkCore, QState, ReplayBuffer
+from runner.neural.q_network import QNetworkCore, QState
+from runner.neural.replay import ReplayBuffer
 from runner.neural.soft_actor_critic import SACState, SoftActorCriticCore
 
 __all__ = ["HONESTY_KEY", "DynaState", "NeuralDynaCore"]

@@ -55,23 +55,12 @@ from runner.neural.gp import GaussianProcessModel, GPHyper, GPParams, GPPosterio
 from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
 from runner.neural.model import ActionEncoding, Scaler, Transitions
 from runner.neural.q_network import QNetworkCore, QState
+from runner.neural.replay import ReplayBuffer, empty_buffer, store
 
-__all__ = ["MPCBuffer", "MPCCore", "MPCState", "PlanInputs", "TerminationNet"]
+__all__ = ["MPCCore", "MPCState", "PlanInputs", "TerminationNet"]
 
 _UNIFORM_MIX = 0.5
 """Weight of the uniform distribution in a warm-started categorical plan (see the module's docstring)."""
-
-
-class MPCBuffer(NamedTuple):
-    """Real transitions in a ring buffer: `size` stored (at most the capacity), `slot` written next."""
-
-    obs: jax.Array
-    actions: jax.Array
-    rewards: jax.Array
-    next_obs: jax.Array
-    terminated: jax.Array
-    size: jax.Array
-    slot: jax.Array
 
 
 class TerminationNet(NamedTuple):
@@ -99,7 +88,7 @@ class MPCState(NamedTuple):
     model: Any
     termination: TerminationNet
     value: QState | None
-    buffer: MPCBuffer
+    buffer: ReplayBuffer
     plan: jax.Array
     steps: jax.Array
     plans: jax.Array
@@ -249,17 +238,9 @@ class MPCCore:
     def init(self, key: jax.Array) -> MPCState:
         """A fresh controller: an empty buffer, placeholder model, fresh termination and value networks."""
         model_key, done_key, value_key, greedy_key, key = jax.random.split(key, 5)
-        n, d = self.buffer_size, self.obs_size
-        actions = jnp.zeros((n,), jnp.int32) if self.discrete else jnp.zeros((n, len(self.action_low)), jnp.float32)
-        buffer = MPCBuffer(
-            jnp.zeros((n, d), jnp.float32),
-            actions,
-            jnp.zeros((n,), jnp.float32),
-            jnp.zeros((n, d), jnp.float32),
-            jnp.zeros((n,), jnp.bool_),
-            jnp.zeros((), jnp.int32),
-            jnp.zeros((), jnp.int32),
-        )
+        d = self.obs_size
+        action_shape = () if self.discrete else (len(self.action_low),)
+        buffer = empty_buffer(self.buffer_size, d, action_shape, self._action_dtype)
         sizes = (d, *((self.hidden_units,) * self.hidden_layers), 1)
         termination = TerminationNet(jnp.zeros(d, jnp.float32), jnp.ones(d, jnp.float32), init_mlp(done_key, sizes))
         value = self.value_core.init(value_key) if self.value_bootstrap else None
@@ -412,16 +393,7 @@ class MPCCore:
         terminated: jax.Array,
     ) -> MPCState:
         """Store one real transition (and train the value network on it, when bootstrapping)."""
-        buf, i = state.buffer, state.buffer.slot
-        buf = MPCBuffer(
-            buf.obs.at[i].set(obs.astype(jnp.float32)),
-            buf.actions.at[i].set(action.astype(buf.actions.dtype)),
-            buf.rewards.at[i].set(reward.astype(jnp.float32)),
-            buf.next_obs.at[i].set(next_obs.astype(jnp.float32)),
-            buf.terminated.at[i].set(terminated),
-            jnp.minimum(buf.size + 1, self.buffer_size),
-            (i + 1) % self.buffer_size,
-        )
+        buf = store(state.buffer, obs, action, reward, next_obs, terminated)
         value = state.value
         if value is not None:
             value = self.value_core.observe(value, obs, jnp.int32(0), reward, next_obs, terminated)
@@ -455,7 +427,7 @@ class MPCCore:
         )
 
     @functools.partial(jax.jit, static_argnums=0)
-    def _fit_termination(self, termination: TerminationNet, buffer: MPCBuffer, key: jax.Array) -> TerminationNet:
+    def _fit_termination(self, termination: TerminationNet, buffer: ReplayBuffer, key: jax.Array) -> TerminationNet:
         """Logistic regression of `terminated` on the next observation: Adam on the mean binary cross-entropy over
         minibatches drawn uniformly from the buffer, `model_epochs` passes' worth, from the last fit's weights."""
         n = buffer.size

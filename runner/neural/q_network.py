@@ -29,20 +29,9 @@ import jax.numpy as jnp
 import optax
 
 from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
+from runner.neural.replay import ReplayBuffer, empty_buffer, store
 
-__all__ = ["QNetworkCore", "QState", "ReplayBuffer"]
-
-
-class ReplayBuffer(NamedTuple):
-    """A ring buffer of real transitions; `size` stored so far (at most the capacity), `slot` written next."""
-
-    obs: jax.Array
-    actions: jax.Array
-    rewards: jax.Array
-    next_obs: jax.Array
-    terminated: jax.Array
-    size: jax.Array
-    slot: jax.Array
+__all__ = ["QNetworkCore", "QState"]
 
 
 class QState(NamedTuple):
@@ -99,16 +88,7 @@ class QNetworkCore:
         """A fresh agent: networks drawn from `key`, an empty buffer, target equal to online."""
         net_key, key = jax.random.split(key)
         online = init_mlp(net_key, self.sizes, jnp.float32)
-        n, d = self.buffer_size, self.obs_size
-        buffer = ReplayBuffer(
-            obs=jnp.zeros((n, d), jnp.float32),
-            actions=jnp.zeros((n,), jnp.int32),
-            rewards=jnp.zeros((n,), jnp.float32),
-            next_obs=jnp.zeros((n, d), jnp.float32),
-            terminated=jnp.zeros((n,), jnp.bool_),
-            size=jnp.zeros((), jnp.int32),
-            slot=jnp.zeros((), jnp.int32),
-        )
+        buffer = empty_buffer(self.buffer_size, self.obs_size, (), jnp.int32)
         zero = jnp.zeros((), jnp.int32)
         return QState(online, online, self.optimizer.init(online), buffer, zero, zero, key)
 
@@ -146,17 +126,7 @@ class QNetworkCore:
         terminated: jax.Array,
     ) -> QState:
         """Store one real transition, then learn when an update is due."""
-        buf = state.buffer
-        i = buf.slot
-        buf = ReplayBuffer(
-            obs=buf.obs.at[i].set(obs.astype(jnp.float32)),
-            actions=buf.actions.at[i].set(action.astype(jnp.int32)),
-            rewards=buf.rewards.at[i].set(reward.astype(jnp.float32)),
-            next_obs=buf.next_obs.at[i].set(next_obs.astype(jnp.float32)),
-            terminated=buf.terminated.at[i].set(terminated),
-            size=jnp.minimum(buf.size + 1, self.buffer_size),
-            slot=(i + 1) % self.buffer_size,
-        )
+        buf = store(state.buffer, obs, action.astype(jnp.int32), reward, next_obs, terminated)
         steps = state.steps + 1
         state = state._replace(buffer=buf, steps=steps)
         due = (steps >= self.learning_starts) & (steps % self.update_every == 0)

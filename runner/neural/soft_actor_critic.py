@@ -49,7 +49,7 @@ import jax.numpy as jnp
 import optax
 
 from runner.neural.mlp import MLPParams, apply_mlp, init_mlp
-from runner.neural.q_network import ReplayBuffer
+from runner.neural.replay import ReplayBuffer, empty_buffer, store
 
 __all__ = ["LOG_STD_RANGE", "SACState", "SoftActorCriticCore", "squashed_log_prob"]
 
@@ -134,16 +134,7 @@ class SoftActorCriticCore:
         critic_sizes = (self.obs_size + self.action_size, *self._hidden(), 1)
         critics = jax.vmap(lambda k: init_mlp(k, critic_sizes, jnp.float32))(jax.random.split(critic_key, 2))
         log_alpha = jnp.asarray(math.log(self.temperature), jnp.float32)
-        n, d, k = self.buffer_size, self.obs_size, self.action_size
-        buffer = ReplayBuffer(
-            obs=jnp.zeros((n, d), jnp.float32),
-            actions=jnp.zeros((n, k), jnp.float32),
-            rewards=jnp.zeros((n,), jnp.float32),
-            next_obs=jnp.zeros((n, d), jnp.float32),
-            terminated=jnp.zeros((n,), jnp.bool_),
-            size=jnp.zeros((), jnp.int32),
-            slot=jnp.zeros((), jnp.int32),
-        )
+        buffer = empty_buffer(self.buffer_size, self.obs_size, (self.action_size,), jnp.float32)
         zero = jnp.zeros((), jnp.int32)
         opt = self.optimizer
         return SACState(
@@ -221,17 +212,7 @@ class SoftActorCriticCore:
         terminated: jax.Array,
     ) -> SACState:
         """Store one real transition, then learn when an update is due."""
-        buf = state.buffer
-        i = buf.slot
-        buf = ReplayBuffer(
-            obs=buf.obs.at[i].set(obs.astype(jnp.float32)),
-            actions=buf.actions.at[i].set(self.from_box(action)),
-            rewards=buf.rewards.at[i].set(reward.astype(jnp.float32)),
-            next_obs=buf.next_obs.at[i].set(next_obs.astype(jnp.float32)),
-            terminated=buf.terminated.at[i].set(terminated),
-            size=jnp.minimum(buf.size + 1, self.buffer_size),
-            slot=(i + 1) % self.buffer_size,
-        )
+        buf = store(state.buffer, obs, self.from_box(action), reward, next_obs, terminated)
         steps = state.steps + 1
         state = state._replace(buffer=buf, steps=steps)
         due = (steps >= self.learning_starts) & (steps % self.update_every == 0)
