@@ -127,6 +127,23 @@ def test_targets_follow_the_critics_by_the_polyak_rate():
         np.testing.assert_allclose(np.asarray(t1), 0.25 * np.asarray(c1) + 0.75 * np.asarray(t0), rtol=1e-5)
 
 
+def test_polyak_rate_zero_copies_the_critics_every_target_period_updates():
+    """Hard target updates (not a value of the `soft_actor_critic` kind; `neural_dyna` on box actions offers it):
+    the targets stay the initial critics for two updates, are the critics after the third, and stay so after the
+    fourth, which moves the critics."""
+    core = _core(learning_starts=1, polyak_rate=0.0, target_period=3, temperature=0.2)
+    initial = core.init(jax.random.key(3)).critics
+    states = {steps: _feed(core, steps) for steps in (2, 3, 4)}
+
+    def same(a, b):
+        pairs = zip(jax.tree_util.tree_leaves(a), jax.tree_util.tree_leaves(b), strict=True)
+        return all(np.array_equal(x, y) for x, y in pairs)
+
+    assert same(states[2].targets, initial) and not same(states[2].critics, initial)
+    assert same(states[3].targets, states[3].critics)
+    assert same(states[4].targets, states[3].critics) and not same(states[4].critics, states[3].critics)
+
+
 def test_the_temperature_moves_towards_the_target_entropy_or_stays_fixed():
     """J(alpha) = E[-alpha (log pi + target entropy)] (Haarnoja et al. 2018b, eq. 18): alpha grows when the
     policy's entropy is below the target (log pi above 1 here) and shrinks above it."""
