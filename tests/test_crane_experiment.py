@@ -113,14 +113,29 @@ PENDULUM_CONFIG = CONFIG.parent / "pendulum.yaml"
 
 
 def test_pendulum_config_compares_the_model_free_and_the_planning_kinds_on_box_actions():
-    """Soft actor-critic against model-predictive control on both learned models, on Pendulum-v1's box actions."""
+    """Soft actor-critic against Dyna with the ensemble (neural_dyna on box actions, soft actor-critic's
+    parameters given) and model-predictive control on both learned models, on Pendulum-v1 and the continuous
+    crane's box actions (MPC learns the crane's episode ends there)."""
     pytest.importorskip("jax")
     experiment = load_experiment(PENDULUM_CONFIG)
-    (env,) = experiment.environments
-    assert env.spec["id"] == "Pendulum-v1" and env.tags.action == "box" and env.threshold == -200
+    pendulum, crane = experiment.environments
+    assert pendulum.spec["id"] == "Pendulum-v1" and pendulum.tags.action == "box" and pendulum.threshold == -200
+    assert crane.spec["id"] == "stepmeter/OverheadCraneContinuous-v0" and crane.tags.action == "box"
+    assert crane.threshold == -150 and crane.spec["step_limit"] == 300
+    assert {k: crane.spec["options"][k] for k in ("rail_length", "bay_position", "crash_penalty")} == {
+        "rail_length": 6.0,
+        "bay_position": 4.0,
+        "crash_penalty": 300.0,
+    }
     assert [(a.kind, a.params.get("model")) for a in experiment.agents] == [
         ("soft_actor_critic", None),
+        ("neural_dyna", "ensemble"),
         ("mpc", "ensemble"),
         ("mpc", "gp"),
     ]
+    sac, dyna = experiment.agents[:2]
+    assert all(dyna.params[name] == value for name, value in sac.params.items())
+    assert dyna.params["planning_steps"] == 10
+    assert all(a.params_on(crane.label)["termination"] == "learned" for a in experiment.agents[2:])
+    assert all(a.params_on(pendulum.label)["termination"] == "none" for a in experiment.agents[2:])
     assert experiment.baseline == "soft actor-critic"
