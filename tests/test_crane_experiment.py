@@ -119,7 +119,7 @@ def test_classic_control_config_gives_acrobot_its_own_features():
         assert variant.params_on("MountainCar-v0")["features"]["tiles"] == 8
         assert variant.params_on("Acrobot-v1")["features"]["hash_size"] == 1024
     budgets = [a.params["planning_steps"] for a in experiment.agents if a.kind in ("linear_dyna", "neural_dyna")]
-    assert budgets == [0, 5, 4]
+    assert budgets == [0, 5, 2]
 
 
 PENDULUM_CONFIG = CONFIG.parent / "pendulum.yaml"
