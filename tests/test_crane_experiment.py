@@ -42,18 +42,19 @@ def test_crane_config_declares_bins_and_a_threshold():
     assert experiment.baseline == "true online Sarsa(lambda)"
 
 
+@pytest.mark.slow
 def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
     """Every family's kinds, the neural ones included, through `stepmeter run` and its report; `stepmeter rerun`
     then reproduces every stored trial's rows bit for bit."""
     pytest.importorskip("jax")
-    text = re.sub(r"(?m)^real_steps: \d+$", "real_steps: 2000", CONFIG.read_text().replace("seeds: 5", "seeds: 1"))
-    text = text.replace("every: 2000 ", "every: 1000 ").replace("episodes: 3 ", "episodes: 1 ")
-    assert "real_steps: 2000" in text and "every: 1000 " in text and "seeds: 1" in text
+    text = re.sub(r"(?m)^real_steps: \d+$", "real_steps: 1200", CONFIG.read_text().replace("seeds: 5", "seeds: 1"))
+    text = text.replace("every: 2000 ", "every: 600 ").replace("episodes: 3 ", "episodes: 1 ")
+    assert "real_steps: 1200" in text and "every: 600 " in text and "seeds: 1" in text
     path = tmp_path / "crane.yaml"
     path.write_text(text)
     assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1"]) == 0
     frame = runner.load_results(tmp_path / "results" / "crane-loading-bay")
-    assert len(frame) == 10 * 3  # ten agent variants x evaluation points at 0, 1000 and 2000 real steps
+    assert len(frame) == 10 * 3  # ten agent variants x evaluation points at 0, 600 and 1200 real steps
     assert np.isfinite(frame["eval_return"]).all()
     assert (tmp_path / "results" / "crane-loading-bay" / "report" / "report.html").exists()
     capsys.readouterr()
