@@ -68,11 +68,11 @@ def test_mpc_reaches_minus_200_on_pendulum_in_fewer_real_steps_than_soft_actor_c
     target in at least 2 of 3 seeds and the ratio's point estimate is above 1. With 3 seeds the interval is wide; it
     is printed, and when its lower bound is not above 1 the test still passes but says that no difference is shown.
 
-    In our run (2026-12-03, 1,070 s on a 2-core machine at a load average of 13-14; on quiet cores an estimated
-    240 s: the 213 s MPC's trials took as their own test, plus about 27 CPU s of soft actor-critic), MPC reached -200
-    at 2,500, 1,000 and 1,500 real steps (seeds 0, 1, 2: the same rows as its earlier test) and soft actor-critic at
-    6,000 in all three: ratio 4.0, 95% interval 2.4-6, so on these data MPC needed fewer real steps, the direction
-    reported."""
+    In our runs (2026-12-03, 1,070 s on a 2-core machine at a load average of 13-14, 412 s at 5-6; on quiet cores an
+    estimated 240 s: the 213 s MPC's trials took as their own test, plus about 27 CPU s of soft actor-critic), MPC
+    reached -200 at 2,500, 1,000 and 1,500 real steps (seeds 0, 1, 2: the same rows as its earlier test) and soft
+    actor-critic at 6,000 in all three: ratio 4.0, 95% interval 2.4-6, so on these data MPC needed fewer real steps,
+    the direction reported."""
     records, curves = [], {}
     for seed in SEEDS:
         for kind, params, budget in (
