@@ -17,6 +17,7 @@ EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 
 
 def test_crane_config_declares_bins_and_a_threshold():
+    pytest.importorskip("jax")
     experiment = load_experiment(CONFIG)
     (env,) = experiment.environments
     assert env.spec["id"] == "stepmeter/OverheadCrane-v0"
@@ -26,30 +27,41 @@ def test_crane_config_declares_bins_and_a_threshold():
     assert {a.kind for a in experiment.agents} == {
         "q_learning",
         "dyna_q",
-        "certainty_equivalence",
         "linear_sarsa",
-        "linear_dyna",
-        "linear_gaussian",
-        "linear_replay_q_learning",
         "linear_true_online_sarsa",
+        "linear_dyna",
+        "linear_replay_q_learning",
+        "q_network",
+        "neural_dyna",
+        "mpc",
     }
     budgets = {a.kind: [] for a in experiment.agents}
     for a in experiment.agents:
         budgets[a.kind].append(a.params.get("planning_steps"))
-    assert budgets["linear_dyna"] == budgets["linear_gaussian"] == [0, 5, 20]
+    assert budgets["linear_dyna"] == [0, 5] and budgets["neural_dyna"] == [4]
+    assert experiment.baseline == "true online Sarsa(lambda)"
 
 
+@pytest.mark.slow
 def test_a_shortened_crane_experiment_runs_and_reports(tmp_path, capsys):
-    text = re.sub(r"(?m)^real_steps: \d+$", "real_steps: 2000", CONFIG.read_text().replace("seeds: 6", "seeds: 1"))
-    text = text.replace("every: 5000 ", "every: 1000 ").replace("episodes: 5 ", "episodes: 1 ")
-    assert "real_steps: 2000" in text and "every: 1000 " in text
+    """Every family's kinds, the neural ones included, through `stepmeter run` and its report; `stepmeter rerun`
+    then reproduces every stored trial's rows bit for bit."""
+    pytest.importorskip("jax")
+    text = re.sub(r"(?m)^real_steps: \d+$", "real_steps: 1200", CONFIG.read_text().replace("seeds: 5", "seeds: 1"))
+    text = text.replace("every: 2000 ", "every: 600 ").replace("episodes: 3 ", "episodes: 1 ")
+    assert "real_steps: 1200" in text and "every: 600 " in text and "seeds: 1" in text
     path = tmp_path / "crane.yaml"
     path.write_text(text)
     assert main(["run", str(path), "--results", str(tmp_path / "results"), "--jobs", "1"]) == 0
     frame = runner.load_results(tmp_path / "results" / "crane-loading-bay")
-    assert len(frame) == 14 * 3  # fourteen agent variants x evaluation points at 0, 1000 and 2000 real steps
+    assert len(frame) == 10 * 3  # ten agent variants x evaluation points at 0, 600 and 1200 real steps
     assert np.isfinite(frame["eval_return"]).all()
     assert (tmp_path / "results" / "crane-loading-bay" / "report" / "report.html").exists()
+    capsys.readouterr()
+    assert main(["rerun", str(tmp_path / "results" / "crane-loading-bay"), "--all"]) == 0
+    out = capsys.readouterr().out
+    assert "10 of 10 re-run trials reproduced their stored rows" in out, out
+    assert out.count("same rows bit for bit") == 10
 
 
 CLASSIC = ("CartPole-v1", "MountainCar-v0", "Acrobot-v1", "Pendulum-v1", "MountainCarContinuous-v0")
@@ -85,6 +97,7 @@ def test_classic_control_ids_run_in_experiments(tmp_path, monkeypatch):
 
 
 def test_check_says_what_the_crane_gives_and_how_its_trials_run(capsys):
+    pytest.importorskip("jax")
     assert main(["check", str(CONFIG)]) == 0
     out = capsys.readouterr().out
     assert "gives discrete observations (864 states), discrete actions (3); compiled kinds run whole trials " in out
@@ -98,6 +111,7 @@ CLASSIC_CONFIG = CONFIG.parent / "classic_control.yaml"
 def test_classic_control_config_gives_acrobot_its_own_features():
     """Example 10.1's tiles on Mountain Car, hashed tiles on the six-dimensional Acrobot, for every linear kind;
     both registered thresholds (gymnasium's registry: MountainCar-v0 -110, Acrobot-v1 -100)."""
+    pytest.importorskip("jax")
     experiment = load_experiment(CLASSIC_CONFIG)
     assert [env.threshold for env in experiment.environments] == [-110, -100]
     for variant in experiment.agents:
@@ -105,8 +119,8 @@ def test_classic_control_config_gives_acrobot_its_own_features():
             continue
         assert variant.params_on("MountainCar-v0")["features"]["tiles"] == 8
         assert variant.params_on("Acrobot-v1")["features"]["hash_size"] == 1024
-    budgets = [a.params["planning_steps"] for a in experiment.agents if a.kind in ("linear_dyna", "linear_gaussian")]
-    assert budgets == [0, 5, 20, 0, 5, 20]
+    budgets = [a.params["planning_steps"] for a in experiment.agents if a.kind in ("linear_dyna", "neural_dyna")]
+    assert budgets == [0, 5, 2]
 
 
 PENDULUM_CONFIG = CONFIG.parent / "pendulum.yaml"

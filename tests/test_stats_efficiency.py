@@ -141,9 +141,10 @@ def test_sentence_forms():
             _ratio_row(1.2, 0.9, 1.6),
             _ratio_row(np.nan, np.nan, np.nan, note="Q-learning got 3 of 30 paired trials to the threshold"),
             _ratio_row(2.0, np.nan, np.nan, note="interval not computed: only 70% of resamples"),
+            _ratio_row(1.0, np.nan, np.nan, note="interval not computed: only 88% of resamples"),
         ]
     )
-    fewer, more, same, missing, no_interval = efficiency_sentences(table, "a return of 0.9")
+    fewer, more, same, missing, no_interval, equal = efficiency_sentences(table, "a return of 0.9")
     assert fewer == (
         "On maze, Dyna-Q (n=50) needed 6.1x fewer real steps than Q-learning to reach a return of 0.9 "
         "(95% paired percentile interval 4.8-7.9; 30/30 and 27/30 paired seeds reached it)."
@@ -153,6 +154,8 @@ def test_sentence_forms():
     assert "do not show" in same and "includes 1" in same
     assert "no step ratio" in missing and "3 of 30" in missing
     assert "2x fewer" in no_interval and "without an interval (interval not computed" in no_interval
+    # equal medians read as equal, not as "1x fewer"
+    assert "Dyna-Q (n=50) needed as many real steps as Q-learning to reach a return of 0.9, but without" in equal
 
 
 def test_sentence_bounds_near_one_stay_distinguishable():

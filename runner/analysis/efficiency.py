@@ -256,6 +256,15 @@ def _number(value: float) -> str:
     return text.rstrip("0").rstrip(".") if "." in text else text
 
 
+def _how_many(ratio: float, baseline: str) -> str:
+    """How the agent's median real steps compare with the baseline's: "1.5x fewer real steps than B", or "as many
+    real steps as B" when the medians are equal (a ratio of 1 is neither fewer nor more)."""
+    if ratio == 1.0:
+        return f"as many real steps as {baseline}"
+    direction, factor = ("fewer", ratio) if ratio > 1.0 else ("more", 1.0 / ratio)
+    return f"{_number(factor)}x {direction} real steps than {baseline}"
+
+
 def _sentence(row: pd.Series, threshold_label: str | Mapping[str, str]) -> str:
     """One plain sentence for one row of `efficiency_ratios`."""
     env, agent, baseline, label = row["env"], row["agent"], row["baseline"], _label(threshold_label, row["env"])
@@ -274,10 +283,8 @@ def _sentence(row: pd.Series, threshold_label: str | Mapping[str, str]) -> str:
         "paired seeds reached it"
     )
     if np.isnan(low):
-        direction = "fewer" if ratio >= 1.0 else "more"
-        factor = _number(ratio if ratio >= 1.0 else 1.0 / ratio)
         return (
-            f"On {env}, {agent} needed {factor}x {direction} real steps than {baseline} to reach {label}, "
+            f"On {env}, {agent} needed {_how_many(ratio, baseline)} to reach {label}, "
             f"but without an interval ({row['note']}; {counts})."
         )
     if low <= 1.0 <= high:
