@@ -15,6 +15,7 @@ from scipy import integrate, stats
 
 jax = pytest.importorskip("jax")
 import jax.numpy as jnp  # noqa: E402
+from stored_reruns import assert_reruns_on_both_paths  # noqa: E402
 
 from runner.agents import make_agent  # noqa: E402
 from runner.config import load_experiment  # noqa: E402
@@ -275,20 +276,4 @@ agents:
 
 def test_stored_trials_rerun_bit_for_bit_on_both_paths(tmp_path, capsys):
     """`stepmeter rerun --all` on a store holding a compiled and a step-by-step trial."""
-    from runner.cli import main
-    from runner.run import RunOptions, run_experiment
-
-    path = tmp_path / "swing.yaml"
-    path.write_text(_STORED)
-    results = tmp_path / "results"
-    run_experiment(path, results_root=results, options=RunOptions(jobs=1))
-    path.write_text(_STORED.replace("seeds: 1", "seeds: 2"))
-    run_experiment(path, results_root=results, options=RunOptions(jobs=1, trial_path="gymnasium"))
-    capsys.readouterr()
-    assert main(["rerun", str(results / "swing"), "--all"]) == 0
-    out = capsys.readouterr().out.splitlines()
-    assert out[-1] == "2 of 2 re-run trials reproduced their stored rows"
-    assert sorted(line.rsplit("(", 1)[1] for line in out[:-1]) == [
-        "compiled path): same rows bit for bit",
-        "gymnasium path): same rows bit for bit",
-    ]
+    assert_reruns_on_both_paths(tmp_path, capsys, _STORED, "swing")
