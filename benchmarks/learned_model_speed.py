@@ -22,8 +22,6 @@ wait, and a busy machine makes a 200 x 200 Cholesky factorisation hundreds of ti
 
 from __future__ import annotations
 
-import argparse
-import platform
 import sys
 import time
 from collections.abc import Callable
@@ -35,10 +33,10 @@ import numpy as np
 import optax
 
 try:  # run as a script: benchmarks/ is on sys.path
-    from planning_speed import REPEATS, command_line, cpu_model, pin_to_one_core
+    from planning_speed import REPEATS, benchmark_start
     from speed import CpuSnapshot, other_cpu_use
 except ImportError:  # imported as part of a package rather than run as a script
-    from benchmarks.planning_speed import REPEATS, command_line, cpu_model, pin_to_one_core
+    from benchmarks.planning_speed import REPEATS, benchmark_start
     from benchmarks.speed import CpuSnapshot, other_cpu_use
 
 from runner.neural.ensemble import EnsembleModel, ensemble_loss
@@ -112,12 +110,8 @@ def plain_ensemble_steps(model: EnsembleModel, data: Transitions, steps: int, se
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="smaller fits for a smoke run")
-    parser.add_argument("--seed", type=int, default=0, help="seed of every generator and key")
-    args = parser.parse_args(argv)
-    print(f"learned-model speed, {pin_to_one_core()}")
-    print(f"cpu: {cpu_model()}; python {platform.python_version()}, jax {jax.__version__}, optax {optax.__version__}")
+    versions = f", jax {jax.__version__}, optax {optax.__version__}"
+    args, _ = benchmark_start(argv, __doc__.splitlines()[0], "learned_model_speed.py", versions)
     before = CpuSnapshot.take()
 
     gp = GaussianProcessModel(ENCODING, max_points=50 if args.quick else 200, iterations=100)
@@ -145,7 +139,6 @@ def main(argv: list[str] | None = None) -> int:
     params = ensemble.fit(data, jax.random.key(args.seed))
     print(f"  predict: {prediction_rates(ensemble, params, args.seed)}")
     print(other_cpu_use(before))
-    print(f"reproduce: {command_line(args.quick, 'learned_model_speed.py')}")
     return 0
 
 

@@ -21,8 +21,6 @@ The script prints how much CPU other processes used meanwhile. Run from the repo
 
 from __future__ import annotations
 
-import argparse
-import platform
 import sys
 import time
 
@@ -32,11 +30,11 @@ import optax
 
 try:  # run as a script: benchmarks/ is on sys.path
     from learned_model_speed import best, transitions
-    from planning_speed import command_line, cpu_model, pin_to_one_core
+    from planning_speed import benchmark_start
     from speed import CpuSnapshot, other_cpu_use
 except ImportError:  # imported as part of a package rather than run as a script
     from benchmarks.learned_model_speed import best, transitions
-    from benchmarks.planning_speed import command_line, cpu_model, pin_to_one_core
+    from benchmarks.planning_speed import benchmark_start
     from benchmarks.speed import CpuSnapshot, other_cpu_use
 
 from runner.neural.mpc import MPCCore
@@ -73,12 +71,8 @@ def trial_rate(params: dict, steps: int, seed: int) -> tuple[float, float]:
 
 
 def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--quick", action="store_true", help="shorter trials for a smoke run")
-    parser.add_argument("--seed", type=int, default=0, help="seed of every generator and key")
-    args = parser.parse_args(argv)
-    print(f"mpc speed, {pin_to_one_core()}")
-    print(f"cpu: {cpu_model()}; python {platform.python_version()}, jax {jax.__version__}, optax {optax.__version__}")
+    versions = f", jax {jax.__version__}, optax {optax.__version__}"
+    args, _ = benchmark_start(argv, __doc__.splitlines()[0], "mpc_speed.py", versions)
     before = CpuSnapshot.take()
     print("planning (CEM, 200 candidates x 4 particles x horizon 15 x 5 iterations):")
     for model in ("ensemble", "gp"):
@@ -97,7 +91,6 @@ def main(argv: list[str] | None = None) -> int:
             f"warm-up trial {warm:.1f} CPU-s)"
         )
     print(other_cpu_use(before))
-    print(f"reproduce: {command_line(args.quick, 'mpc_speed.py')}")
     return 0
 
 
